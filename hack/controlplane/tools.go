@@ -1,0 +1,11 @@
+//go:build tools
+
+// Package controlplane pins the Kubernetes control-plane commands that the
+// project's tests and demo build from source (see hack/build-controlplane.sh).
+package controlplane
+
+import (
+	_ "k8s.io/kubernetes/cmd/kube-apiserver"
+	_ "k8s.io/kubernetes/cmd/kube-controller-manager"
+	_ "k8s.io/kubernetes/cmd/kube-scheduler"
+)
