@@ -1,0 +1,108 @@
+# plumbline: make targets. `make help` lists them.
+
+SHELL := /usr/bin/env bash
+.SHELLFLAGS := -eu -o pipefail -c
+
+ROOT := $(shell pwd)
+BIN := $(ROOT)/bin
+K8S_BIN := $(BIN)/k8s
+IMG ?= plumbline:dev
+CONTROLLER_GEN_VERSION := v0.23.0
+CONTROLLER_GEN := $(BIN)/controller-gen-$(CONTROLLER_GEN_VERSION)
+KUBECTL ?= kubectl
+GO_PACKAGES := ./...
+
+.PHONY: help
+help: ## List the targets.
+	@awk 'BEGIN {FS = ":.*##"} /^[a-zA-Z_-]+:.*##/ {printf "  %-16s %s\n", $$1, $$2}' $(MAKEFILE_LIST)
+
+##@ The two commands of the README
+
+.PHONY: demo
+demo: build controlplane ## Run the local demo on an embedded control plane (builds what it needs once).
+	KUBEBUILDER_ASSETS=$(K8S_BIN) $(BIN)/plumbline demo --crds config/crd/bases --samples config/samples
+
+.PHONY: test
+test: controlplane ## Run every test tier that can run here (unit and API-server).
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 go test -count=1 $(GO_PACKAGES)
+
+##@ Development
+
+.PHONY: test-unit
+test-unit: ## Run the pure-function tests only (no API server).
+	go test -count=1 -short $(GO_PACKAGES)
+
+.PHONY: manifests
+manifests: $(CONTROLLER_GEN) ## Generate the CRDs and RBAC from the markers.
+	$(CONTROLLER_GEN) crd:allowDangerousTypes=true paths=./api/... output:crd:artifacts:config=config/crd/bases
+	go run ./hack/crdtrim config/crd/bases/*.yaml
+	$(CONTROLLER_GEN) rbac:roleName=plumbline-manager paths=./controllers/... output:rbac:artifacts:config=config/rbac
+
+.PHONY: generate
+generate: $(CONTROLLER_GEN) ## Generate the deepcopy code from the markers.
+	$(CONTROLLER_GEN) object:headerFile=hack/boilerplate.go.txt paths=./api/...
+
+.PHONY: verify-generated
+verify-generated: manifests generate ## Fail when generated files differ from what is committed.
+	@if ! git diff --quiet -- api config || [ -n "$$(git ls-files --others --exclude-standard -- api config)" ]; then \
+	  echo "generated files are stale: run 'make manifests generate' and commit the result" >&2; \
+	  git --no-pager diff --stat -- api config >&2; git ls-files --others --exclude-standard -- api config >&2; exit 1; fi
+
+.PHONY: fmt
+fmt: ## Format the Go code.
+	gofmt -w $$(git ls-files '*.go')
+
+.PHONY: verify-fmt
+verify-fmt: ## Fail when a Go file is not gofmt-formatted.
+	@out=$$(gofmt -l $$(git ls-files '*.go')); if [ -n "$$out" ]; then echo "not gofmt-formatted (run make fmt):" >&2; echo "$$out" >&2; exit 1; fi
+
+.PHONY: vet
+vet: ## Run go vet.
+	go vet $(GO_PACKAGES)
+
+.PHONY: verify-tidy
+verify-tidy: ## Fail when go.mod or go.sum is not tidy.
+	go mod tidy -diff
+	cd hack/controlplane && go mod tidy -diff
+
+.PHONY: verify
+verify: verify-fmt vet verify-tidy verify-generated ## Every check CI runs besides the tests.
+
+.PHONY: build
+build: ## Build the plumbline binary into bin/.
+	go build -o $(BIN)/plumbline .
+
+.PHONY: run
+run: build ## Run the controller against the cluster of the current kubeconfig.
+	$(BIN)/plumbline manager
+
+.PHONY: controlplane
+controlplane: ## Build kube-apiserver and etcd from the Go module proxy into bin/k8s (once).
+	hack/build-controlplane.sh etcd kube-apiserver
+
+##@ Deployment
+
+.PHONY: docker-build
+docker-build: ## Build the controller image (needs a Docker engine).
+	docker build -t $(IMG) .
+
+.PHONY: install
+install: ## Install the CRDs into the cluster of the current kubeconfig.
+	$(KUBECTL) apply --server-side -k config/crd
+
+.PHONY: uninstall
+uninstall: ## Remove the CRDs (and every ModelLine and ModelVersion) from the cluster.
+	$(KUBECTL) delete --ignore-not-found -k config/crd
+
+.PHONY: deploy
+deploy: ## Install the CRDs, RBAC and the manager Deployment (image $(IMG)).
+	$(KUBECTL) kustomize config/default | sed 's|image: plumbline:dev|image: $(IMG)|' | $(KUBECTL) apply --server-side -f -
+
+.PHONY: undeploy
+undeploy: ## Remove everything deploy installed.
+	$(KUBECTL) delete --ignore-not-found -k config/default
+
+$(CONTROLLER_GEN):
+	mkdir -p $(BIN)
+	GOBIN=$(BIN) go install sigs.k8s.io/controller-tools/cmd/controller-gen@$(CONTROLLER_GEN_VERSION)
+	mv $(BIN)/controller-gen $(CONTROLLER_GEN)

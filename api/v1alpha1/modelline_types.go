@@ -1,0 +1,590 @@
+package v1alpha1
+
+import (
+	batchv1 "k8s.io/api/batch/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+)
+
+// Annotations and labels that plumbline reads or writes.
+const (
+	// RetrainRequestAnnotation on a ModelLine asks for a retrain; its value is a
+	// token, and each distinct token acts once.
+	RetrainRequestAnnotation = "plumbline.dev/retrain-request"
+	// VersionAnnotation is stamped on the serving Deployment's pod template on
+	// promotion, naming the ModelVersion it serves.
+	VersionAnnotation = "plumbline.dev/version"
+	// LineLabel names the ModelLine on every object the controller creates.
+	LineLabel = "plumbline.dev/line"
+	// VersionLabel names the ModelVersion on every Job the controller creates.
+	VersionLabel = "plumbline.dev/version"
+	// RoleLabel says what a Job is for: training, gate or check.
+	RoleLabel = "plumbline.dev/role"
+)
+
+// ModelLineSpec is the desired behaviour of one model line.
+//
+// +kubebuilder:validation:XValidation:rule="!has(self.schedule) && (!has(self.triggers) || size(self.triggers) == 0) || has(self.training)",message="spec.training is required when spec.schedule or spec.triggers is set: there is nothing to run a retrain with"
+type ModelLineSpec struct {
+	// serving names the Deployment and container that serve the model.
+	// +required
+	Serving ServingSpec `json:"serving"`
+
+	// training is how a new version is trained.
+	// +optional
+	Training *TrainingSpec `json:"training,omitempty"`
+
+	// schedule starts a retrain on a cron schedule.
+	// +optional
+	Schedule *ScheduleSpec `json:"schedule,omitempty"`
+
+	// triggers start a retrain when a monitored quality metric has held beyond a
+	// threshold for a whole window.
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	// +kubebuilder:validation:MaxItems=16
+	Triggers []TriggerSpec `json:"triggers,omitempty"`
+
+	// checks run, in order, before a trigger-started retrain.
+	// +optional
+	Checks *ChecksSpec `json:"checks,omitempty"`
+
+	// gate judges every candidate on the golden evaluation set.
+	// +required
+	Gate GateSpec `json:"gate"`
+
+	// fallback says what the line may fall back to when the live version
+	// regresses and retraining cannot help.
+	// +optional
+	Fallback *FallbackSpec `json:"fallback,omitempty"`
+
+	// guard watches production quality after a promotion.
+	// +optional
+	Guard *GuardSpec `json:"guard,omitempty"`
+
+	// cooldownSeconds is the least time between two trigger-started retrains.
+	// +optional
+	// +kubebuilder:default=3600
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=31536000
+	CooldownSeconds *int32 `json:"cooldownSeconds,omitempty"`
+
+	// historyLimit is how many archived, rejected or failed versions are kept.
+	// +optional
+	// +kubebuilder:default=10
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=1000
+	HistoryLimit *int32 `json:"historyLimit,omitempty"`
+
+	// suspend stops the controller from acting on this line: no retrains, no
+	// promotions, no rollbacks. Status is still reported.
+	// +optional
+	Suspend bool `json:"suspend,omitempty"`
+}
+
+// ServingSpec names where the live model is served.
+type ServingSpec struct {
+	// deploymentName is the Deployment, in the line's namespace, that serves the
+	// model.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=253
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$`
+	DeploymentName string `json:"deploymentName"`
+
+	// containerName is the container, in that Deployment's pod template, that
+	// loads the model.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=63
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?$`
+	ContainerName string `json:"containerName"`
+
+	// artifactEnv is the environment variable of that container that holds the
+	// served version's artifact URI.
+	// +optional
+	// +kubebuilder:default=MODEL_URI
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=128
+	// +kubebuilder:validation:Pattern=`^[A-Za-z_][A-Za-z0-9_]*$`
+	ArtifactEnv string `json:"artifactEnv,omitempty"`
+}
+
+// TrainingSpec is how a new version is trained.
+type TrainingSpec struct {
+	// jobTemplate is the training Job. Every container gets PLUMBLINE_LINE,
+	// PLUMBLINE_VERSION, PLUMBLINE_ARTIFACT_URI, PLUMBLINE_REASON,
+	// PLUMBLINE_DATA_FROM and PLUMBLINE_DATA_TO.
+	// +required
+	JobTemplate batchv1.JobTemplateSpec `json:"jobTemplate"`
+
+	// artifactURI is a Go template for where the trained artifact goes, with
+	// {{.Line}}, {{.Version}} and {{.Number}}; for example
+	// s3://models/{{.Line}}/{{.Number}}.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=2048
+	ArtifactURI string `json:"artifactURI"`
+}
+
+// ScheduleSpec starts retrains on a cron schedule.
+type ScheduleSpec struct {
+	// cron is a standard 5-field cron expression (minute hour day-of-month
+	// month day-of-week), or a descriptor such as @daily.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=128
+	Cron string `json:"cron"`
+
+	// timeZone is the IANA time zone the cron expression is read in, for
+	// example Europe/London. Empty means UTC.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	TimeZone string `json:"timeZone,omitempty"`
+
+	// startingDeadlineSeconds is how late a missed start may still run. A start
+	// missed by more is skipped. Unset means no deadline.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=31536000
+	StartingDeadlineSeconds *int64 `json:"startingDeadlineSeconds,omitempty"`
+
+	// suspend pauses the schedule only; triggers still act.
+	// +optional
+	Suspend bool `json:"suspend,omitempty"`
+}
+
+// TriggerSpec starts a retrain when a PromQL query has held beyond a threshold
+// for a whole window.
+//
+// +kubebuilder:validation:XValidation:rule="has(self.below) != has(self.above)",message="set exactly one of below and above"
+// +kubebuilder:validation:XValidation:rule="self.forSeconds >= self.everySeconds",message="forSeconds must be at least everySeconds: the window must hold more than one evaluation"
+type TriggerSpec struct {
+	// name identifies the trigger in status, events and version reasons.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=63
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?$`
+	Name string `json:"name"`
+
+	// query is a PromQL expression that yields the monitored value.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=4096
+	Query string `json:"query"`
+
+	// below fires the trigger when the value stays below this.
+	// +optional
+	Below *float64 `json:"below,omitempty"`
+
+	// above fires the trigger when the value stays above this.
+	// +optional
+	Above *float64 `json:"above,omitempty"`
+
+	// forSeconds is how long the value must stay beyond the threshold.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=2592000
+	ForSeconds int32 `json:"forSeconds"`
+
+	// everySeconds is how often the trigger is evaluated.
+	// +optional
+	// +kubebuilder:default=60
+	// +kubebuilder:validation:Minimum=10
+	// +kubebuilder:validation:Maximum=86400
+	EverySeconds int32 `json:"everySeconds,omitempty"`
+}
+
+// ChecksSpec are the checks run before a trigger-started retrain, in order:
+// data quality, drift, fresh data.
+type ChecksSpec struct {
+	// dataQuality checks: any breach blocks the retrain (fix the data first).
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	// +kubebuilder:validation:MaxItems=32
+	DataQuality []QueryCheck `json:"dataQuality,omitempty"`
+
+	// drift checks: a breach means the inputs drifted. A quality drop with no
+	// drift is not retrained on; it needs a person's review.
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	// +kubebuilder:validation:MaxItems=32
+	Drift []QueryCheck `json:"drift,omitempty"`
+
+	// freshData checks that there are enough new labelled rows to train on.
+	// +optional
+	FreshData *FreshDataCheck `json:"freshData,omitempty"`
+
+	// jobTemplate optionally runs a check Job (plumbline datacheck) whose report
+	// feeds the same outcomes as the PromQL checks.
+	// +optional
+	JobTemplate *batchv1.JobTemplateSpec `json:"jobTemplate,omitempty"`
+}
+
+// QueryCheck is a PromQL check, breached when its value is below or above a
+// threshold.
+//
+// +kubebuilder:validation:XValidation:rule="has(self.below) != has(self.above)",message="set exactly one of below and above"
+type QueryCheck struct {
+	// name identifies the check in conditions and events.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=63
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?$`
+	Name string `json:"name"`
+
+	// query is a PromQL expression.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=4096
+	Query string `json:"query"`
+
+	// below: the check is breached when the value is below this.
+	// +optional
+	Below *float64 `json:"below,omitempty"`
+
+	// above: the check is breached when the value is above this.
+	// +optional
+	Above *float64 `json:"above,omitempty"`
+}
+
+// FreshDataCheck requires enough new labelled rows.
+type FreshDataCheck struct {
+	// query is a PromQL expression that yields the number of new labelled rows
+	// since the last training.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=4096
+	Query string `json:"query"`
+
+	// atLeast is the least number of rows worth training on.
+	// +required
+	// +kubebuilder:validation:Minimum=0
+	AtLeast float64 `json:"atLeast"`
+}
+
+// ApprovalMode says whether a candidate that passed the gate needs a person.
+// +kubebuilder:validation:Enum=Automatic;Manual
+type ApprovalMode string
+
+const (
+	// ApprovalAutomatic promotes a candidate as soon as it passes the gate.
+	ApprovalAutomatic ApprovalMode = "Automatic"
+	// ApprovalManual waits for a person to set spec.decision on the version.
+	ApprovalManual ApprovalMode = "Manual"
+)
+
+// GateSpec judges candidates on the golden evaluation set.
+type GateSpec struct {
+	// jobTemplate is the evaluation Job. Besides the training variables it gets
+	// PLUMBLINE_CANDIDATE_URI and PLUMBLINE_BASELINE_URI. Its last container
+	// writes the gate report to its termination message.
+	// +required
+	JobTemplate batchv1.JobTemplateSpec `json:"jobTemplate"`
+
+	// criteria the candidate must meet, all of them.
+	// +required
+	// +listType=atomic
+	// +kubebuilder:validation:MinItems=1
+	// +kubebuilder:validation:MaxItems=32
+	Criteria []GateCriterion `json:"criteria"`
+
+	// approval: Automatic promotes a passing candidate; Manual waits for a
+	// person's decision on the version.
+	// +optional
+	// +kubebuilder:default=Automatic
+	Approval ApprovalMode `json:"approval,omitempty"`
+}
+
+// MetricDirection says which way a metric improves.
+// +kubebuilder:validation:Enum=HigherIsBetter;LowerIsBetter
+type MetricDirection string
+
+const (
+	// HigherIsBetter metrics: accuracy, ROC AUC, R2, ...
+	HigherIsBetter MetricDirection = "HigherIsBetter"
+	// LowerIsBetter metrics: log loss, RMSE, ...
+	LowerIsBetter MetricDirection = "LowerIsBetter"
+)
+
+// GateCriterion is one thing a candidate must meet on the golden set.
+//
+// +kubebuilder:validation:XValidation:rule="has(self.minimum) || has(self.maximum) || has(self.maxRegression)",message="set at least one of minimum, maximum and maxRegression: a criterion with none judges nothing"
+// +kubebuilder:validation:XValidation:rule="!has(self.confidence) || (self.confidence > 0.5 && self.confidence < 1.0)",message="confidence must be strictly between 0.5 and 1, for example 0.95"
+// +kubebuilder:validation:XValidation:rule="has(self.direction) || self.metric in ['accuracy','balanced_accuracy','precision','recall','f1','f1_macro','f1_micro','f1_weighted','mcc','roc_auc','average_precision','log_loss','brier','mae','rmse','mape','r2']",message="metric is not one that plumbline evaluate reports: set direction (HigherIsBetter or LowerIsBetter) so the gate knows which way is better"
+type GateCriterion struct {
+	// metric is the name of a metric in the gate report, for example accuracy,
+	// roc_auc or rmse.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=63
+	// +kubebuilder:validation:Pattern=`^[a-z][a-z0-9_]*$`
+	Metric string `json:"metric"`
+
+	// segment of the golden set: empty is the whole set, "*" every segment in
+	// the report, anything else that one segment.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	Segment string `json:"segment,omitempty"`
+
+	// direction says which way the metric improves. Optional for the metrics
+	// plumbline evaluate reports, whose direction is known.
+	// +optional
+	Direction MetricDirection `json:"direction,omitempty"`
+
+	// minimum the candidate's value must reach (for metrics where higher is
+	// better).
+	// +optional
+	Minimum *float64 `json:"minimum,omitempty"`
+
+	// maximum the candidate's value must not exceed (for metrics where lower is
+	// better).
+	// +optional
+	Maximum *float64 `json:"maximum,omitempty"`
+
+	// maxRegression is the largest loss against the live version that is
+	// tolerated: the confidence interval of the difference must not reach
+	// beyond it (non-inferiority). 0 asks that the candidate be no worse.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	MaxRegression *float64 `json:"maxRegression,omitempty"`
+
+	// confidence of the non-inferiority judgement; the report's interval must
+	// be computed at this confidence or higher.
+	// +optional
+	// +kubebuilder:default=0.95
+	Confidence *float64 `json:"confidence,omitempty"`
+}
+
+// FallbackSpec is what the line may fall back to.
+type FallbackSpec struct {
+	// previous allows rolling back to the previous good version.
+	// +optional
+	// +kubebuilder:default=true
+	Previous *bool `json:"previous,omitempty"`
+
+	// ruleBasedVersion names a ModelVersion of this line whose source is
+	// RuleBased, served when no model version can be.
+	// +optional
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=253
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$`
+	RuleBasedVersion string `json:"ruleBasedVersion,omitempty"`
+}
+
+// GuardSpec watches production quality after a promotion.
+//
+// +kubebuilder:validation:XValidation:rule="has(self.below) != has(self.above)",message="set exactly one of below and above"
+// +kubebuilder:validation:XValidation:rule="self.forSeconds >= self.everySeconds",message="forSeconds must be at least everySeconds: the window must hold more than one evaluation"
+// +kubebuilder:validation:XValidation:rule="self.probationSeconds >= self.forSeconds",message="probationSeconds must be at least forSeconds: a shorter probation can never see a sustained regression"
+type GuardSpec struct {
+	// query is a PromQL expression for production quality.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=4096
+	Query string `json:"query"`
+
+	// below: a regression is the value staying below this.
+	// +optional
+	Below *float64 `json:"below,omitempty"`
+
+	// above: a regression is the value staying above this.
+	// +optional
+	Above *float64 `json:"above,omitempty"`
+
+	// forSeconds is how long the value must stay beyond the threshold to count
+	// as a regression.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=2592000
+	ForSeconds int32 `json:"forSeconds"`
+
+	// everySeconds is how often the guard is evaluated.
+	// +optional
+	// +kubebuilder:default=60
+	// +kubebuilder:validation:Minimum=10
+	// +kubebuilder:validation:Maximum=86400
+	EverySeconds int32 `json:"everySeconds,omitempty"`
+
+	// probationSeconds after a promotion, a regression rolls back
+	// automatically; after it, a regression only raises Degraded.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=31536000
+	ProbationSeconds int32 `json:"probationSeconds"`
+}
+
+// TriggerState is what a trigger's last evaluation found.
+// +kubebuilder:validation:Enum=Inactive;Pending;Firing;Unknown
+type TriggerState string
+
+const (
+	// TriggerInactive: the value is within the threshold.
+	TriggerInactive TriggerState = "Inactive"
+	// TriggerPending: the value is beyond the threshold, not yet for the whole
+	// window.
+	TriggerPending TriggerState = "Pending"
+	// TriggerFiring: the value has been beyond the threshold for the whole
+	// window.
+	TriggerFiring TriggerState = "Firing"
+	// TriggerUnknown: the value could not be judged (query error, no data, too
+	// few points). Never acted on.
+	TriggerUnknown TriggerState = "Unknown"
+)
+
+// TriggerStatus is the last state of one trigger.
+type TriggerStatus struct {
+	// name of the trigger.
+	// +required
+	// +kubebuilder:validation:MaxLength=63
+	Name string `json:"name"`
+
+	// state of the trigger.
+	// +required
+	State TriggerState `json:"state"`
+
+	// since when the trigger has been in this state.
+	// +optional
+	Since *metav1.Time `json:"since,omitempty"`
+
+	// value seen when the state last changed, as text (PromQL values can be NaN
+	// or infinite, which JSON numbers cannot hold).
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	Value string `json:"value,omitempty"`
+
+	// series that decided the state, when the query returned several.
+	// +optional
+	// +kubebuilder:validation:MaxLength=1024
+	Series string `json:"series,omitempty"`
+
+	// message explains the state, for example why it is Unknown.
+	// +optional
+	// +kubebuilder:validation:MaxLength=1024
+	Message string `json:"message,omitempty"`
+}
+
+// ModelLine condition types.
+const (
+	// ConditionReady: the spec is valid and the serving Deployment is there.
+	ConditionReady = "Ready"
+	// ConditionDegraded: production quality is below the guard's threshold.
+	ConditionDegraded = "Degraded"
+	// ConditionRetraining: a version is being trained or evaluated.
+	ConditionRetraining = "Retraining"
+	// ConditionAwaitingApproval: a candidate waits for a person's decision.
+	ConditionAwaitingApproval = "AwaitingApproval"
+	// ConditionFallbackActive: a fallback (previous or rule-based) serves.
+	ConditionFallbackActive = "FallbackActive"
+	// ConditionBlocked: a retrain was refused, for example on broken data.
+	ConditionBlocked = "Blocked"
+	// ConditionNeedsReview: the controller cannot decide and a person should.
+	ConditionNeedsReview = "NeedsReview"
+)
+
+// ModelLine condition reasons.
+const (
+	ReasonSpecValid        = "SpecValid"
+	ReasonInvalidSpec      = "InvalidSpec"
+	ReasonServingNotFound  = "ServingNotFound"
+	ReasonFallbackNotFound = "FallbackNotFound"
+	ReasonSuspended        = "Suspended"
+)
+
+// ModelLineStatus is what the controller last saw and did.
+type ModelLineStatus struct {
+	// observedGeneration is the generation of the spec last acted on.
+	// +optional
+	ObservedGeneration int64 `json:"observedGeneration,omitempty"`
+
+	// liveVersion is the ModelVersion the serving Deployment serves.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	LiveVersion string `json:"liveVersion,omitempty"`
+
+	// previousVersion is the version that served before the live one.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	PreviousVersion string `json:"previousVersion,omitempty"`
+
+	// activeVersion is the version being trained, evaluated or promoted.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	ActiveVersion string `json:"activeVersion,omitempty"`
+
+	// lastRetrainTime is when the last retrain started.
+	// +optional
+	LastRetrainTime *metav1.Time `json:"lastRetrainTime,omitempty"`
+
+	// lastScheduleTime is the last scheduled start that was acted on.
+	// +optional
+	LastScheduleTime *metav1.Time `json:"lastScheduleTime,omitempty"`
+
+	// nextScheduleTime is the next scheduled start.
+	// +optional
+	NextScheduleTime *metav1.Time `json:"nextScheduleTime,omitempty"`
+
+	// lastRetrainRequest is the last retrain-request token handled.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	LastRetrainRequest string `json:"lastRetrainRequest,omitempty"`
+
+	// versionCount is the number of versions created for this line; the next
+	// trained version gets the next number.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	VersionCount int32 `json:"versionCount,omitempty"`
+
+	// triggers is the last state of each trigger.
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	// +kubebuilder:validation:MaxItems=16
+	Triggers []TriggerStatus `json:"triggers,omitempty"`
+
+	// conditions: Ready, Degraded, Retraining, AwaitingApproval,
+	// FallbackActive, Blocked, NeedsReview.
+	// +optional
+	// +listType=map
+	// +listMapKey=type
+	// +kubebuilder:validation:MaxItems=16
+	Conditions []metav1.Condition `json:"conditions,omitempty"`
+}
+
+// ModelLine is one model that is served, retrained and guarded.
+//
+// +kubebuilder:object:root=true
+// +kubebuilder:subresource:status
+// +kubebuilder:resource:shortName=ml;mline,categories=plumbline
+// +kubebuilder:printcolumn:name="Live",type=string,JSONPath=`.status.liveVersion`
+// +kubebuilder:printcolumn:name="Ready",type=string,JSONPath=`.status.conditions[?(@.type=="Ready")].status`
+// +kubebuilder:printcolumn:name="Retraining",type=string,JSONPath=`.status.conditions[?(@.type=="Retraining")].status`
+// +kubebuilder:printcolumn:name="Fallback",type=string,JSONPath=`.status.conditions[?(@.type=="FallbackActive")].status`
+// +kubebuilder:printcolumn:name="Reason",type=string,priority=1,JSONPath=`.status.conditions[?(@.type=="Ready")].reason`
+// +kubebuilder:printcolumn:name="Previous",type=string,priority=1,JSONPath=`.status.previousVersion`
+// +kubebuilder:printcolumn:name="Next Schedule",type=date,priority=1,JSONPath=`.status.nextScheduleTime`
+// +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
+type ModelLine struct {
+	metav1.TypeMeta   `json:",inline"`
+	metav1.ObjectMeta `json:"metadata,omitempty"`
+
+	// +required
+	Spec ModelLineSpec `json:"spec"`
+	// +optional
+	Status ModelLineStatus `json:"status,omitempty"`
+}
+
+// ModelLineList is a list of ModelLines.
+//
+// +kubebuilder:object:root=true
+type ModelLineList struct {
+	metav1.TypeMeta `json:",inline"`
+	metav1.ListMeta `json:"metadata,omitempty"`
+	Items           []ModelLine `json:"items"`
+}
+
+func init() {
+	SchemeBuilder.Register(&ModelLine{}, &ModelLineList{})
+}

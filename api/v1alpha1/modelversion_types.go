@@ -1,0 +1,280 @@
+package v1alpha1
+
+import (
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+)
+
+// VersionSource is where a version comes from.
+// +kubebuilder:validation:Enum=Trained;Imported;RuleBased
+type VersionSource string
+
+const (
+	// SourceTrained: trained by the line's training Job.
+	SourceTrained VersionSource = "Trained"
+	// SourceImported: an artifact made elsewhere. The first one becomes live
+	// when the line has none; later ones go through the gate.
+	SourceImported VersionSource = "Imported"
+	// SourceRuleBased: a simple rule-based model, the last-resort fallback.
+	SourceRuleBased VersionSource = "RuleBased"
+)
+
+// Decision is a person's verdict on a candidate that waits for approval.
+// +kubebuilder:validation:Enum=Approved;Rejected
+type Decision string
+
+const (
+	// DecisionApproved lets a candidate that passed the gate be promoted.
+	DecisionApproved Decision = "Approved"
+	// DecisionRejected stops a candidate for good.
+	DecisionRejected Decision = "Rejected"
+)
+
+// Version reasons, in spec.reason. A trigger-started version has the reason
+// "Trigger/<trigger name>".
+const (
+	ReasonSchedule      = "Schedule"
+	ReasonManual        = "Manual"
+	ReasonInitial       = "Initial"
+	ReasonTriggerPrefix = "Trigger/"
+)
+
+// ModelVersionSpec describes one candidate or released version.
+//
+// +kubebuilder:validation:XValidation:rule="self.source != 'RuleBased' || has(self.artifactURI)",message="artifactURI is required for a RuleBased version: it is what the serving container loads"
+// +kubebuilder:validation:XValidation:rule="self.source != 'Imported' || has(self.artifactURI)",message="artifactURI is required for an Imported version: it is what the serving container loads"
+// +kubebuilder:validation:XValidation:rule="!has(oldSelf.decision) || (has(self.decision) && self.decision == oldSelf.decision)",message="decision cannot be changed or removed once made; create a new version instead"
+// +kubebuilder:validation:XValidation:rule="!has(oldSelf.artifactURI) || (has(self.artifactURI) && self.artifactURI == oldSelf.artifactURI)",message="artifactURI cannot be changed once set: a version is one artifact; create a new version instead"
+type ModelVersionSpec struct {
+	// line is the ModelLine, in the same namespace, this version belongs to.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=253
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$`
+	// +kubebuilder:validation:XValidation:rule="self == oldSelf",message="line is immutable: a version belongs to one line for good"
+	Line string `json:"line"`
+
+	// source of the version: Trained, Imported or RuleBased.
+	// +required
+	// +kubebuilder:validation:XValidation:rule="self == oldSelf",message="source is immutable"
+	Source VersionSource `json:"source"`
+
+	// artifactURI is where the model artifact is. The controller fills it for a
+	// Trained version from the line's spec.training.artifactURI.
+	// +optional
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=2048
+	ArtifactURI string `json:"artifactURI,omitempty"`
+
+	// reason the version exists: Schedule, Manual, Initial or
+	// Trigger/<trigger name>.
+	// +optional
+	// +kubebuilder:validation:MaxLength=80
+	// +kubebuilder:validation:Pattern=`^(Schedule|Manual|Initial|Trigger/[a-z0-9]([-a-z0-9]*[a-z0-9])?)$`
+	Reason string `json:"reason,omitempty"`
+
+	// decision is set by a person on a candidate that waits for approval:
+	// Approved or Rejected. It cannot be changed once made.
+	// +optional
+	Decision Decision `json:"decision,omitempty"`
+
+	// decisionNote says why, for the record.
+	// +optional
+	// +kubebuilder:validation:MaxLength=1024
+	DecisionNote string `json:"decisionNote,omitempty"`
+}
+
+// VersionPhase is where a version is in its life, for kubectl get.
+// +kubebuilder:validation:Enum=Pending;Training;Evaluating;AwaitingApproval;Promoting;Live;Archived;Rejected;Failed
+type VersionPhase string
+
+const (
+	PhasePending          VersionPhase = "Pending"
+	PhaseTraining         VersionPhase = "Training"
+	PhaseEvaluating       VersionPhase = "Evaluating"
+	PhaseAwaitingApproval VersionPhase = "AwaitingApproval"
+	PhasePromoting        VersionPhase = "Promoting"
+	PhaseLive             VersionPhase = "Live"
+	PhaseArchived         VersionPhase = "Archived"
+	PhaseRejected         VersionPhase = "Rejected"
+	PhaseFailed           VersionPhase = "Failed"
+)
+
+// ModelVersion condition types.
+const (
+	ConditionTrained    = "Trained"
+	ConditionEvaluated  = "Evaluated"
+	ConditionGatePassed = "GatePassed"
+	ConditionApproved   = "Approved"
+	ConditionLive       = "Live"
+)
+
+// GateVerdict is the controller's judgement of a candidate.
+// +kubebuilder:validation:Enum=Passed;Failed
+type GateVerdict string
+
+const (
+	GatePassed GateVerdict = "Passed"
+	GateFailed GateVerdict = "Failed"
+)
+
+// CriterionResult is how a candidate fared on one criterion for one segment.
+type CriterionResult struct {
+	// metric of the criterion.
+	// +required
+	// +kubebuilder:validation:MaxLength=63
+	Metric string `json:"metric"`
+
+	// segment judged; empty is the whole set.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	Segment string `json:"segment,omitempty"`
+
+	// passed is whether the candidate met the criterion.
+	// +required
+	Passed bool `json:"passed"`
+
+	// candidate is the candidate's value, as text.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	Candidate string `json:"candidate,omitempty"`
+
+	// baseline is the live version's value, as text.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	Baseline string `json:"baseline,omitempty"`
+
+	// deltaLow is the lower end of the difference's interval, as text.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	DeltaLow string `json:"deltaLow,omitempty"`
+
+	// message says what was required and what was found.
+	// +optional
+	// +kubebuilder:validation:MaxLength=1024
+	Message string `json:"message,omitempty"`
+}
+
+// GateResult is the controller's judgement of the evaluation report.
+type GateResult struct {
+	// verdict: Passed or Failed.
+	// +required
+	Verdict GateVerdict `json:"verdict"`
+
+	// reason in one CamelCase word, for example CriteriaNotMet or
+	// MalformedReport.
+	// +optional
+	// +kubebuilder:validation:MaxLength=128
+	Reason string `json:"reason,omitempty"`
+
+	// message explains the verdict.
+	// +optional
+	// +kubebuilder:validation:MaxLength=4096
+	Message string `json:"message,omitempty"`
+
+	// rows of the golden set the report was computed on.
+	// +optional
+	Rows int64 `json:"rows,omitempty"`
+
+	// criteria results, one per criterion and segment judged.
+	// +optional
+	// +listType=atomic
+	// +kubebuilder:validation:MaxItems=256
+	Criteria []CriterionResult `json:"criteria,omitempty"`
+
+	// mustPassFailed is the number of must-pass rows the candidate got wrong.
+	// +optional
+	MustPassFailed int32 `json:"mustPassFailed,omitempty"`
+
+	// evaluatedTime is when the report was judged.
+	// +optional
+	EvaluatedTime *metav1.Time `json:"evaluatedTime,omitempty"`
+}
+
+// ModelVersionStatus is what happened to a version.
+type ModelVersionStatus struct {
+	// observedGeneration is the generation of the spec last acted on.
+	// +optional
+	ObservedGeneration int64 `json:"observedGeneration,omitempty"`
+
+	// phase is where the version is in its life.
+	// +optional
+	Phase VersionPhase `json:"phase,omitempty"`
+
+	// number is the version's sequence number within its line.
+	// +optional
+	Number int32 `json:"number,omitempty"`
+
+	// trainingJob is the name of the training Job.
+	// +optional
+	// +kubebuilder:validation:MaxLength=63
+	TrainingJob string `json:"trainingJob,omitempty"`
+
+	// gateJob is the name of the evaluation Job.
+	// +optional
+	// +kubebuilder:validation:MaxLength=63
+	GateJob string `json:"gateJob,omitempty"`
+
+	// dataFrom and dataTo bound the training data window.
+	// +optional
+	DataFrom *metav1.Time `json:"dataFrom,omitempty"`
+	// +optional
+	DataTo *metav1.Time `json:"dataTo,omitempty"`
+
+	// gate is the controller's judgement of the evaluation report.
+	// +optional
+	Gate *GateResult `json:"gate,omitempty"`
+
+	// decisionTime is when the controller saw a person's decision.
+	// +optional
+	DecisionTime *metav1.Time `json:"decisionTime,omitempty"`
+
+	// promotedTime is when the version went live.
+	// +optional
+	PromotedTime *metav1.Time `json:"promotedTime,omitempty"`
+
+	// archivedTime is when the version stopped serving.
+	// +optional
+	ArchivedTime *metav1.Time `json:"archivedTime,omitempty"`
+
+	// conditions: Trained, Evaluated, GatePassed, Approved, Live.
+	// +optional
+	// +listType=map
+	// +listMapKey=type
+	// +kubebuilder:validation:MaxItems=16
+	Conditions []metav1.Condition `json:"conditions,omitempty"`
+}
+
+// ModelVersion is one candidate or released version of a model line.
+//
+// +kubebuilder:object:root=true
+// +kubebuilder:subresource:status
+// +kubebuilder:resource:shortName=mv;mver,categories=plumbline
+// +kubebuilder:printcolumn:name="Line",type=string,JSONPath=`.spec.line`
+// +kubebuilder:printcolumn:name="Phase",type=string,JSONPath=`.status.phase`
+// +kubebuilder:printcolumn:name="Reason",type=string,JSONPath=`.spec.reason`
+// +kubebuilder:printcolumn:name="Gate",type=string,JSONPath=`.status.gate.verdict`
+// +kubebuilder:printcolumn:name="Source",type=string,priority=1,JSONPath=`.spec.source`
+// +kubebuilder:printcolumn:name="Artifact",type=string,priority=1,JSONPath=`.spec.artifactURI`
+// +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
+type ModelVersion struct {
+	metav1.TypeMeta   `json:",inline"`
+	metav1.ObjectMeta `json:"metadata,omitempty"`
+
+	// +required
+	Spec ModelVersionSpec `json:"spec"`
+	// +optional
+	Status ModelVersionStatus `json:"status,omitempty"`
+}
+
+// ModelVersionList is a list of ModelVersions.
+//
+// +kubebuilder:object:root=true
+type ModelVersionList struct {
+	metav1.TypeMeta `json:",inline"`
+	metav1.ListMeta `json:"metadata,omitempty"`
+	Items           []ModelVersion `json:"items"`
+}
+
+func init() {
+	SchemeBuilder.Register(&ModelVersion{}, &ModelVersionList{})
+}
