@@ -1,0 +1,250 @@
+package controllers
+
+import (
+	"context"
+	"fmt"
+	"sort"
+	"strings"
+
+	appsv1 "k8s.io/api/apps/v1"
+	"k8s.io/apimachinery/pkg/api/equality"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+	"k8s.io/client-go/tools/events"
+	"k8s.io/utils/clock"
+	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/builder"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/handler"
+	"sigs.k8s.io/controller-runtime/pkg/log"
+	"sigs.k8s.io/controller-runtime/pkg/predicate"
+	"sigs.k8s.io/controller-runtime/pkg/reconcile"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/speccheck"
+)
+
+// Field indexes the manager keeps, so a change to a Deployment or a
+// ModelVersion finds its lines without listing them all.
+const (
+	indexServingDeployment = "spec.serving.deploymentName"
+	indexVersionLine       = "spec.line"
+)
+
+// The permissions the manager needs, gathered into config/rbac by
+// controller-gen.
+// +kubebuilder:rbac:groups=plumbline.dev,resources=modellines,verbs=get;list;watch;update;patch
+// +kubebuilder:rbac:groups=plumbline.dev,resources=modellines/status,verbs=get;update;patch
+// +kubebuilder:rbac:groups=plumbline.dev,resources=modellines/finalizers,verbs=update
+// +kubebuilder:rbac:groups=apps,resources=deployments,verbs=get;list;watch;update;patch
+// +kubebuilder:rbac:groups=batch,resources=jobs,verbs=get;list;watch;create;delete
+// +kubebuilder:rbac:groups="",resources=pods,verbs=get;list;watch
+// +kubebuilder:rbac:groups=events.k8s.io,resources=events,verbs=create;patch
+// +kubebuilder:rbac:groups="",resources=events,verbs=create;patch
+
+// ModelLineReconciler keeps a ModelLine's status true to its spec and the
+// cluster.
+type ModelLineReconciler struct {
+	client.Client
+	Clock    clock.PassiveClock
+	Recorder events.EventRecorder
+}
+
+// lineObservation is what one pass read about a line from the cluster,
+// besides the line itself.
+type lineObservation struct {
+	// problems are spec problems, from speccheck and from references the API
+	// server cannot check (the rule-based fallback's source and line).
+	problems []speccheck.Problem
+	// servingMissing explains why the serving Deployment or container was not
+	// found; empty when it was.
+	servingMissing string
+	// fallbackMissing explains why the rule-based fallback version was not
+	// found; empty when it was or none is named.
+	fallbackMissing string
+}
+
+// Reconcile reads a line and what it refers to, computes its conditions,
+// writes the status once, then emits events for what changed.
+func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
+	var line v1alpha1.ModelLine
+	if err := r.Get(ctx, req.NamespacedName, &line); err != nil {
+		if apierrors.IsNotFound(err) {
+			forgetLineMetrics(req.Namespace, req.Name)
+			return ctrl.Result{}, nil
+		}
+		return ctrl.Result{}, fmt.Errorf("get ModelLine %s: %w", req.NamespacedName, err)
+	}
+	orig := line.DeepCopy()
+
+	obs, err := r.observe(ctx, &line)
+	if err != nil {
+		// A failed read is transient: retry with backoff, and leave
+		// observedGeneration alone so nobody reads the pass as done.
+		return ctrl.Result{}, err
+	}
+
+	now := metav1.NewTime(r.Clock.Now())
+	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs), line.Generation, now)
+	line.Status.ObservedGeneration = line.Generation
+
+	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
+		if err := r.Status().Patch(ctx, &line, client.MergeFrom(orig)); err != nil {
+			return ctrl.Result{}, fmt.Errorf("write status of ModelLine %s: %w", req.NamespacedName, err)
+		}
+	}
+	if readyChanged {
+		r.eventForReady(orig, &line)
+	}
+	recordLineMetrics(&line)
+	// Nothing here changes with time alone: the next pass comes from a change
+	// to the line, its Deployment or its versions, never from a retry loop.
+	return ctrl.Result{}, nil
+}
+
+// observe reads the serving Deployment and the rule-based fallback.
+func (r *ModelLineReconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lineObservation, error) {
+	obs := lineObservation{problems: speccheck.Line(&line.Spec)}
+
+	var dep appsv1.Deployment
+	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Spec.Serving.DeploymentName}
+	switch err := r.Get(ctx, key, &dep); {
+	case apierrors.IsNotFound(err):
+		obs.servingMissing = fmt.Sprintf("Deployment %q (spec.serving.deploymentName) does not exist in namespace %q; the line waits for it", key.Name, key.Namespace)
+	case err != nil:
+		return obs, fmt.Errorf("get serving Deployment %s: %w", key, err)
+	default:
+		obs.servingMissing = missingContainer(&dep, line.Spec.Serving.ContainerName)
+	}
+
+	if name := ruleBasedName(line); name != "" {
+		var v v1alpha1.ModelVersion
+		key := types.NamespacedName{Namespace: line.Namespace, Name: name}
+		switch err := r.Get(ctx, key, &v); {
+		case apierrors.IsNotFound(err):
+			obs.fallbackMissing = fmt.Sprintf("ModelVersion %q (spec.fallback.ruleBasedVersion) does not exist; create it with source RuleBased and line %q", name, line.Name)
+		case err != nil:
+			return obs, fmt.Errorf("get fallback ModelVersion %s: %w", key, err)
+		default:
+			obs.problems = append(obs.problems, fallbackProblems(line.Name, &v)...)
+		}
+	}
+	return obs, nil
+}
+
+func ruleBasedName(line *v1alpha1.ModelLine) string {
+	if line.Spec.Fallback == nil {
+		return ""
+	}
+	return line.Spec.Fallback.RuleBasedVersion
+}
+
+// missingContainer explains why a Deployment cannot serve the line's model,
+// or returns "" when it has the container.
+func missingContainer(dep *appsv1.Deployment, container string) string {
+	var names []string
+	for _, c := range dep.Spec.Template.Spec.Containers {
+		if c.Name == container {
+			return ""
+		}
+		names = append(names, c.Name)
+	}
+	sort.Strings(names)
+	return fmt.Sprintf("Deployment %q has no container %q (spec.serving.containerName); its containers are: %s", dep.Name, container, strings.Join(names, ", "))
+}
+
+// fallbackProblems checks that the version named as the rule-based fallback
+// is one.
+func fallbackProblems(line string, v *v1alpha1.ModelVersion) []speccheck.Problem {
+	var ps []speccheck.Problem
+	if v.Spec.Source != v1alpha1.SourceRuleBased {
+		ps = append(ps, speccheck.Problem{Field: "spec.fallback.ruleBasedVersion", Message: fmt.Sprintf("ModelVersion %q has source %s; a fallback must have source RuleBased", v.Name, v.Spec.Source)})
+	}
+	if v.Spec.Line != line {
+		ps = append(ps, speccheck.Problem{Field: "spec.fallback.ruleBasedVersion", Message: fmt.Sprintf("ModelVersion %q belongs to line %q, not this one", v.Name, v.Spec.Line)})
+	}
+	return ps
+}
+
+// readyCondition is the line's Ready condition: spec problems first (a person
+// must edit the line), then a missing Deployment or fallback (something else
+// must appear), then suspension.
+func readyCondition(suspended bool, obs lineObservation) metav1.Condition {
+	c := metav1.Condition{Type: v1alpha1.ConditionReady}
+	switch {
+	case len(obs.problems) > 0:
+		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, speccheck.Join(obs.problems)
+	case obs.servingMissing != "":
+		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, obs.servingMissing
+	case obs.fallbackMissing != "":
+		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, obs.fallbackMissing
+	case suspended:
+		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend is true: the controller reports status but does not act on this line"
+	default:
+		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "the spec is valid and the serving Deployment is there"
+	}
+	return c
+}
+
+// eventForReady tells a person why the line is not ready, once per change,
+// or that it recovered.
+func (r *ModelLineReconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
+	wasFalse := conditionIs(orig.Status.Conditions, v1alpha1.ConditionReady, metav1.ConditionFalse)
+	for _, c := range line.Status.Conditions {
+		if c.Type != v1alpha1.ConditionReady {
+			continue
+		}
+		switch {
+		case c.Status == metav1.ConditionFalse:
+			r.Recorder.Eventf(line, nil, "Warning", c.Reason, "CheckSpec", "%s", c.Message)
+		case wasFalse:
+			r.Recorder.Eventf(line, nil, "Normal", c.Reason, "CheckSpec", "the line is ready: %s", c.Message)
+		}
+	}
+}
+
+// SetupWithManager registers the reconciler, its indexes and its watches.
+func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Manager) error {
+	if err := mgr.GetFieldIndexer().IndexField(ctx, &v1alpha1.ModelLine{}, indexServingDeployment, func(o client.Object) []string {
+		return []string{o.(*v1alpha1.ModelLine).Spec.Serving.DeploymentName}
+	}); err != nil {
+		return fmt.Errorf("index ModelLines by serving Deployment: %w", err)
+	}
+	if err := mgr.GetFieldIndexer().IndexField(ctx, &v1alpha1.ModelVersion{}, indexVersionLine, func(o client.Object) []string {
+		return []string{o.(*v1alpha1.ModelVersion).Spec.Line}
+	}); err != nil {
+		return fmt.Errorf("index ModelVersions by line: %w", err)
+	}
+	return ctrl.NewControllerManagedBy(mgr).
+		Named("modelline").
+		// Status writes do not change the generation, so they do not wake the
+		// line again; annotations carry a person's requests.
+		For(&v1alpha1.ModelLine{}, builder.WithPredicates(predicate.Or(predicate.GenerationChangedPredicate{}, predicate.AnnotationChangedPredicate{}))).
+		Watches(&appsv1.Deployment{}, handler.EnqueueRequestsFromMapFunc(r.linesServedBy)).
+		Watches(&v1alpha1.ModelVersion{}, handler.EnqueueRequestsFromMapFunc(lineOfVersion)).
+		Complete(r)
+}
+
+// linesServedBy maps a Deployment to the lines it serves.
+func (r *ModelLineReconciler) linesServedBy(ctx context.Context, o client.Object) []reconcile.Request {
+	var lines v1alpha1.ModelLineList
+	if err := r.List(ctx, &lines, client.InNamespace(o.GetNamespace()), client.MatchingFields{indexServingDeployment: o.GetName()}); err != nil {
+		log.FromContext(ctx).Error(err, "list ModelLines served by Deployment", "deployment", client.ObjectKeyFromObject(o))
+		return nil
+	}
+	reqs := make([]reconcile.Request, 0, len(lines.Items))
+	for _, l := range lines.Items {
+		reqs = append(reqs, reconcile.Request{NamespacedName: client.ObjectKeyFromObject(&l)})
+	}
+	return reqs
+}
+
+// lineOfVersion maps a ModelVersion to its line.
+func lineOfVersion(_ context.Context, o client.Object) []reconcile.Request {
+	v, ok := o.(*v1alpha1.ModelVersion)
+	if !ok || v.Spec.Line == "" {
+		return nil
+	}
+	return []reconcile.Request{{NamespacedName: types.NamespacedName{Namespace: v.Namespace, Name: v.Spec.Line}}}
+}

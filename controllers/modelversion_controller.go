@@ -1,0 +1,105 @@
+package controllers
+
+import (
+	"context"
+	"fmt"
+
+	"k8s.io/apimachinery/pkg/api/equality"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+	"k8s.io/client-go/tools/events"
+	"k8s.io/utils/clock"
+	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/controller/controllerutil"
+	"sigs.k8s.io/controller-runtime/pkg/handler"
+	"sigs.k8s.io/controller-runtime/pkg/log"
+	"sigs.k8s.io/controller-runtime/pkg/reconcile"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+)
+
+// The permissions the manager needs, gathered into config/rbac by
+// controller-gen.
+// +kubebuilder:rbac:groups=plumbline.dev,resources=modelversions,verbs=get;list;watch;create;update;patch;delete
+// +kubebuilder:rbac:groups=plumbline.dev,resources=modelversions/status,verbs=get;update;patch
+// +kubebuilder:rbac:groups=plumbline.dev,resources=modelversions/finalizers,verbs=update
+
+// ModelVersionReconciler ties each version to its line and reports its phase.
+type ModelVersionReconciler struct {
+	client.Client
+	Clock    clock.PassiveClock
+	Recorder events.EventRecorder
+}
+
+// Reconcile adopts a version into its line (an owner reference, so deleting
+// the line deletes its versions) and sets its first phase.
+func (r *ModelVersionReconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
+	var v v1alpha1.ModelVersion
+	if err := r.Get(ctx, req.NamespacedName, &v); err != nil {
+		return ctrl.Result{}, client.IgnoreNotFound(err)
+	}
+	orig := v.DeepCopy()
+
+	var line v1alpha1.ModelLine
+	lineKey := types.NamespacedName{Namespace: v.Namespace, Name: v.Spec.Line}
+	lineErr := r.Get(ctx, lineKey, &line)
+	if lineErr != nil && !apierrors.IsNotFound(lineErr) {
+		return ctrl.Result{}, fmt.Errorf("get ModelLine %s of version %s: %w", lineKey, req.NamespacedName, lineErr)
+	}
+	lineFound := lineErr == nil
+
+	if lineFound && !metav1.IsControlledBy(&v, &line) {
+		if err := controllerutil.SetControllerReference(&line, &v, r.Scheme()); err != nil {
+			// Another controller owns it: say so rather than fight over it.
+			r.Recorder.Eventf(&v, &line, "Warning", "NotAdopted", "Adopt", "cannot adopt into line %q: %v", line.Name, err)
+			return ctrl.Result{}, nil
+		}
+		if err := r.Patch(ctx, &v, client.MergeFrom(orig)); err != nil {
+			return ctrl.Result{}, fmt.Errorf("adopt ModelVersion %s into line %s: %w", req.NamespacedName, line.Name, err)
+		}
+		orig = v.DeepCopy()
+	}
+
+	firstSeen := v.Status.Phase == ""
+	if firstSeen {
+		v.Status.Phase = v1alpha1.PhasePending
+	}
+	v.Status.ObservedGeneration = v.Generation
+	if !equality.Semantic.DeepEqual(orig.Status, v.Status) {
+		if err := r.Status().Patch(ctx, &v, client.MergeFrom(orig)); err != nil {
+			return ctrl.Result{}, fmt.Errorf("write status of ModelVersion %s: %w", req.NamespacedName, err)
+		}
+	}
+	if firstSeen && !lineFound {
+		r.Recorder.Eventf(&v, nil, "Warning", "LineNotFound", "Adopt", "ModelLine %q (spec.line) does not exist in namespace %q; the version waits for it", v.Spec.Line, v.Namespace)
+	}
+	return ctrl.Result{}, nil
+}
+
+// SetupWithManager registers the reconciler and its watches. The index of
+// versions by line is registered by the ModelLine reconciler.
+func (r *ModelVersionReconciler) SetupWithManager(mgr ctrl.Manager) error {
+	return ctrl.NewControllerManagedBy(mgr).
+		Named("modelversion").
+		For(&v1alpha1.ModelVersion{}).
+		// A line that appears late adopts the versions that named it.
+		Watches(&v1alpha1.ModelLine{}, handler.EnqueueRequestsFromMapFunc(r.versionsOfLine)).
+		Complete(r)
+}
+
+func (r *ModelVersionReconciler) versionsOfLine(ctx context.Context, o client.Object) []reconcile.Request {
+	var versions v1alpha1.ModelVersionList
+	if err := r.List(ctx, &versions, client.InNamespace(o.GetNamespace()), client.MatchingFields{indexVersionLine: o.GetName()}); err != nil {
+		log.FromContext(ctx).Error(err, "list ModelVersions of line", "line", client.ObjectKeyFromObject(o))
+		return nil
+	}
+	var reqs []reconcile.Request
+	for _, v := range versions.Items {
+		if !metav1.IsControlledBy(&v, o) {
+			reqs = append(reqs, reconcile.Request{NamespacedName: client.ObjectKeyFromObject(&v)})
+		}
+	}
+	return reqs
+}
