@@ -1,0 +1,460 @@
+// Package demo plays the Larkspur Parcels story on a local control plane: a
+// real kube-apiserver and etcd on loopback with plumbline's CRDs, and the
+// plumbline manager running in-process. It prints a timeline read from the
+// resources' conditions and events, ends with a summary, and leaves nothing
+// running.
+//
+// Larkspur Parcels is a fictional courier; every name and number is invented.
+package demo
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"text/tabwriter"
+	"time"
+
+	appsv1 "k8s.io/api/apps/v1"
+	eventsv1 "k8s.io/api/events/v1"
+	"k8s.io/apimachinery/pkg/api/meta"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
+	"k8s.io/apimachinery/pkg/types"
+	utilyaml "k8s.io/apimachinery/pkg/util/yaml"
+	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/log/zap"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/controlplane"
+	"plumbline.dev/plumbline/internal/manager"
+)
+
+// Options say where the demo finds what it needs.
+type Options struct {
+	// CRDDir holds the CRD manifests.
+	CRDDir string
+	// SamplesDir holds the Larkspur sample manifests.
+	SamplesDir string
+	// AssetsDir holds kube-apiserver and etcd.
+	AssetsDir string
+	// WorkDir receives the kubeconfig and the manager's log.
+	WorkDir string
+	// StepTimeout bounds each wait for the controller; zero means 60s.
+	StepTimeout time.Duration
+}
+
+const namespace = "larkspur"
+
+// Run plays the demo. It returns nil when every step went as told.
+func Run(ctx context.Context, o Options, out io.Writer) error {
+	if o.StepTimeout == 0 {
+		o.StepTimeout = 60 * time.Second
+	}
+	d := &player{out: out, start: time.Now(), timeout: o.StepTimeout, seen: map[types.UID]bool{}}
+	work, err := filepath.Abs(o.WorkDir)
+	if err != nil {
+		return fmt.Errorf("work directory %q: %w", o.WorkDir, err)
+	}
+	if err := os.MkdirAll(work, 0o755); err != nil {
+		return fmt.Errorf("create work directory: %w", err)
+	}
+
+	d.say("plumbline demo: Larkspur Parcels, a fictional courier. Every name and number here is synthetic.")
+	d.say("Starting a control plane on loopback (etcd and kube-apiserver built from source) ...")
+	env, err := controlplane.Start(controlplane.Options{AssetsDir: o.AssetsDir, CRDDir: o.CRDDir, KubeconfigPath: filepath.Join(work, "kubeconfig")})
+	if err != nil {
+		return err
+	}
+	defer func() {
+		d.say("Stopping the manager and the control plane.")
+		if err := env.Stop(); err != nil {
+			fmt.Fprintf(out, "demo: %v\n", err)
+		}
+	}()
+	d.say("Control plane up, CRDs installed. To watch along in another terminal:")
+	fmt.Fprintf(out, "\n    export KUBECONFIG=%s\n    kubectl get modellines,modelversions -n %s -w\n\n", env.KubeconfigPath, namespace)
+
+	logPath := filepath.Join(work, "manager.log")
+	logFile, err := os.Create(logPath)
+	if err != nil {
+		return fmt.Errorf("create manager log: %w", err)
+	}
+	defer logFile.Close()
+	ctrl.SetLogger(zap.New(zap.WriteTo(logFile)))
+
+	metricsAddr, err := freeLoopbackAddr()
+	if err != nil {
+		return err
+	}
+	mctx, stopManager := context.WithCancel(ctx)
+	mgr, err := manager.New(mctx, env.Config, manager.Options{MetricsAddr: metricsAddr, ProbeAddr: "0"})
+	if err != nil {
+		stopManager()
+		return err
+	}
+	mgrDone := make(chan error, 1)
+	go func() { mgrDone <- mgr.Start(mctx) }()
+	defer func() {
+		stopManager()
+		if err := <-mgrDone; err != nil {
+			fmt.Fprintf(out, "demo: manager: %v\n", err)
+		}
+	}()
+	d.say(fmt.Sprintf("Manager running (log: %s, metrics: http://%s/metrics).", logPath, metricsAddr))
+
+	scheme, err := manager.Scheme()
+	if err != nil {
+		return err
+	}
+	d.c, err = client.New(env.Config, client.Options{Scheme: scheme})
+	if err != nil {
+		return fmt.Errorf("create client: %w", err)
+	}
+	d.ctx = ctx
+
+	if err := d.story(o.SamplesDir); err != nil {
+		return err
+	}
+	if err := d.summary(metricsAddr); err != nil {
+		return err
+	}
+	return nil
+}
+
+// player keeps the demo's state and prints its timeline.
+type player struct {
+	ctx     context.Context
+	c       client.Client
+	out     io.Writer
+	start   time.Time
+	timeout time.Duration
+	// seen are the events already printed.
+	seen map[types.UID]bool
+}
+
+func (d *player) say(msg string) {
+	el := time.Since(d.start).Round(time.Second)
+	fmt.Fprintf(d.out, "[%02d:%02d] %s\n", int(el.Minutes()), int(el.Seconds())%60, msg)
+}
+
+func (d *player) step(n int, title string) {
+	fmt.Fprintf(d.out, "\n== %d. %s\n", n, title)
+}
+
+// story applies the samples and walks through what the controller says.
+func (d *player) story(samples string) error {
+	objs, err := readDir(samples)
+	if err != nil {
+		return err
+	}
+	byKind := func(kind string) []*unstructured.Unstructured {
+		var l []*unstructured.Unstructured
+		for _, o := range objs {
+			if o.GetKind() == kind {
+				l = append(l, o)
+			}
+		}
+		return l
+	}
+	lineKey := types.NamespacedName{Namespace: namespace, Name: "late-risk"}
+
+	d.step(1, "Larkspur describes its late-delivery model as a ModelLine, before the scorer is deployed")
+	for _, o := range append(byKind("Namespace"), byKind("ModelLine")...) {
+		if err := d.create(o); err != nil {
+			return err
+		}
+	}
+	if err := d.waitReady(lineKey, metav1.ConditionFalse, v1alpha1.ReasonServingNotFound); err != nil {
+		return err
+	}
+
+	d.step(2, "A mistake the API server refuses at once: a trigger window shorter than its period")
+	bad := byKind("ModelLine")[0].DeepCopy()
+	bad.SetName("late-risk-typo")
+	if err := setTrigger(bad, "forSeconds", int64(60)); err != nil {
+		return err
+	}
+	switch err := d.c.Create(d.ctx, bad); {
+	case err == nil:
+		return errors.New("the API server accepted a trigger with forSeconds < everySeconds; its CEL rule is missing")
+	default:
+		d.say("kubectl apply would print: " + firstLine(err.Error()))
+	}
+
+	d.step(3, "A mistake only the controller can see: a cron typo (\"Mon-Funday\") in the schedule")
+	var line v1alpha1.ModelLine
+	if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
+		return fmt.Errorf("get line: %w", err)
+	}
+	line.Spec.Schedule.Cron = "30 2 * * Mon-Funday"
+	if err := d.c.Update(d.ctx, &line); err != nil {
+		return fmt.Errorf("update line: %w", err)
+	}
+	if err := d.waitReady(lineKey, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec); err != nil {
+		return err
+	}
+	d.say("The controller does not retry an invalid spec in a loop: it waits for the next edit.")
+
+	d.step(4, "The scorer Deployment and the versions arrive, and the schedule is fixed")
+	for _, o := range append(byKind("Deployment"), byKind("ModelVersion")...) {
+		if err := d.create(o); err != nil {
+			return err
+		}
+	}
+	if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
+		return fmt.Errorf("get line: %w", err)
+	}
+	line.Spec.Schedule.Cron = "30 2 * * 1"
+	if err := d.c.Update(d.ctx, &line); err != nil {
+		return fmt.Errorf("update line: %w", err)
+	}
+	d.say(`fixed spec.schedule.cron to "30 2 * * 1" (Mondays at 02:30, Europe/London)`)
+	if err := d.waitReady(lineKey, metav1.ConditionTrue, v1alpha1.ReasonSpecValid); err != nil {
+		return err
+	}
+	return d.waitAdopted(lineKey, len(byKind("ModelVersion")))
+}
+
+func (d *player) create(o *unstructured.Unstructured) error {
+	if err := d.c.Create(d.ctx, o.DeepCopy()); err != nil {
+		return fmt.Errorf("create %s %s: %w", o.GetKind(), o.GetName(), err)
+	}
+	d.say(fmt.Sprintf("applied %s %s", o.GetKind(), o.GetName()))
+	return nil
+}
+
+// waitReady prints events until the line's Ready condition is as wanted.
+func (d *player) waitReady(key types.NamespacedName, status metav1.ConditionStatus, reason string) error {
+	return d.wait(fmt.Sprintf("line %s to be Ready=%s (%s)", key.Name, status, reason), func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, key, &line); err != nil {
+			return false, err
+		}
+		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionReady)
+		if c == nil || c.Status != status || c.Reason != reason {
+			return false, nil
+		}
+		d.say(fmt.Sprintf("ModelLine %s is now Ready=%s (%s)", key.Name, c.Status, c.Reason))
+		return true, nil
+	})
+}
+
+// waitAdopted waits until n versions belong to the line.
+func (d *player) waitAdopted(key types.NamespacedName, n int) error {
+	return d.wait(fmt.Sprintf("%d versions to be adopted by %s", n, key.Name), func() (bool, error) {
+		var vs v1alpha1.ModelVersionList
+		if err := d.c.List(d.ctx, &vs, client.InNamespace(key.Namespace)); err != nil {
+			return false, err
+		}
+		adopted := 0
+		for _, v := range vs.Items {
+			if ref := metav1.GetControllerOf(&v); ref != nil && ref.Name == key.Name && v.Status.Phase != "" {
+				adopted++
+			}
+		}
+		if adopted < n {
+			return false, nil
+		}
+		d.say(fmt.Sprintf("%d versions belong to line %s (deleting the line deletes them)", adopted, key.Name))
+		return true, nil
+	})
+}
+
+// wait polls done, printing new events, until it says true or the step
+// times out.
+func (d *player) wait(what string, done func() (bool, error)) error {
+	deadline := time.Now().Add(d.timeout)
+	for {
+		if err := d.printEvents(); err != nil {
+			return err
+		}
+		ok, err := done()
+		if err != nil {
+			return fmt.Errorf("waiting for %s: %w", what, err)
+		}
+		if ok {
+			return nil
+		}
+		if time.Now().After(deadline) {
+			return fmt.Errorf("gave up after %s waiting for %s", d.timeout, what)
+		}
+		select {
+		case <-d.ctx.Done():
+			return fmt.Errorf("interrupted while waiting for %s", what)
+		case <-time.After(200 * time.Millisecond):
+		}
+	}
+}
+
+// printEvents prints the namespace's events not printed yet, oldest first.
+func (d *player) printEvents() error {
+	var list eventsv1.EventList
+	if err := d.c.List(d.ctx, &list, client.InNamespace(namespace)); err != nil {
+		return fmt.Errorf("list events: %w", err)
+	}
+	sort.Slice(list.Items, func(i, j int) bool {
+		return list.Items[i].EventTime.Before(&list.Items[j].EventTime)
+	})
+	for _, e := range list.Items {
+		if d.seen[e.UID] {
+			continue
+		}
+		d.seen[e.UID] = true
+		d.say(fmt.Sprintf("event %s %s %s/%s: %s", e.Type, e.Reason, e.Regarding.Kind, e.Regarding.Name, e.Note))
+	}
+	return nil
+}
+
+// summary prints the lines and versions as kubectl would, and the line's
+// condition metrics as Prometheus would scrape them.
+func (d *player) summary(metricsAddr string) error {
+	if err := d.printEvents(); err != nil {
+		return err
+	}
+	fmt.Fprintf(d.out, "\n== Summary\n\n")
+	var lines v1alpha1.ModelLineList
+	if err := d.c.List(d.ctx, &lines, client.InNamespace(namespace)); err != nil {
+		return fmt.Errorf("list lines: %w", err)
+	}
+	tw := tabwriter.NewWriter(d.out, 0, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "MODELLINE\tREADY\tREASON\tSERVING")
+	for _, l := range lines.Items {
+		c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionReady)
+		status, reason := "-", "-"
+		if c != nil {
+			status, reason = string(c.Status), c.Reason
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s/%s\n", l.Name, status, reason, l.Spec.Serving.DeploymentName, l.Spec.Serving.ContainerName)
+	}
+	fmt.Fprintln(tw)
+	var versions v1alpha1.ModelVersionList
+	if err := d.c.List(d.ctx, &versions, client.InNamespace(namespace)); err != nil {
+		return fmt.Errorf("list versions: %w", err)
+	}
+	fmt.Fprintln(tw, "MODELVERSION\tLINE\tSOURCE\tPHASE\tARTIFACT")
+	for _, v := range versions.Items {
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\n", v.Name, v.Spec.Line, v.Spec.Source, v.Status.Phase, v.Spec.ArtifactURI)
+	}
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	var dep appsv1.Deployment
+	if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-scorer"}, &dep); err == nil {
+		fmt.Fprintf(d.out, "\nThe scorer serves %s (no kubelet here, so its pods are not run).\n", modelURI(&dep))
+	}
+
+	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition")
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(d.out, "\nWhat Prometheus would scrape from the manager:\n%s\n", metrics)
+	fmt.Fprintln(d.out, "\nThis build covers the resource model, admission rules and spec checks;")
+	fmt.Fprintln(d.out, "retraining, the evaluation gate, promotion and rollback are not in it yet.")
+	return nil
+}
+
+func modelURI(dep *appsv1.Deployment) string {
+	for _, c := range dep.Spec.Template.Spec.Containers {
+		for _, e := range c.Env {
+			if e.Name == "MODEL_URI" {
+				return e.Value
+			}
+		}
+	}
+	return "no model"
+}
+
+// scrape fetches a metrics page and keeps the lines of one metric.
+func scrape(ctx context.Context, url, metric string) (string, error) {
+	req, err := http.NewRequestWithContext(ctx, http.MethodGet, url, nil)
+	if err != nil {
+		return "", err
+	}
+	resp, err := http.DefaultClient.Do(req)
+	if err != nil {
+		return "", fmt.Errorf("scrape manager metrics: %w", err)
+	}
+	defer resp.Body.Close()
+	body, err := io.ReadAll(resp.Body)
+	if err != nil {
+		return "", fmt.Errorf("read manager metrics: %w", err)
+	}
+	var keep []string
+	for _, l := range strings.Split(string(body), "\n") {
+		if strings.HasPrefix(l, metric+"{") && strings.Contains(l, `namespace="`+namespace+`"`) {
+			keep = append(keep, "    "+l)
+		}
+	}
+	if len(keep) == 0 {
+		return "", fmt.Errorf("the manager exports no %s series", metric)
+	}
+	sort.Strings(keep)
+	return strings.Join(keep, "\n"), nil
+}
+
+// readDir reads every manifest in a directory except the kustomization.
+func readDir(dir string) ([]*unstructured.Unstructured, error) {
+	entries, err := os.ReadDir(dir)
+	if err != nil {
+		return nil, fmt.Errorf("read samples: %w", err)
+	}
+	var objs []*unstructured.Unstructured
+	for _, e := range entries {
+		if e.IsDir() || !strings.HasSuffix(e.Name(), ".yaml") || e.Name() == "kustomization.yaml" {
+			continue
+		}
+		f, err := os.Open(filepath.Join(dir, e.Name()))
+		if err != nil {
+			return nil, err
+		}
+		dec := utilyaml.NewYAMLOrJSONDecoder(f, 4096)
+		for {
+			var m map[string]any
+			if err := dec.Decode(&m); err != nil {
+				if errors.Is(err, io.EOF) {
+					break
+				}
+				f.Close()
+				return nil, fmt.Errorf("%s: %w", e.Name(), err)
+			}
+			if len(m) > 0 {
+				objs = append(objs, &unstructured.Unstructured{Object: m})
+			}
+		}
+		f.Close()
+	}
+	return objs, nil
+}
+
+func setTrigger(o *unstructured.Unstructured, field string, v any) error {
+	triggers, _, err := unstructured.NestedSlice(o.Object, "spec", "triggers")
+	if err != nil || len(triggers) == 0 {
+		return fmt.Errorf("sample line has no triggers")
+	}
+	triggers[0].(map[string]any)[field] = v
+	return unstructured.SetNestedSlice(o.Object, triggers, "spec", "triggers")
+}
+
+func firstLine(s string) string {
+	if i := strings.IndexByte(s, '\n'); i >= 0 {
+		return s[:i]
+	}
+	return s
+}
+
+func freeLoopbackAddr() (string, error) {
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		return "", fmt.Errorf("find a free port: %w", err)
+	}
+	defer l.Close()
+	return l.Addr().String(), nil
+}

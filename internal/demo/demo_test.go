@@ -1,0 +1,63 @@
+package demo
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"plumbline.dev/plumbline/internal/controlplane"
+)
+
+// The demo runs start to end on a real control plane and tells the story it
+// promises. It is the CI check of the README's first command.
+func TestDemoRuns(t *testing.T) {
+	if testing.Short() {
+		t.Skip("needs a control plane")
+	}
+	root, err := filepath.Abs("../..")
+	if err != nil {
+		t.Fatal(err)
+	}
+	assets := os.Getenv("KUBEBUILDER_ASSETS")
+	if assets == "" {
+		assets = filepath.Join(root, "bin", "k8s")
+	}
+	var out bytes.Buffer
+	ctx, cancel := context.WithTimeout(context.Background(), 3*time.Minute)
+	defer cancel()
+	err = Run(ctx, Options{
+		CRDDir:     filepath.Join(root, "config", "crd", "bases"),
+		SamplesDir: filepath.Join(root, "config", "samples"),
+		AssetsDir:  assets,
+		WorkDir:    t.TempDir(),
+	}, &out)
+	if errors.Is(err, controlplane.ErrNoBinaries) && os.Getenv("PLUMBLINE_REQUIRE_ENVTEST") == "" {
+		t.Skip(err)
+	}
+	if err != nil {
+		t.Fatalf("demo failed: %v\n%s", err, out.String())
+	}
+	for _, want := range []string{
+		"fictional courier", "synthetic",
+		"export KUBECONFIG=",
+		"Ready=False (ServingNotFound)",
+		"spec.triggers[0]: Invalid value: forSeconds must be at least everySeconds",
+		"event Warning InvalidSpec ModelLine/late-risk: spec.schedule.cron:",
+		"Ready=True (SpecValid)",
+		"2 versions belong to line late-risk",
+		`plumbline_line_condition{condition="Ready",line="late-risk",namespace="larkspur"} 1`,
+		"Stopping the manager and the control plane.",
+	} {
+		if !strings.Contains(out.String(), want) {
+			t.Errorf("demo output lacks %q", want)
+		}
+	}
+	if t.Failed() {
+		t.Log(out.String())
+	}
+}

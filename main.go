@@ -1,0 +1,165 @@
+// Command plumbline keeps production machine-learning models good on
+// Kubernetes. One binary holds the controller and the tools around it:
+//
+//	plumbline manager   run the controller
+//	plumbline demo      run the local demo on an embedded control plane
+//	plumbline version   print the version
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"strings"
+	"syscall"
+
+	// The controller reads schedules in IANA time zones; embed the zone
+	// database so a minimal image without /usr/share/zoneinfo works too.
+	_ "time/tzdata"
+
+	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/log/zap"
+
+	"plumbline.dev/plumbline/internal/demo"
+	"plumbline.dev/plumbline/internal/manager"
+)
+
+// version is set at build time with -ldflags "-X main.version=...".
+var version = "dev"
+
+type command struct {
+	name    string
+	summary string
+	run     func(ctx context.Context, args []string, stdout, stderr io.Writer) error
+}
+
+var commands = []command{
+	{"manager", "run the controller against the cluster of the current kubeconfig", runManager},
+	{"demo", "run the local demo on an embedded control plane", runDemo},
+	{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
+		_, err := fmt.Fprintln(stdout, version)
+		return err
+	}},
+}
+
+// errUsage marks an error whose message is already the whole story (bad
+// flags): it exits 2 without a stack of context.
+var errUsage = errors.New("usage")
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	code := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	stop()
+	os.Exit(code)
+}
+
+func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
+	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
+		usage(stdout)
+		return 0
+	}
+	for _, c := range commands {
+		if c.name != args[0] {
+			continue
+		}
+		err := c.run(ctx, args[1:], stdout, stderr)
+		switch {
+		case err == nil, errors.Is(err, flag.ErrHelp):
+			return 0
+		case errors.Is(err, errUsage):
+			return 2
+		default:
+			fmt.Fprintf(stderr, "plumbline %s: %v\n", c.name, err)
+			return 1
+		}
+	}
+	fmt.Fprintf(stderr, "plumbline: unknown command %q\n\n", args[0])
+	usage(stderr)
+	return 2
+}
+
+func usage(w io.Writer) {
+	fmt.Fprintln(w, "plumbline keeps production machine-learning models good on Kubernetes.")
+	fmt.Fprintln(w)
+	fmt.Fprintln(w, "Usage: plumbline <command> [flags]")
+	fmt.Fprintln(w)
+	fmt.Fprintln(w, "Commands:")
+	for _, c := range commands {
+		fmt.Fprintf(w, "  %-10s %s\n", c.name, c.summary)
+	}
+	fmt.Fprintln(w)
+	fmt.Fprintln(w, "Run 'plumbline <command> -h' for a command's flags.")
+}
+
+// parseFlags parses args, printing errors and help to stderr.
+func parseFlags(fs *flag.FlagSet, args []string, stderr io.Writer) error {
+	fs.SetOutput(stderr)
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return err
+		}
+		return errUsage
+	}
+	if fs.NArg() > 0 {
+		fmt.Fprintf(stderr, "unexpected arguments: %s\n", strings.Join(fs.Args(), " "))
+		return errUsage
+	}
+	return nil
+}
+
+func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
+	fs := flag.NewFlagSet("plumbline manager", flag.ContinueOnError)
+	var o manager.Options
+	var namespaces string
+	fs.StringVar(&o.MetricsAddr, "metrics-bind-address", ":8080", "address the Prometheus metrics are served on; 0 turns them off")
+	fs.StringVar(&o.ProbeAddr, "health-probe-bind-address", ":8081", "address /healthz and /readyz are served on; 0 turns them off")
+	fs.BoolVar(&o.LeaderElect, "leader-elect", false, "elect a leader, so only one of several replicas acts")
+	fs.StringVar(&o.LeaderElectionNamespace, "leader-election-namespace", "", "namespace of the leader-election lease (default: the manager's own)")
+	fs.StringVar(&o.PrometheusURL, "prometheus-url", "", "Prometheus server that triggers, checks and guards query, for example http://prometheus.monitoring:9090")
+	fs.StringVar(&namespaces, "namespaces", "", "comma-separated namespaces to act in (default: all)")
+	zapOpts := zap.Options{}
+	zapOpts.BindFlags(fs)
+	if err := parseFlags(fs, args, stderr); err != nil {
+		return err
+	}
+	for _, ns := range strings.Split(namespaces, ",") {
+		if ns = strings.TrimSpace(ns); ns != "" {
+			o.Namespaces = append(o.Namespaces, ns)
+		}
+	}
+	if err := o.Validate(); err != nil {
+		return err
+	}
+	ctrl.SetLogger(zap.New(zap.UseFlagOptions(&zapOpts)))
+
+	cfg, err := ctrl.GetConfig()
+	if err != nil {
+		return fmt.Errorf("load kubeconfig: %w", err)
+	}
+	mgr, err := manager.New(ctx, cfg, o)
+	if err != nil {
+		return err
+	}
+	ctrl.Log.WithName("setup").Info("starting manager", "version", version, "leaderElect", o.LeaderElect, "namespaces", o.Namespaces)
+	if err := mgr.Start(ctx); err != nil {
+		return fmt.Errorf("run manager: %w", err)
+	}
+	return nil
+}
+
+func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("plumbline demo", flag.ContinueOnError)
+	var o demo.Options
+	fs.StringVar(&o.CRDDir, "crds", "config/crd/bases", "directory of the CRD manifests to install")
+	fs.StringVar(&o.SamplesDir, "samples", "config/samples", "directory of the sample manifests to apply")
+	fs.StringVar(&o.AssetsDir, "assets", os.Getenv("KUBEBUILDER_ASSETS"), "directory holding kube-apiserver and etcd (make controlplane builds them into bin/k8s)")
+	fs.StringVar(&o.WorkDir, "work-dir", ".demo", "directory for the demo's kubeconfig")
+	if err := parseFlags(fs, args, stderr); err != nil {
+		return err
+	}
+	return demo.Run(ctx, o, stdout)
+}

@@ -1,0 +1,40 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"strings"
+	"testing"
+)
+
+func TestRunCommands(t *testing.T) {
+	cases := []struct {
+		args       []string
+		code       int
+		wantOut    string
+		wantStderr string
+	}{
+		{nil, 0, "Usage: plumbline <command>", ""},
+		{[]string{"help"}, 0, "manager", ""},
+		{[]string{"version"}, 0, "dev", ""},
+		{[]string{"train-everything"}, 2, "", `unknown command "train-everything"`},
+		{[]string{"manager", "--no-such-flag"}, 2, "", "flag provided but not defined: -no-such-flag"},
+		{[]string{"manager", "stray"}, 2, "", "unexpected arguments: stray"},
+		{[]string{"manager", "--prometheus-url=prometheus:9090"}, 1, "", "want an http(s) URL"},
+		{[]string{"manager", "-h"}, 0, "", "-prometheus-url"},
+		{[]string{"demo", "-h"}, 0, "", "-assets"},
+	}
+	for _, tc := range cases {
+		var out, errOut bytes.Buffer
+		code := run(context.Background(), tc.args, &out, &errOut)
+		if code != tc.code {
+			t.Errorf("%v: exit %d, want %d (stderr %q)", tc.args, code, tc.code, errOut.String())
+		}
+		if !strings.Contains(out.String(), tc.wantOut) {
+			t.Errorf("%v: stdout %q lacks %q", tc.args, out.String(), tc.wantOut)
+		}
+		if !strings.Contains(errOut.String(), tc.wantStderr) {
+			t.Errorf("%v: stderr %q lacks %q", tc.args, errOut.String(), tc.wantStderr)
+		}
+	}
+}
