@@ -7,6 +7,7 @@ import (
 	"strings"
 
 	appsv1 "k8s.io/api/apps/v1"
+	batchv1 "k8s.io/api/batch/v1"
 	"k8s.io/apimachinery/pkg/api/equality"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
@@ -47,8 +48,11 @@ const (
 // cluster.
 type ModelLineReconciler struct {
 	client.Client
-	Clock    clock.PassiveClock
-	Recorder events.EventRecorder
+	// APIReader reads past the cache: Pods (which are not cached) and objects
+	// just created, which the cache may not hold yet.
+	APIReader client.Reader
+	Clock     clock.PassiveClock
+	Recorder  events.EventRecorder
 }
 
 // lineObservation is what one pass read about a line from the cluster,
@@ -65,8 +69,10 @@ type lineObservation struct {
 	fallbackMissing string
 }
 
-// Reconcile reads a line and what it refers to, computes its conditions,
-// writes the status once, then emits events for what changed.
+// Reconcile reads a line and everything it refers to, computes what should
+// happen next, does at most one outside action per version (create a Job,
+// patch the Deployment), writes each changed status once, then emits the
+// events and metrics for what changed.
 func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
 	var line v1alpha1.ModelLine
 	if err := r.Get(ctx, req.NamespacedName, &line); err != nil {
@@ -78,17 +84,31 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 	}
 	orig := line.DeepCopy()
 
-	obs, err := r.observe(ctx, &line)
+	obs, vw, err := r.observe(ctx, &line)
 	if err != nil {
 		// A failed read is transient: retry with backoff, and leave
 		// observedGeneration alone so nobody reads the pass as done.
 		return ctrl.Result{}, err
 	}
+	before := snapshot(vw.versions)
 
-	now := metav1.NewTime(r.Clock.Now())
-	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs), line.Generation, now)
-	line.Status.ObservedGeneration = line.Generation
+	p := &pass{now: metav1.NewTime(r.Clock.Now()), deleted: map[string]bool{}}
+	ready := readyCondition(line.Spec.Suspend, obs)
+	readyChanged := setCondition(&line.Status.Conditions, ready, line.Generation, p.now)
+	var advanceErr error
+	if ready.Status == metav1.ConditionTrue && !line.Spec.Suspend {
+		advanceErr = r.advance(ctx, &line, vw, p)
+	}
+	summarize(&line, vw, p.now)
+	if advanceErr == nil {
+		line.Status.ObservedGeneration = line.Generation
+	}
 
+	// Versions first: a line's summary is derived from them, so a crash
+	// between the two writes is mended by the next pass.
+	if err := r.writeVersions(ctx, vw, before, p); err != nil {
+		return ctrl.Result{}, err
+	}
 	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
 		if err := r.Status().Patch(ctx, &line, client.MergeFrom(orig)); err != nil {
 			return ctrl.Result{}, fmt.Errorf("write status of ModelLine %s: %w", req.NamespacedName, err)
@@ -97,15 +117,53 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 	if readyChanged {
 		r.eventForReady(orig, &line)
 	}
-	recordLineMetrics(&line)
+	for _, e := range p.events {
+		r.Recorder.Eventf(e.regarding, e.related, e.kind, e.reason, "Reconcile", "%s", e.message)
+	}
+	for _, m := range p.metrics {
+		m()
+	}
+	recordLineMetrics(&line, vw.live())
 	// Nothing here changes with time alone: the next pass comes from a change
-	// to the line, its Deployment or its versions, never from a retry loop.
-	return ctrl.Result{}, nil
+	// to the line, its Deployment, its versions or their Jobs, never from a
+	// retry loop.
+	return ctrl.Result{}, advanceErr
 }
 
-// observe reads the serving Deployment and the rule-based fallback.
-func (r *ModelLineReconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lineObservation, error) {
+// snapshot copies the versions' statuses before a pass changes them.
+func snapshot(vs []*v1alpha1.ModelVersion) map[string]v1alpha1.ModelVersionStatus {
+	out := make(map[string]v1alpha1.ModelVersionStatus, len(vs))
+	for _, v := range vs {
+		out[v.Name] = *v.Status.DeepCopy()
+	}
+	return out
+}
+
+// writeVersions writes the status of each version the pass changed, once.
+func (r *ModelLineReconciler) writeVersions(ctx context.Context, vw *view, before map[string]v1alpha1.ModelVersionStatus, p *pass) error {
+	for _, v := range vw.versions {
+		if p.deleted[v.Name] {
+			continue
+		}
+		old := before[v.Name] // a version created in this pass had none
+		if equality.Semantic.DeepEqual(old, v.Status) {
+			continue
+		}
+		v.Status.ObservedGeneration = v.Generation
+		base := v.DeepCopy()
+		base.Status = old
+		if err := r.Status().Patch(ctx, v, client.MergeFrom(base)); err != nil {
+			return fmt.Errorf("write status of ModelVersion %s/%s: %w", v.Namespace, v.Name, err)
+		}
+	}
+	return nil
+}
+
+// observe reads the serving Deployment, the line's versions and Jobs, and
+// the rule-based fallback.
+func (r *ModelLineReconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lineObservation, *view, error) {
 	obs := lineObservation{problems: speccheck.Line(&line.Spec)}
+	vw := &view{jobs: map[string]*batchv1.Job{}}
 
 	var dep appsv1.Deployment
 	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Spec.Serving.DeploymentName}
@@ -113,24 +171,48 @@ func (r *ModelLineReconciler) observe(ctx context.Context, line *v1alpha1.ModelL
 	case apierrors.IsNotFound(err):
 		obs.servingMissing = fmt.Sprintf("Deployment %q (spec.serving.deploymentName) does not exist in namespace %q; the line waits for it", key.Name, key.Namespace)
 	case err != nil:
-		return obs, fmt.Errorf("get serving Deployment %s: %w", key, err)
+		return obs, nil, fmt.Errorf("get serving Deployment %s: %w", key, err)
 	default:
 		obs.servingMissing = missingContainer(&dep, line.Spec.Serving.ContainerName)
+		vw.deployment = &dep
+	}
+
+	var versions v1alpha1.ModelVersionList
+	if err := r.List(ctx, &versions, client.InNamespace(line.Namespace), client.MatchingFields{indexVersionLine: line.Name}); err != nil {
+		return obs, nil, fmt.Errorf("list versions of %s: %w", line.Name, err)
+	}
+	for i := range versions.Items {
+		vw.versions = append(vw.versions, &versions.Items[i])
+	}
+	byAge(vw.versions)
+
+	var jobs batchv1.JobList
+	if err := r.List(ctx, &jobs, client.InNamespace(line.Namespace), client.MatchingLabels{v1alpha1.LineLabel: labelValue(line.Name)}); err != nil {
+		return obs, nil, fmt.Errorf("list Jobs of %s: %w", line.Name, err)
+	}
+	for i := range jobs.Items {
+		vw.jobs[jobs.Items[i].Name] = &jobs.Items[i]
 	}
 
 	if name := ruleBasedName(line); name != "" {
-		var v v1alpha1.ModelVersion
-		key := types.NamespacedName{Namespace: line.Namespace, Name: name}
-		switch err := r.Get(ctx, key, &v); {
-		case apierrors.IsNotFound(err):
-			obs.fallbackMissing = fmt.Sprintf("ModelVersion %q (spec.fallback.ruleBasedVersion) does not exist; create it with source RuleBased and line %q", name, line.Name)
-		case err != nil:
-			return obs, fmt.Errorf("get fallback ModelVersion %s: %w", key, err)
+		switch v := vw.version(name); {
+		case v == nil:
+			// Not of this line, or not there: look it up to say which.
+			var other v1alpha1.ModelVersion
+			err := r.Get(ctx, types.NamespacedName{Namespace: line.Namespace, Name: name}, &other)
+			switch {
+			case apierrors.IsNotFound(err):
+				obs.fallbackMissing = fmt.Sprintf("ModelVersion %q (spec.fallback.ruleBasedVersion) does not exist; create it with source RuleBased and line %q", name, line.Name)
+			case err != nil:
+				return obs, nil, fmt.Errorf("get fallback ModelVersion %s: %w", name, err)
+			default:
+				obs.problems = append(obs.problems, fallbackProblems(line.Name, &other)...)
+			}
 		default:
-			obs.problems = append(obs.problems, fallbackProblems(line.Name, &v)...)
+			obs.problems = append(obs.problems, fallbackProblems(line.Name, v)...)
 		}
 	}
-	return obs, nil
+	return obs, vw, nil
 }
 
 func ruleBasedName(line *v1alpha1.ModelLine) string {
@@ -223,6 +305,7 @@ func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Man
 		For(&v1alpha1.ModelLine{}, builder.WithPredicates(predicate.Or(predicate.GenerationChangedPredicate{}, predicate.AnnotationChangedPredicate{}))).
 		Watches(&appsv1.Deployment{}, handler.EnqueueRequestsFromMapFunc(r.linesServedBy)).
 		Watches(&v1alpha1.ModelVersion{}, handler.EnqueueRequestsFromMapFunc(lineOfVersion)).
+		Watches(&batchv1.Job{}, handler.EnqueueRequestsFromMapFunc(r.lineOfJob)).
 		Complete(r)
 }
 
@@ -238,6 +321,19 @@ func (r *ModelLineReconciler) linesServedBy(ctx context.Context, o client.Object
 		reqs = append(reqs, reconcile.Request{NamespacedName: client.ObjectKeyFromObject(&l)})
 	}
 	return reqs
+}
+
+// lineOfJob maps a Job to the line of the version that owns it.
+func (r *ModelLineReconciler) lineOfJob(ctx context.Context, o client.Object) []reconcile.Request {
+	owner := metav1.GetControllerOf(o)
+	if owner == nil || owner.Kind != "ModelVersion" || owner.APIVersion != v1alpha1.GroupVersion.String() {
+		return nil
+	}
+	var v v1alpha1.ModelVersion
+	if err := r.Get(ctx, types.NamespacedName{Namespace: o.GetNamespace(), Name: owner.Name}, &v); err != nil {
+		return nil
+	}
+	return lineOfVersion(ctx, &v)
 }
 
 // lineOfVersion maps a ModelVersion to its line.

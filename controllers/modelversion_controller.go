@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 
-	"k8s.io/apimachinery/pkg/api/equality"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
@@ -62,19 +61,21 @@ func (r *ModelVersionReconciler) Reconcile(ctx context.Context, req ctrl.Request
 		orig = v.DeepCopy()
 	}
 
-	firstSeen := v.Status.Phase == ""
-	if firstSeen {
-		v.Status.Phase = v1alpha1.PhasePending
+	// The line's reconciler owns the status of its versions. A version
+	// whose line does not exist has no one else to say so.
+	if lineFound || v.Status.Phase != "" {
+		return ctrl.Result{}, nil
 	}
+	v.Status.Phase = v1alpha1.PhasePending
+	v.Status.Reason = "LineNotFound"
+	v.Status.Message = fmt.Sprintf("ModelLine %q (spec.line) does not exist in namespace %q; the version waits for it", v.Spec.Line, v.Namespace)
 	v.Status.ObservedGeneration = v.Generation
-	if !equality.Semantic.DeepEqual(orig.Status, v.Status) {
-		if err := r.Status().Patch(ctx, &v, client.MergeFrom(orig)); err != nil {
-			return ctrl.Result{}, fmt.Errorf("write status of ModelVersion %s: %w", req.NamespacedName, err)
-		}
+	// The optimistic lock keeps this from overwriting a status the line's
+	// reconciler wrote meanwhile, had the line just appeared.
+	if err := r.Status().Patch(ctx, &v, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
+		return ctrl.Result{}, fmt.Errorf("write status of ModelVersion %s: %w", req.NamespacedName, err)
 	}
-	if firstSeen && !lineFound {
-		r.Recorder.Eventf(&v, nil, "Warning", "LineNotFound", "Adopt", "ModelLine %q (spec.line) does not exist in namespace %q; the version waits for it", v.Spec.Line, v.Namespace)
-	}
+	r.Recorder.Eventf(&v, nil, "Warning", "LineNotFound", "Adopt", "%s", v.Status.Message)
 	return ctrl.Result{}, nil
 }
 

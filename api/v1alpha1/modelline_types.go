@@ -518,6 +518,10 @@ type ModelLineStatus struct {
 	// +optional
 	LastRetrainTime *metav1.Time `json:"lastRetrainTime,omitempty"`
 
+	// lastPromotionTime is when a version last went live.
+	// +optional
+	LastPromotionTime *metav1.Time `json:"lastPromotionTime,omitempty"`
+
 	// lastScheduleTime is the last scheduled start that was acted on.
 	// +optional
 	LastScheduleTime *metav1.Time `json:"lastScheduleTime,omitempty"`

@@ -84,20 +84,51 @@ type ModelVersionSpec struct {
 }
 
 // VersionPhase is where a version is in its life, for kubectl get.
-// +kubebuilder:validation:Enum=Pending;Training;Evaluating;AwaitingApproval;Promoting;Live;Archived;Rejected;Failed
+// +kubebuilder:validation:Enum=Pending;Training;Evaluating;AwaitingApproval;Promoting;Live;Archived;Rejected;Failed;Standby
 type VersionPhase string
 
 const (
-	PhasePending          VersionPhase = "Pending"
-	PhaseTraining         VersionPhase = "Training"
-	PhaseEvaluating       VersionPhase = "Evaluating"
+	// PhasePending: waiting its turn (one version per line is in flight).
+	PhasePending VersionPhase = "Pending"
+	// PhaseTraining: the training Job runs.
+	PhaseTraining VersionPhase = "Training"
+	// PhaseEvaluating: the evaluation Job runs on the golden set.
+	PhaseEvaluating VersionPhase = "Evaluating"
+	// PhaseAwaitingApproval: passed the gate; waits for a person's decision.
 	PhaseAwaitingApproval VersionPhase = "AwaitingApproval"
-	PhasePromoting        VersionPhase = "Promoting"
-	PhaseLive             VersionPhase = "Live"
-	PhaseArchived         VersionPhase = "Archived"
-	PhaseRejected         VersionPhase = "Rejected"
-	PhaseFailed           VersionPhase = "Failed"
+	// PhasePromoting: the serving Deployment rolls out to this version.
+	PhasePromoting VersionPhase = "Promoting"
+	// PhaseLive: the serving Deployment serves this version.
+	PhaseLive VersionPhase = "Live"
+	// PhaseArchived: served once, replaced since.
+	PhaseArchived VersionPhase = "Archived"
+	// PhaseRejected: failed the gate, or a person rejected it.
+	PhaseRejected VersionPhase = "Rejected"
+	// PhaseFailed: training or rollout failed.
+	PhaseFailed VersionPhase = "Failed"
+	// PhaseStandby: a RuleBased version held in reserve as the fallback.
+	PhaseStandby VersionPhase = "Standby"
 )
+
+// InFlight reports whether a version in this phase is still on its way to
+// Live: the phases of the one version per line the controller works on.
+func (p VersionPhase) InFlight() bool {
+	switch p {
+	case "", PhasePending, PhaseTraining, PhaseEvaluating, PhaseAwaitingApproval, PhasePromoting:
+		return true
+	}
+	return false
+}
+
+// Finished reports whether a version in this phase is done for good: the
+// phases history pruning counts.
+func (p VersionPhase) Finished() bool {
+	switch p {
+	case PhaseArchived, PhaseRejected, PhaseFailed:
+		return true
+	}
+	return false
+}
 
 // ModelVersion condition types.
 const (
@@ -148,6 +179,11 @@ type CriterionResult struct {
 	// +kubebuilder:validation:MaxLength=64
 	DeltaLow string `json:"deltaLow,omitempty"`
 
+	// deltaHigh is the upper end of the difference's interval, as text.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	DeltaHigh string `json:"deltaHigh,omitempty"`
+
 	// message says what was required and what was found.
 	// +optional
 	// +kubebuilder:validation:MaxLength=1024
@@ -156,6 +192,12 @@ type CriterionResult struct {
 
 // GateResult is the controller's judgement of the evaluation report.
 type GateResult struct {
+	// baselineVersion is the live version the candidate was compared with;
+	// empty when the line had none.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	BaselineVersion string `json:"baselineVersion,omitempty"`
+
 	// verdict: Passed or Failed.
 	// +required
 	Verdict GateVerdict `json:"verdict"`
@@ -188,6 +230,24 @@ type GateResult struct {
 	// evaluatedTime is when the report was judged.
 	// +optional
 	EvaluatedTime *metav1.Time `json:"evaluatedTime,omitempty"`
+}
+
+// PromotionStatus records a rollout of the serving Deployment to this
+// version, with what it replaced so a failed rollout can be undone.
+type PromotionStatus struct {
+	// fromVersion is the version that served before; empty when none did.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	FromVersion string `json:"fromVersion,omitempty"`
+
+	// fromArtifactURI is the artifact the serving container had before.
+	// +optional
+	// +kubebuilder:validation:MaxLength=2048
+	FromArtifactURI string `json:"fromArtifactURI,omitempty"`
+
+	// startedTime is when the rollout began.
+	// +optional
+	StartedTime *metav1.Time `json:"startedTime,omitempty"`
 }
 
 // ModelVersionStatus is what happened to a version.
@@ -224,6 +284,22 @@ type ModelVersionStatus struct {
 	// +optional
 	Gate *GateResult `json:"gate,omitempty"`
 
+	// promotion records the rollout to this version.
+	// +optional
+	Promotion *PromotionStatus `json:"promotion,omitempty"`
+
+	// reason says, in one CamelCase word, why the version is in its phase:
+	// for example BackoffLimitExceeded, CriteriaNotMet, ReportMalformed,
+	// RejectedByPerson, RolloutFailed or Replaced.
+	// +optional
+	// +kubebuilder:validation:MaxLength=128
+	Reason string `json:"reason,omitempty"`
+
+	// message says, in a sentence, where the version is and why.
+	// +optional
+	// +kubebuilder:validation:MaxLength=2048
+	Message string `json:"message,omitempty"`
+
 	// decisionTime is when the controller saw a person's decision.
 	// +optional
 	DecisionTime *metav1.Time `json:"decisionTime,omitempty"`
@@ -255,6 +331,7 @@ type ModelVersionStatus struct {
 // +kubebuilder:printcolumn:name="Gate",type=string,JSONPath=`.status.gate.verdict`
 // +kubebuilder:printcolumn:name="Source",type=string,priority=1,JSONPath=`.spec.source`
 // +kubebuilder:printcolumn:name="Artifact",type=string,priority=1,JSONPath=`.spec.artifactURI`
+// +kubebuilder:printcolumn:name="Message",type=string,priority=1,JSONPath=`.status.message`
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
 type ModelVersion struct {
 	metav1.TypeMeta   `json:",inline"`

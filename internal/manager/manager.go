@@ -9,12 +9,17 @@ import (
 	"fmt"
 	"net/url"
 
+	batchv1 "k8s.io/api/batch/v1"
+	"k8s.io/apimachinery/pkg/labels"
 	"k8s.io/apimachinery/pkg/runtime"
+	"k8s.io/apimachinery/pkg/selection"
 	clientgoscheme "k8s.io/client-go/kubernetes/scheme"
 	"k8s.io/client-go/rest"
 	"k8s.io/utils/clock"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/cache"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/config"
 	"sigs.k8s.io/controller-runtime/pkg/healthz"
 	metricsserver "sigs.k8s.io/controller-runtime/pkg/metrics/server"
 
@@ -43,6 +48,10 @@ type Options struct {
 	Namespaces []string
 	// Clock is the time source; nil means the real clock.
 	Clock clock.PassiveClock
+	// AllowSecondManager lets a process build another manager after stopping
+	// one (controller names must otherwise be unique per process): the demo
+	// and the restart tests do.
+	AllowSecondManager bool
 }
 
 // Scheme returns a scheme with the built-in types and plumbline's.
@@ -81,7 +90,15 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	if clk == nil {
 		clk = clock.RealClock{}
 	}
-	var cacheOpts cache.Options
+	// The manager caches only the Jobs it made (they carry the line label),
+	// not every Job in the cluster.
+	ours, err := labels.NewRequirement(v1alpha1.LineLabel, selection.Exists, nil)
+	if err != nil {
+		return nil, fmt.Errorf("job selector: %w", err)
+	}
+	cacheOpts := cache.Options{ByObject: map[client.Object]cache.ByObject{
+		&batchv1.Job{}: {Label: labels.NewSelector().Add(*ours)},
+	}}
 	if len(o.Namespaces) > 0 {
 		cacheOpts.DefaultNamespaces = map[string]cache.Config{}
 		for _, ns := range o.Namespaces {
@@ -99,6 +116,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		// Leaving the lease at once on shutdown lets a new replica take over
 		// without waiting for the lease to expire.
 		LeaderElectionReleaseOnCancel: true,
+		Controller:                    config.Controller{SkipNameValidation: &o.AllowSecondManager},
 	})
 	if err != nil {
 		return nil, fmt.Errorf("create manager: %w", err)
@@ -111,7 +129,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	}
 
 	recorder := mgr.GetEventRecorder(ControllerName)
-	lines := &controllers.ModelLineReconciler{Client: mgr.GetClient(), Clock: clk, Recorder: recorder}
+	lines := &controllers.ModelLineReconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder}
 	if err := lines.SetupWithManager(ctx, mgr); err != nil {
 		return nil, fmt.Errorf("set up ModelLine controller: %w", err)
 	}

@@ -37,6 +37,8 @@ var (
 	clk = clocktesting.NewFakePassiveClock(time.Date(2026, 11, 2, 9, 30, 0, 0, time.UTC))
 	// repoRoot is the repository's top directory.
 	repoRoot string
+	// kubeconfigPath is an admin kubeconfig, for kubectl.
+	kubeconfigPath string
 )
 
 func TestMain(m *testing.M) {
@@ -60,7 +62,14 @@ func runSuite(m *testing.M) int {
 	if assets == "" {
 		assets = filepath.Join(root, "bin", "k8s")
 	}
-	env, err := controlplane.Start(controlplane.Options{AssetsDir: assets, CRDDir: filepath.Join(root, "config", "crd", "bases")})
+	tmp, err := os.MkdirTemp("", "plumbline-integration-")
+	if err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		return 1
+	}
+	defer os.RemoveAll(tmp)
+	env, err := controlplane.Start(controlplane.Options{AssetsDir: assets, CRDDir: filepath.Join(root, "config", "crd", "bases"),
+		KubeconfigPath: filepath.Join(tmp, "kubeconfig")})
 	if errors.Is(err, controlplane.ErrNoBinaries) && os.Getenv("PLUMBLINE_REQUIRE_ENVTEST") == "" {
 		// make test and .ci/run set PLUMBLINE_REQUIRE_ENVTEST, so there this
 		// is a failure; a bare `go test ./...` on a new checkout skips.
@@ -71,6 +80,7 @@ func runSuite(m *testing.M) int {
 		fmt.Fprintf(os.Stderr, "integration: %v\n", err)
 		return 1
 	}
+	kubeconfigPath = env.KubeconfigPath
 	defer func() {
 		if err := env.Stop(); err != nil {
 			fmt.Fprintln(os.Stderr, err)
@@ -97,25 +107,66 @@ func runSuite(m *testing.M) int {
 		fmt.Fprintf(os.Stderr, "integration: %v\n", err)
 		return 1
 	}
-	mgrCfg := rest.CopyConfig(env.Config)
-	mgrCfg.Impersonate = rest.ImpersonationConfig{UserName: managerUser}
+	managerConfig = rest.CopyConfig(env.Config)
+	managerConfig.Impersonate = rest.ImpersonationConfig{UserName: managerUser}
 
 	ctrl.SetLogger(zap.New(zap.UseDevMode(true), zap.WriteTo(logSink())))
-	mgr, err := manager.New(ctx, mgrCfg, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clk})
-	if err != nil {
+	if err := startManager(); err != nil {
 		fmt.Fprintf(os.Stderr, "integration: %v\n", err)
 		return 1
 	}
-	done := make(chan error, 1)
-	go func() { done <- mgr.Start(ctx) }()
 	defer func() {
-		cancel()
-		if err := <-done; err != nil {
+		if err := stopManager(); err != nil {
 			fmt.Fprintf(os.Stderr, "integration: manager: %v\n", err)
 		}
 	}()
 
 	return m.Run()
+}
+
+// managerConfig talks to the API server as the manager's ServiceAccount.
+var managerConfig *rest.Config
+
+// running is the manager the tests run against.
+var running struct {
+	cancel context.CancelFunc
+	done   chan error
+}
+
+// startManager starts a manager as plumbline manager would.
+func startManager() error {
+	ctx, cancel := context.WithCancel(context.Background())
+	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clk, AllowSecondManager: true})
+	if err != nil {
+		cancel()
+		return err
+	}
+	running.cancel, running.done = cancel, make(chan error, 1)
+	go func() { running.done <- mgr.Start(ctx) }()
+	return nil
+}
+
+// stopManager stops the running manager and waits for it to end.
+func stopManager() error {
+	if running.cancel == nil {
+		return nil
+	}
+	running.cancel()
+	err := <-running.done
+	running.cancel = nil
+	return err
+}
+
+// restartManager stops the manager and starts a new one, as a crash and a
+// new Pod would: nothing survives but what is in the API server.
+func restartManager(t *testing.T) {
+	t.Helper()
+	if err := stopManager(); err != nil {
+		t.Fatalf("stop manager: %v", err)
+	}
+	if err := startManager(); err != nil {
+		t.Fatalf("start manager: %v", err)
+	}
 }
 
 // managerUser is the identity of the manager's ServiceAccount in config/rbac.

@@ -1,0 +1,784 @@
+package controllers
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	appsv1 "k8s.io/api/apps/v1"
+	batchv1 "k8s.io/api/batch/v1"
+	corev1 "k8s.io/api/core/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime"
+	"k8s.io/apimachinery/pkg/types"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/gate"
+	"plumbline.dev/plumbline/internal/gatereport"
+	"plumbline.dev/plumbline/internal/speccheck"
+)
+
+// Version status reasons the lifecycle sets.
+const (
+	reasonQueued           = "Queued"
+	reasonTrainingStarted  = "TrainingStarted"
+	reasonTrainingLost     = "TrainingJobLost"
+	reasonJobNameTaken     = "JobNameTaken"
+	reasonEvaluationLost   = "EvaluationJobLost"
+	reasonEvaluationFailed = "EvaluationFailed"
+	reasonInitial          = "InitialVersion"
+	reasonApprovedAuto     = "ApprovedAutomatically"
+	reasonApprovedByPerson = "ApprovedByPerson"
+	reasonRejectedByPerson = "RejectedByPerson"
+	reasonWaitingDecision  = "WaitingForDecision"
+	reasonRollingOut       = "RollingOut"
+	reasonRolloutFailed    = "RolloutFailed"
+	reasonPromoted         = "Promoted"
+	reasonReplaced         = "Replaced"
+	reasonStandby          = "FallbackInReserve"
+)
+
+// view is what one pass knows about a line besides the line itself. The
+// versions are working copies; the pass changes their status in memory and
+// writes each changed one once at the end.
+type view struct {
+	deployment *appsv1.Deployment
+	versions   []*v1alpha1.ModelVersion // this line's, oldest first
+	jobs       map[string]*batchv1.Job  // this line's Jobs, by name
+}
+
+func (v *view) version(name string) *v1alpha1.ModelVersion {
+	for _, x := range v.versions {
+		if x.Name == name {
+			return x
+		}
+	}
+	return nil
+}
+
+// live is the version the line serves: the Live one promoted last.
+func (v *view) live() *v1alpha1.ModelVersion {
+	var best *v1alpha1.ModelVersion
+	for _, x := range v.versions {
+		if x.Status.Phase != v1alpha1.PhaseLive {
+			continue
+		}
+		if best == nil || promotedAfter(x, best) {
+			best = x
+		}
+	}
+	return best
+}
+
+func promotedAfter(a, b *v1alpha1.ModelVersion) bool {
+	at, bt := a.Status.PromotedTime, b.Status.PromotedTime
+	switch {
+	case at == nil:
+		return false
+	case bt == nil:
+		return true
+	case !at.Equal(bt):
+		return bt.Before(at)
+	}
+	return a.Name > b.Name
+}
+
+// active is the one version the line works on: the oldest in flight.
+// Others wait their turn in Pending.
+func (v *view) active() *v1alpha1.ModelVersion {
+	for _, x := range v.versions {
+		if x.Spec.Source != v1alpha1.SourceRuleBased && x.DeletionTimestamp == nil && x.Status.Phase.InFlight() {
+			return x
+		}
+	}
+	return nil
+}
+
+// pass collects what a reconcile pass did, to report after its writes.
+type pass struct {
+	now     metav1.Time
+	events  []event
+	metrics []func()
+	deleted map[string]bool
+}
+
+type event struct {
+	regarding, related    runtime.Object
+	kind, reason, message string
+}
+
+func (p *pass) event(regarding, related runtime.Object, kind, reason, format string, args ...any) {
+	p.events = append(p.events, event{regarding, related, kind, reason, fmt.Sprintf(format, args...)})
+}
+
+// setPhase moves a version to a phase with a reason and a message.
+func (p *pass) setPhase(v *v1alpha1.ModelVersion, phase v1alpha1.VersionPhase, reason, message string) {
+	v.Status.Phase, v.Status.Reason, v.Status.Message = phase, reason, truncate(message, 2000)
+}
+
+func (p *pass) setCond(v *v1alpha1.ModelVersion, typ string, status metav1.ConditionStatus, reason, message string) {
+	setCondition(&v.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: reason, Message: truncate(message, 2000)}, v.Generation, p.now)
+}
+
+// errJobNameTaken is a Job with the version's Job name that the version does
+// not own.
+var errJobNameTaken = errors.New("job name taken")
+
+// advance moves the line's versions along: it settles which version is live,
+// undoes failed rollouts, turns a person's retrain request into a version,
+// takes the active version one step, and prunes history.
+func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	settle(line, vw, p)
+	if err := r.revertFailedRollouts(ctx, line, vw, p); err != nil {
+		return err
+	}
+	if err := r.handleRetrainRequest(ctx, line, vw, p); err != nil {
+		return err
+	}
+	if v := vw.active(); v != nil {
+		if err := r.step(ctx, line, vw, v, p); err != nil {
+			return err
+		}
+		settle(line, vw, p)
+	}
+	return r.prune(ctx, line, vw, p)
+}
+
+// settle makes the versions' phases agree with the one live version (the
+// Live one promoted last): any other Live version is archived. A rule-based
+// version not serving waits in Standby.
+func settle(line *v1alpha1.ModelLine, vw *view, p *pass) {
+	live := vw.live()
+	for _, v := range vw.versions {
+		switch {
+		case v.Status.Phase == v1alpha1.PhaseLive && v != live:
+			v.Status.ArchivedTime = &p.now
+			p.setPhase(v, v1alpha1.PhaseArchived, reasonReplaced, fmt.Sprintf("replaced by %s", live.Name))
+			p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reasonReplaced, fmt.Sprintf("replaced by %s", live.Name))
+			p.event(v, line, corev1.EventTypeNormal, "Archived", "replaced by %s", live.Name)
+		case v.Spec.Source == v1alpha1.SourceRuleBased && (v.Status.Phase == "" || v.Status.Phase == v1alpha1.PhasePending):
+			p.setPhase(v, v1alpha1.PhaseStandby, reasonStandby, "rule-based version held in reserve as the line's fallback")
+		}
+	}
+}
+
+// handleRetrainRequest turns a new plumbline.dev/retrain-request token into a
+// version. A request while another version is in flight is queued: its
+// version waits in Pending, and the line works through versions oldest
+// first.
+func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	token, ok := line.Annotations[v1alpha1.RetrainRequestAnnotation]
+	if !ok || token == line.Status.LastRetrainRequest {
+		return nil
+	}
+	if len(token) == 0 || len(token) > 253 {
+		line.Status.LastRetrainRequest = truncate(token, 253)
+		p.event(line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "annotation %s must hold a token of 1 to 253 characters (a timestamp works); this one has %d", v1alpha1.RetrainRequestAnnotation, len(token))
+		return nil
+	}
+	// A version already made for this token (a pass that crashed before
+	// recording it) is the request's version.
+	for _, v := range vw.versions {
+		if v.Annotations[v1alpha1.RetrainRequestAnnotation] == token {
+			line.Status.LastRetrainRequest = token
+			return nil
+		}
+	}
+	if line.Spec.Training == nil {
+		line.Status.LastRetrainRequest = token
+		p.event(line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "retrain request %q: the line has no spec.training", token)
+		return nil
+	}
+	v, err := r.StartVersion(ctx, line, vw, p, v1alpha1.ReasonManual, token)
+	if err != nil {
+		return err
+	}
+	line.Status.LastRetrainRequest = token
+	queued := ""
+	if a := vw.active(); a != nil && a != v {
+		queued = fmt.Sprintf("; it waits for %s (%s)", a.Name, a.Status.Phase)
+	}
+	p.event(line, v, corev1.EventTypeNormal, "RetrainRequested", "retrain request %q created version %s%s", token, v.Name, queued)
+	return nil
+}
+
+// StartVersion is the one way a retrain starts, whatever asked for it (a
+// person's request, the schedule, a trigger): it creates the line's next
+// Trained version with the reason, which then waits its turn. The name comes
+// from the version number, so a pass that crashed after creating it finds
+// it again instead of making a second.
+func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason, token string) (*v1alpha1.ModelVersion, error) {
+	n := nextNumber(line, vw)
+	name := versionName(line.Name, n)
+	uri, err := speccheck.RenderArtifactURI(line.Spec.Training.ArtifactURI, speccheck.ArtifactData{Line: line.Name, Version: name, Number: n})
+	if err != nil {
+		return nil, err
+	}
+	v := &v1alpha1.ModelVersion{
+		ObjectMeta: metav1.ObjectMeta{
+			Name:      name,
+			Namespace: line.Namespace,
+			Labels:    map[string]string{v1alpha1.LineLabel: labelValue(line.Name), numberLabel: fmt.Sprint(n)},
+			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(line,
+				v1alpha1.GroupVersion.WithKind("ModelLine"))},
+		},
+		Spec: v1alpha1.ModelVersionSpec{Line: line.Name, Source: v1alpha1.SourceTrained, ArtifactURI: uri, Reason: reason},
+	}
+	if token != "" {
+		v.Annotations = map[string]string{v1alpha1.RetrainRequestAnnotation: token}
+	}
+	if err := r.Create(ctx, v); err != nil {
+		if !apierrors.IsAlreadyExists(err) {
+			return nil, fmt.Errorf("create version %s: %w", name, err)
+		}
+		if err := r.APIReader.Get(ctx, client.ObjectKeyFromObject(v), v); err != nil {
+			return nil, fmt.Errorf("read version %s: %w", name, err)
+		}
+	} else {
+		p.event(v, line, corev1.EventTypeNormal, "Created", "version %d of %s, reason %s, artifact %s", n, line.Name, reason, uri)
+	}
+	if v.Spec.Line != line.Name {
+		return nil, fmt.Errorf("version name %s is taken by a version of line %q", name, v.Spec.Line)
+	}
+	line.Status.VersionCount = max(line.Status.VersionCount, n)
+	if vw.version(v.Name) == nil {
+		vw.versions = append(vw.versions, v)
+	}
+	return v, nil
+}
+
+// nextNumber is one more than the highest number the line has used.
+func nextNumber(line *v1alpha1.ModelLine, vw *view) int32 {
+	n := line.Status.VersionCount
+	for _, v := range vw.versions {
+		var k int32
+		if _, err := fmt.Sscan(v.Labels[numberLabel], &k); err == nil && k > n {
+			n = k
+		}
+	}
+	return n + 1
+}
+
+// step takes the active version one step along its way.
+func (r *ModelLineReconciler) step(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
+	// A person may stop a candidate at any time before its rollout.
+	if v.Spec.Decision == v1alpha1.DecisionRejected && v.Status.Phase != v1alpha1.PhasePromoting {
+		return r.rejectByPerson(ctx, line, vw, v, p)
+	}
+	switch v.Status.Phase {
+	case "", v1alpha1.PhasePending:
+		if v.Spec.Source == v1alpha1.SourceImported {
+			if vw.live() == nil {
+				startPromotion(line, vw, v, p, reasonInitial, "the line has no live version: the first imported version goes live without a gate")
+				return nil
+			}
+			return r.startEvaluation(ctx, line, vw, v, nil, p)
+		}
+		return r.startTraining(ctx, line, vw, v, p)
+	case v1alpha1.PhaseTraining:
+		return r.watchTraining(ctx, line, vw, v, p)
+	case v1alpha1.PhaseEvaluating:
+		return r.watchEvaluation(ctx, line, vw, v, p)
+	case v1alpha1.PhaseAwaitingApproval:
+		if v.Spec.Decision == v1alpha1.DecisionApproved {
+			v.Status.DecisionTime = &p.now
+			p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedByPerson, noteOr(v.Spec.DecisionNote, "approved by a person"))
+			p.event(v, line, corev1.EventTypeNormal, reasonApprovedByPerson, "approved: %s", noteOr(v.Spec.DecisionNote, "no note"))
+			startPromotion(line, vw, v, p, reasonApprovedByPerson, "approved by a person")
+		}
+		return nil
+	case v1alpha1.PhasePromoting:
+		return r.promote(ctx, line, vw, v, p)
+	}
+	return nil
+}
+
+func noteOr(note, fallback string) string {
+	if note != "" {
+		return note
+	}
+	return fallback
+}
+
+// rejectByPerson ends a candidate a person rejected, stopping its running
+// Job.
+func (r *ModelLineReconciler) rejectByPerson(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
+	for _, role := range []string{roleTraining, roleGate} {
+		if job := vw.jobs[jobName(v.Name, role)]; job != nil && metav1.IsControlledBy(job, v) {
+			if outcome, _, _ := jobResult(job); outcome == jobRunning {
+				if err := r.Delete(ctx, job, client.PropagationPolicy(metav1.DeletePropagationBackground)); client.IgnoreNotFound(err) != nil {
+					return fmt.Errorf("stop Job %s of rejected version %s: %w", job.Name, v.Name, err)
+				}
+			}
+		}
+	}
+	v.Status.DecisionTime = &p.now
+	msg := noteOr(v.Spec.DecisionNote, "rejected by a person")
+	p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionFalse, reasonRejectedByPerson, msg)
+	p.setPhase(v, v1alpha1.PhaseRejected, reasonRejectedByPerson, msg)
+	p.event(v, line, corev1.EventTypeNormal, reasonRejectedByPerson, "rejected: %s", msg)
+	finished(line, v, p, "Rejected")
+	return nil
+}
+
+// finished counts a version that will not go further.
+func finished(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, result string) {
+	reason := v.Spec.Reason
+	p.metrics = append(p.metrics, func() { retrainsFinished.WithLabelValues(line.Namespace, line.Name, reason, result).Inc() })
+}
+
+// startTraining creates the training Job, or adopts the one an earlier pass
+// created, and moves the version to Training.
+func (r *ModelLineReconciler) startTraining(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
+	if line.Spec.Training == nil {
+		p.setPhase(v, v1alpha1.PhaseFailed, "NoTraining", "the line has no spec.training, so a Trained version cannot be trained")
+		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionFalse, "NoTraining", v.Status.Message)
+		p.event(v, line, corev1.EventTypeWarning, "NoTraining", "%s", v.Status.Message)
+		finished(line, v, p, "Failed")
+		return nil
+	}
+	if v.Spec.ArtifactURI == "" {
+		// A Trained version a person created: name its artifact now.
+		return r.nameArtifact(ctx, line, vw, v)
+	}
+	w := dataWindow{from: lastTrainedUntil(vw, v), to: p.now.Time}
+	want := buildTrainingJob(line, v, w)
+	job, created, err := r.ensureJob(ctx, want, v)
+	if errors.Is(err, errJobNameTaken) {
+		return r.jobNameTaken(line, v, want.Name, p)
+	}
+	if err != nil {
+		return err
+	}
+	if !created {
+		// Created by a pass that did not live to record it: its window is
+		// the one the Job was given.
+		if w, err = windowFromJob(job); err != nil {
+			return err
+		}
+	}
+	v.Status.TrainingJob = job.Name
+	v.Status.DataTo = &metav1.Time{Time: w.to}
+	v.Status.DataFrom = nil
+	if w.from != nil {
+		v.Status.DataFrom = &metav1.Time{Time: *w.from}
+	}
+	window := "all history"
+	if w.from != nil {
+		window = "data from " + formatTime(w.from)
+	}
+	msg := fmt.Sprintf("training Job %s runs on %s to %s", job.Name, window, formatTime(&w.to))
+	p.setPhase(v, v1alpha1.PhaseTraining, reasonTrainingStarted, msg)
+	p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionUnknown, reasonTrainingStarted, msg)
+	if created {
+		p.event(v, line, corev1.EventTypeNormal, reasonTrainingStarted, "%s", msg)
+		reason := v.Spec.Reason
+		p.metrics = append(p.metrics, func() { retrainsStarted.WithLabelValues(line.Namespace, line.Name, reason).Inc() })
+	}
+	return nil
+}
+
+// nameArtifact fills spec.artifactURI of a Trained version a person created,
+// numbering it like the controller's own.
+func (r *ModelLineReconciler) nameArtifact(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion) error {
+	n := nextNumber(line, vw)
+	uri, err := speccheck.RenderArtifactURI(line.Spec.Training.ArtifactURI, speccheck.ArtifactData{Line: line.Name, Version: v.Name, Number: n})
+	if err != nil {
+		return err
+	}
+	orig := v.DeepCopy()
+	v.Spec.ArtifactURI = uri
+	if v.Labels == nil {
+		v.Labels = map[string]string{}
+	}
+	v.Labels[numberLabel] = fmt.Sprint(n)
+	if err := r.Patch(ctx, v, client.MergeFrom(orig)); err != nil {
+		return fmt.Errorf("name the artifact of version %s: %w", v.Name, err)
+	}
+	line.Status.VersionCount = max(line.Status.VersionCount, n)
+	// The patch wakes the line again, and the next pass trains.
+	return nil
+}
+
+// lastTrainedUntil is the end of the data window of the newest version that
+// trained successfully, other than v: the start of v's window.
+func lastTrainedUntil(vw *view, v *v1alpha1.ModelVersion) *time.Time {
+	var until *time.Time
+	for _, x := range vw.versions {
+		if x == v || x.Status.DataTo == nil || !conditionIs(x.Status.Conditions, v1alpha1.ConditionTrained, metav1.ConditionTrue) {
+			continue
+		}
+		if until == nil || x.Status.DataTo.After(*until) {
+			t := x.Status.DataTo.Time
+			until = &t
+		}
+	}
+	return until
+}
+
+// ensureJob creates a Job, or finds the one an earlier pass created under
+// the same deterministic name. A Job of that name that the version does not
+// own is errJobNameTaken.
+func (r *ModelLineReconciler) ensureJob(ctx context.Context, want *batchv1.Job, owner *v1alpha1.ModelVersion) (*batchv1.Job, bool, error) {
+	err := r.Create(ctx, want)
+	if err == nil {
+		return want, true, nil
+	}
+	if !apierrors.IsAlreadyExists(err) {
+		return nil, false, fmt.Errorf("create Job %s: %w", want.Name, err)
+	}
+	var got batchv1.Job
+	if err := r.APIReader.Get(ctx, client.ObjectKeyFromObject(want), &got); err != nil {
+		return nil, false, fmt.Errorf("read existing Job %s: %w", want.Name, err)
+	}
+	if !metav1.IsControlledBy(&got, owner) {
+		return nil, false, errJobNameTaken
+	}
+	return &got, false, nil
+}
+
+func (r *ModelLineReconciler) jobNameTaken(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, name string, p *pass) error {
+	msg := fmt.Sprintf("a Job named %s exists and does not belong to this version; delete or rename it, then create a new version", name)
+	p.setPhase(v, v1alpha1.PhaseFailed, reasonJobNameTaken, msg)
+	p.event(v, line, corev1.EventTypeWarning, reasonJobNameTaken, "%s", msg)
+	finished(line, v, p, "Failed")
+	return nil
+}
+
+// findJob returns the version's Job for a role: from the cache, or, right
+// after its creation when the cache may lag, from the API server. nil means
+// it does not exist.
+func (r *ModelLineReconciler) findJob(ctx context.Context, vw *view, v *v1alpha1.ModelVersion, role string) (*batchv1.Job, error) {
+	name := jobName(v.Name, role)
+	if job := vw.jobs[name]; job != nil {
+		return job, nil
+	}
+	var job batchv1.Job
+	err := r.APIReader.Get(ctx, types.NamespacedName{Namespace: v.Namespace, Name: name}, &job)
+	if apierrors.IsNotFound(err) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("read Job %s: %w", name, err)
+	}
+	return &job, nil
+}
+
+// watchTraining follows the training Job to its end.
+func (r *ModelLineReconciler) watchTraining(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
+	job, err := r.findJob(ctx, vw, v, roleTraining)
+	if err != nil {
+		return err
+	}
+	if job == nil || !metav1.IsControlledBy(job, v) {
+		msg := fmt.Sprintf("training Job %s was deleted before it finished", jobName(v.Name, roleTraining))
+		p.setPhase(v, v1alpha1.PhaseFailed, reasonTrainingLost, msg)
+		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionFalse, reasonTrainingLost, msg)
+		p.event(v, line, corev1.EventTypeWarning, reasonTrainingLost, "%s", msg)
+		p.event(line, v, corev1.EventTypeWarning, "TrainingFailed", "version %s: %s", v.Name, msg)
+		finished(line, v, p, "Failed")
+		return nil
+	}
+	switch outcome, reason, message := jobResult(job); outcome {
+	case jobFailed:
+		msg := fmt.Sprintf("training Job %s failed: %s: %s", job.Name, reason, message)
+		p.setPhase(v, v1alpha1.PhaseFailed, reason, msg)
+		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionFalse, reason, msg)
+		p.event(v, line, corev1.EventTypeWarning, "TrainingFailed", "%s", msg)
+		p.event(line, v, corev1.EventTypeWarning, "TrainingFailed", "version %s: %s", v.Name, msg)
+		finished(line, v, p, "Failed")
+	case jobSucceeded:
+		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionTrue, "TrainingSucceeded", fmt.Sprintf("training Job %s succeeded; artifact %s", job.Name, v.Spec.ArtifactURI))
+		p.event(v, line, corev1.EventTypeNormal, "TrainingSucceeded", "training Job %s succeeded", job.Name)
+		w := dataWindow{to: p.now.Time}
+		if v.Status.DataTo != nil {
+			w.to = v.Status.DataTo.Time
+		}
+		if v.Status.DataFrom != nil {
+			t := v.Status.DataFrom.Time
+			w.from = &t
+		}
+		return r.startEvaluation(ctx, line, vw, v, &w, p)
+	}
+	return nil
+}
+
+// startEvaluation creates the gate Job against the live version, or adopts
+// the one an earlier pass created, and moves the version to Evaluating.
+func (r *ModelLineReconciler) startEvaluation(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, w *dataWindow, p *pass) error {
+	window := dataWindow{to: p.now.Time}
+	if w != nil {
+		window = *w
+	}
+	baseline := vw.live()
+	want := buildGateJob(line, v, baseline, window)
+	job, created, err := r.ensureJob(ctx, want, v)
+	if errors.Is(err, errJobNameTaken) {
+		return r.jobNameTaken(line, v, want.Name, p)
+	}
+	if err != nil {
+		return err
+	}
+	against := "no live version"
+	if b := job.Annotations[baselineVersionAnnotation]; b != "" {
+		against = "live version " + b
+	}
+	v.Status.GateJob = job.Name
+	msg := fmt.Sprintf("evaluation Job %s compares it with %s on the golden set", job.Name, against)
+	p.setPhase(v, v1alpha1.PhaseEvaluating, "EvaluationStarted", msg)
+	p.setCond(v, v1alpha1.ConditionEvaluated, metav1.ConditionUnknown, "EvaluationStarted", msg)
+	if created {
+		p.event(v, line, corev1.EventTypeNormal, "EvaluationStarted", "%s", msg)
+	}
+	return nil
+}
+
+// watchEvaluation follows the gate Job, reads its report and judges it.
+func (r *ModelLineReconciler) watchEvaluation(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
+	job, err := r.findJob(ctx, vw, v, roleGate)
+	if err != nil {
+		return err
+	}
+	if job == nil || !metav1.IsControlledBy(job, v) {
+		r.rejectReport(line, v, p, reasonEvaluationLost, fmt.Sprintf("evaluation Job %s was deleted before it finished", jobName(v.Name, roleGate)), "")
+		return nil
+	}
+	outcome, reason, message := jobResult(job)
+	if outcome == jobRunning {
+		return nil
+	}
+	var pods corev1.PodList
+	if err := r.APIReader.List(ctx, &pods, client.InNamespace(job.Namespace), client.MatchingLabels{batchv1.ControllerUidLabel: string(job.UID)}); err != nil {
+		return fmt.Errorf("list Pods of Job %s: %w", job.Name, err)
+	}
+	raw, pod, found := terminationMessage(job, pods.Items)
+	if outcome == jobFailed {
+		detail := ""
+		if found && raw != "" {
+			detail = fmt.Sprintf("; Pod %s said: %s", pod, truncate(raw, 400))
+		}
+		r.rejectReport(line, v, p, reasonEvaluationFailed, fmt.Sprintf("evaluation Job %s failed: %s: %s%s", job.Name, reason, message, detail), job.Annotations[baselineVersionAnnotation])
+		return nil
+	}
+	if !found {
+		r.rejectReport(line, v, p, gatereport.ReasonMissing, fmt.Sprintf("evaluation Job %s completed but none of its Pods is left with a report (a short ttlSecondsAfterFinished can remove them)", job.Name), job.Annotations[baselineVersionAnnotation])
+		return nil
+	}
+	rep, err := gatereport.Parse([]byte(raw))
+	var bad *gatereport.Error
+	if errors.As(err, &bad) {
+		r.rejectReport(line, v, p, bad.Reason, fmt.Sprintf("report of Pod %s: %s", pod, bad.Message), job.Annotations[baselineVersionAnnotation])
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	baseline := job.Annotations[baselineVersionAnnotation]
+	res := gate.Decide(line.Spec.Gate.Criteria, rep, baseline != "")
+	res.BaselineVersion = baseline
+	res.EvaluatedTime = &p.now
+	r.judged(line, v, p, res)
+	return nil
+}
+
+// rejectReport rejects a candidate whose evaluation gave nothing to judge.
+func (r *ModelLineReconciler) rejectReport(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, reason, msg, baseline string) {
+	r.judged(line, v, p, v1alpha1.GateResult{Verdict: v1alpha1.GateFailed, Reason: reason, Message: truncate(msg, 4000), BaselineVersion: baseline, EvaluatedTime: &p.now})
+}
+
+// judged records a gate result and moves the version on: rejected, waiting
+// for a person, or promoting.
+func (r *ModelLineReconciler) judged(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, res v1alpha1.GateResult) {
+	v.Status.Gate = &res
+	p.metrics = append(p.metrics, func() { gateDecisions.WithLabelValues(line.Namespace, line.Name, string(res.Verdict), res.Reason).Inc() })
+	evaluated := metav1.ConditionTrue
+	if res.Reason == reasonEvaluationFailed || res.Reason == reasonEvaluationLost || res.Reason == gatereport.ReasonMissing {
+		evaluated = metav1.ConditionFalse
+	}
+	p.setCond(v, v1alpha1.ConditionEvaluated, evaluated, res.Reason, res.Message)
+	if res.Verdict != v1alpha1.GatePassed {
+		p.setCond(v, v1alpha1.ConditionGatePassed, metav1.ConditionFalse, res.Reason, res.Message)
+		p.setPhase(v, v1alpha1.PhaseRejected, res.Reason, "gate failed: "+res.Message)
+		p.event(v, line, corev1.EventTypeWarning, "GateFailed", "%s: %s", res.Reason, res.Message)
+		p.event(line, v, corev1.EventTypeWarning, "GateFailed", "version %s rejected, live version unchanged: %s: %s", v.Name, res.Reason, res.Message)
+		finished(line, v, p, "Rejected")
+		return
+	}
+	p.setCond(v, v1alpha1.ConditionGatePassed, metav1.ConditionTrue, res.Reason, res.Message)
+	p.event(v, line, corev1.EventTypeNormal, "GatePassed", "%s", res.Message)
+	switch {
+	case line.Spec.Gate.Approval == v1alpha1.ApprovalManual && v.Spec.Decision != v1alpha1.DecisionApproved:
+		msg := fmt.Sprintf("passed the gate; waiting for a person: kubectl patch modelversion %s -n %s --type=merge -p '{\"spec\":{\"decision\":\"Approved\"}}' (or \"Rejected\")", v.Name, v.Namespace)
+		p.setPhase(v, v1alpha1.PhaseAwaitingApproval, reasonWaitingDecision, msg)
+		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionUnknown, reasonWaitingDecision, "waiting for spec.decision")
+		p.event(line, v, corev1.EventTypeNormal, "AwaitingApproval", "version %s passed the gate and waits for a person's decision", v.Name)
+	case line.Spec.Gate.Approval == v1alpha1.ApprovalManual:
+		v.Status.DecisionTime = &p.now
+		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedByPerson, noteOr(v.Spec.DecisionNote, "approved by a person before the gate decided"))
+		startPromotionFromGate(line, v, p, reasonApprovedByPerson)
+	default:
+		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedAuto, "the line's approval is Automatic")
+		startPromotionFromGate(line, v, p, reasonApprovedAuto)
+	}
+}
+
+// startPromotionFromGate is startPromotion for a version the gate passed. It
+// takes the live version from the line's status, which settle has set.
+func startPromotionFromGate(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, reason string) {
+	v.Status.Phase = v1alpha1.PhasePromoting
+	v.Status.Reason = reason
+	v.Status.Promotion = nil
+	// The record of what is replaced is taken in the next pass, from the
+	// Deployment as it is, before anything patches it.
+	p.setPhase(v, v1alpha1.PhasePromoting, reason, "passed the gate; the rollout starts")
+}
+
+// startPromotion moves a version to Promoting, recording what the serving
+// Deployment serves now so a failed rollout can restore it. The Deployment
+// is patched only in a later pass, after this record is written.
+func startPromotion(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass, reason, why string) {
+	from := v1alpha1.PromotionStatus{StartedTime: &p.now}
+	if live := vw.live(); live != nil {
+		from.FromVersion = live.Name
+	}
+	if vw.deployment != nil {
+		now := servedBy(vw.deployment, line.Spec.Serving)
+		from.FromArtifactURI = now.artifact
+		if from.FromVersion == "" && now.version != v.Name {
+			from.FromVersion = now.version
+		}
+	}
+	v.Status.Promotion = &from
+	msg := fmt.Sprintf("%s; rolling out to Deployment %s", why, line.Spec.Serving.DeploymentName)
+	p.setPhase(v, v1alpha1.PhasePromoting, reason, msg)
+	p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionUnknown, reasonRollingOut, msg)
+	p.event(v, line, corev1.EventTypeNormal, "PromotionStarted", "rolling out %s to Deployment %s (replacing %s)", v.Spec.ArtifactURI, line.Spec.Serving.DeploymentName, orNone(from.FromVersion))
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "nothing"
+	}
+	return s
+}
+
+// promote rolls the serving Deployment out to the version and watches the
+// rollout to its end.
+func (r *ModelLineReconciler) promote(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
+	if v.Status.Promotion == nil {
+		startPromotion(line, vw, v, p, v.Status.Reason, "the rollout starts")
+		return nil
+	}
+	dep := vw.deployment
+	want := served{artifact: v.Spec.ArtifactURI, version: v.Name}
+	if servedBy(dep, line.Spec.Serving) != want {
+		patched, err := r.patchServing(ctx, dep, line.Spec.Serving, want)
+		if err != nil {
+			return err
+		}
+		dep = patched
+		vw.deployment = patched
+	}
+	state, msg := rolloutState(dep)
+	switch state {
+	case rolloutProgressing:
+		if v.Status.Message != msg {
+			v.Status.Message = "rolling out: " + msg
+		}
+	case rolloutFailed:
+		p.setPhase(v, v1alpha1.PhaseFailed, reasonRolloutFailed, msg+"; the Deployment is being restored to "+orNone(v.Status.Promotion.FromVersion))
+		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reasonRolloutFailed, msg)
+		p.event(v, line, corev1.EventTypeWarning, reasonRolloutFailed, "%s", msg)
+		p.event(line, v, corev1.EventTypeWarning, reasonRolloutFailed, "version %s: %s; restoring %s", v.Name, msg, orNone(v.Status.Promotion.FromVersion))
+		p.metrics = append(p.metrics, func() { rolloutFailures.WithLabelValues(line.Namespace, line.Name).Inc() })
+		finished(line, v, p, "Failed")
+	case rolloutComplete:
+		v.Status.PromotedTime = &p.now
+		v.Status.ArchivedTime = nil
+		msg := fmt.Sprintf("serving on Deployment %s (%s)", dep.Name, msg)
+		p.setPhase(v, v1alpha1.PhaseLive, reasonPromoted, msg)
+		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionTrue, reasonPromoted, msg)
+		p.event(v, line, corev1.EventTypeNormal, reasonPromoted, "%s", msg)
+		p.event(line, v, corev1.EventTypeNormal, reasonPromoted, "version %s is live (replacing %s)", v.Name, orNone(v.Status.Promotion.FromVersion))
+		p.metrics = append(p.metrics, func() { promotions.WithLabelValues(line.Namespace, line.Name).Inc() })
+		finished(line, v, p, "Promoted")
+	}
+	return nil
+}
+
+// revertFailedRollouts restores the Deployment after a failed rollout: a
+// version that failed its rollout and that the Deployment still names goes
+// back to what it replaced. It runs in the pass after the failure was
+// recorded, so a crash in between cannot start the rollout again.
+func (r *ModelLineReconciler) revertFailedRollouts(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	if vw.deployment == nil {
+		return nil
+	}
+	cur := servedBy(vw.deployment, line.Spec.Serving)
+	for _, v := range vw.versions {
+		if v.Status.Phase != v1alpha1.PhaseFailed || v.Status.Reason != reasonRolloutFailed || v.Status.Promotion == nil || cur.version != v.Name {
+			continue
+		}
+		back := served{artifact: v.Status.Promotion.FromArtifactURI, version: v.Status.Promotion.FromVersion}
+		patched, err := r.patchServing(ctx, vw.deployment, line.Spec.Serving, back)
+		if err != nil {
+			return err
+		}
+		vw.deployment = patched
+		v.Status.Message = fmt.Sprintf("rollout failed; Deployment %s restored to %s (%s)", patched.Name, orNone(back.version), back.artifact)
+		p.event(line, v, corev1.EventTypeNormal, "RolloutReverted", "Deployment %s restored to %s after the failed rollout of %s", patched.Name, orNone(back.version), v.Name)
+		return nil
+	}
+	return nil
+}
+
+// patchServing patches the Deployment to serve an artifact and returns it as
+// the API server has it after the patch.
+func (r *ModelLineReconciler) patchServing(ctx context.Context, dep *appsv1.Deployment, s v1alpha1.ServingSpec, to served) (*appsv1.Deployment, error) {
+	data, err := servePatch(s, to)
+	if err != nil {
+		return nil, err
+	}
+	patched := dep.DeepCopy()
+	if err := r.Patch(ctx, patched, client.RawPatch(types.StrategicMergePatchType, data)); err != nil {
+		return nil, fmt.Errorf("patch Deployment %s to serve %s: %w", dep.Name, orNone(to.version), err)
+	}
+	return patched, nil
+}
+
+// prune deletes the finished versions history no longer keeps.
+func (r *ModelLineReconciler) prune(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	limit := int32(10)
+	if line.Spec.HistoryLimit != nil {
+		limit = *line.Spec.HistoryLimit
+	}
+	live, previous := "", ""
+	if l := vw.live(); l != nil {
+		live = l.Name
+		if l.Status.Promotion != nil {
+			previous = l.Status.Promotion.FromVersion
+		}
+	}
+	for _, v := range pruneList(vw.versions, live, previous, limit) {
+		if err := r.Delete(ctx, v, client.Preconditions{UID: &v.UID}); client.IgnoreNotFound(err) != nil {
+			return fmt.Errorf("prune version %s: %w", v.Name, err)
+		}
+		p.deleted[v.Name] = true
+		p.event(line, nil, corev1.EventTypeNormal, "Pruned", "deleted %s version %s: history keeps %d finished versions (spec.historyLimit)", v.Status.Phase, v.Name, limit)
+	}
+	return nil
+}
+
+func truncate(s string, n int) string {
+	if len(s) <= n {
+		return s
+	}
+	cut := n - 3
+	for cut > 0 && s[cut]&0xC0 == 0x80 {
+		cut--
+	}
+	return s[:cut] + "..."
+}
