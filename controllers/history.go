@@ -31,6 +31,7 @@ func pruneList(versions []*v1alpha1.ModelVersion, live, previous string, limit i
 		finished = append(finished, v)
 	}
 	byAge(finished)
+	limit = max(limit, 0)
 	if int32(len(finished)) <= limit {
 		return nil
 	}

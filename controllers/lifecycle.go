@@ -10,6 +10,7 @@ import (
 	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
@@ -19,6 +20,7 @@ import (
 	"plumbline.dev/plumbline/internal/gate"
 	"plumbline.dev/plumbline/internal/gatereport"
 	"plumbline.dev/plumbline/internal/speccheck"
+	"plumbline.dev/plumbline/internal/text"
 )
 
 // Version status reasons the lifecycle sets.
@@ -116,11 +118,11 @@ func (p *pass) event(regarding, related runtime.Object, kind, reason, format str
 
 // setPhase moves a version to a phase with a reason and a message.
 func (p *pass) setPhase(v *v1alpha1.ModelVersion, phase v1alpha1.VersionPhase, reason, message string) {
-	v.Status.Phase, v.Status.Reason, v.Status.Message = phase, reason, truncate(message, 2000)
+	v.Status.Phase, v.Status.Reason, v.Status.Message = phase, reason, text.Truncate(message, 2000)
 }
 
 func (p *pass) setCond(v *v1alpha1.ModelVersion, typ string, status metav1.ConditionStatus, reason, message string) {
-	setCondition(&v.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: reason, Message: truncate(message, 2000)}, v.Generation, p.now)
+	setCondition(&v.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: reason, Message: text.Truncate(message, 2000)}, v.Generation, p.now)
 }
 
 // errJobNameTaken is a Job with the version's Job name that the version does
@@ -144,7 +146,18 @@ func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelL
 		}
 		settle(line, vw, p)
 	}
+	queue(vw, p)
 	return r.prune(ctx, line, vw, p)
+}
+
+// queue marks the versions that wait behind the active one.
+func queue(vw *view, p *pass) {
+	active := vw.active()
+	for _, v := range vw.versions {
+		if v != active && v.Status.Phase == "" && v.Spec.Source != v1alpha1.SourceRuleBased {
+			p.setPhase(v, v1alpha1.PhasePending, reasonQueued, "queued: the line works on one version at a time, oldest first")
+		}
+	}
 }
 
 // settle makes the versions' phases agree with the one live version (the
@@ -175,7 +188,7 @@ func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1
 		return nil
 	}
 	if len(token) == 0 || len(token) > 253 {
-		line.Status.LastRetrainRequest = truncate(token, 253)
+		line.Status.LastRetrainRequest = text.Truncate(token, 253)
 		p.event(line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "annotation %s must hold a token of 1 to 253 characters (a timestamp works); this one has %d", v1alpha1.RetrainRequestAnnotation, len(token))
 		return nil
 	}
@@ -543,7 +556,7 @@ func (r *ModelLineReconciler) watchEvaluation(ctx context.Context, line *v1alpha
 		return err
 	}
 	if job == nil || !metav1.IsControlledBy(job, v) {
-		r.rejectReport(line, v, p, reasonEvaluationLost, fmt.Sprintf("evaluation Job %s was deleted before it finished", jobName(v.Name, roleGate)), "")
+		r.rejectReport(line, vw, v, p, reasonEvaluationLost, fmt.Sprintf("evaluation Job %s was deleted before it finished", jobName(v.Name, roleGate)), "")
 		return nil
 	}
 	outcome, reason, message := jobResult(job)
@@ -558,19 +571,19 @@ func (r *ModelLineReconciler) watchEvaluation(ctx context.Context, line *v1alpha
 	if outcome == jobFailed {
 		detail := ""
 		if found && raw != "" {
-			detail = fmt.Sprintf("; Pod %s said: %s", pod, truncate(raw, 400))
+			detail = fmt.Sprintf("; Pod %s said: %s", pod, text.Truncate(raw, 400))
 		}
-		r.rejectReport(line, v, p, reasonEvaluationFailed, fmt.Sprintf("evaluation Job %s failed: %s: %s%s", job.Name, reason, message, detail), job.Annotations[baselineVersionAnnotation])
+		r.rejectReport(line, vw, v, p, reasonEvaluationFailed, fmt.Sprintf("evaluation Job %s failed: %s: %s%s", job.Name, reason, message, detail), job.Annotations[baselineVersionAnnotation])
 		return nil
 	}
 	if !found {
-		r.rejectReport(line, v, p, gatereport.ReasonMissing, fmt.Sprintf("evaluation Job %s completed but none of its Pods is left with a report (a short ttlSecondsAfterFinished can remove them)", job.Name), job.Annotations[baselineVersionAnnotation])
+		r.rejectReport(line, vw, v, p, gatereport.ReasonMissing, fmt.Sprintf("evaluation Job %s completed but none of its Pods is left with a report (a short ttlSecondsAfterFinished can remove them)", job.Name), job.Annotations[baselineVersionAnnotation])
 		return nil
 	}
 	rep, err := gatereport.Parse([]byte(raw))
 	var bad *gatereport.Error
 	if errors.As(err, &bad) {
-		r.rejectReport(line, v, p, bad.Reason, fmt.Sprintf("report of Pod %s: %s", pod, bad.Message), job.Annotations[baselineVersionAnnotation])
+		r.rejectReport(line, vw, v, p, bad.Reason, fmt.Sprintf("report of Pod %s: %s", pod, bad.Message), job.Annotations[baselineVersionAnnotation])
 		return nil
 	}
 	if err != nil {
@@ -580,20 +593,22 @@ func (r *ModelLineReconciler) watchEvaluation(ctx context.Context, line *v1alpha
 	res := gate.Decide(line.Spec.Gate.Criteria, rep, baseline != "")
 	res.BaselineVersion = baseline
 	res.EvaluatedTime = &p.now
-	r.judged(line, v, p, res)
+	r.judged(line, vw, v, p, res)
 	return nil
 }
 
 // rejectReport rejects a candidate whose evaluation gave nothing to judge.
-func (r *ModelLineReconciler) rejectReport(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, reason, msg, baseline string) {
-	r.judged(line, v, p, v1alpha1.GateResult{Verdict: v1alpha1.GateFailed, Reason: reason, Message: truncate(msg, 4000), BaselineVersion: baseline, EvaluatedTime: &p.now})
+func (r *ModelLineReconciler) rejectReport(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass, reason, msg, baseline string) {
+	r.judged(line, vw, v, p, v1alpha1.GateResult{Verdict: v1alpha1.GateFailed, Reason: reason, Message: text.Truncate(msg, 4000), BaselineVersion: baseline, EvaluatedTime: &p.now})
 }
 
 // judged records a gate result and moves the version on: rejected, waiting
 // for a person, or promoting.
-func (r *ModelLineReconciler) judged(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, res v1alpha1.GateResult) {
+func (r *ModelLineReconciler) judged(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass, res v1alpha1.GateResult) {
 	v.Status.Gate = &res
-	p.metrics = append(p.metrics, func() { gateDecisions.WithLabelValues(line.Namespace, line.Name, string(res.Verdict), res.Reason).Inc() })
+	p.metrics = append(p.metrics, func() {
+		gateDecisions.WithLabelValues(line.Namespace, line.Name, string(res.Verdict), res.Reason).Inc()
+	})
 	evaluated := metav1.ConditionTrue
 	if res.Reason == reasonEvaluationFailed || res.Reason == reasonEvaluationLost || res.Reason == gatereport.ReasonMissing {
 		evaluated = metav1.ConditionFalse
@@ -618,22 +633,11 @@ func (r *ModelLineReconciler) judged(line *v1alpha1.ModelLine, v *v1alpha1.Model
 	case line.Spec.Gate.Approval == v1alpha1.ApprovalManual:
 		v.Status.DecisionTime = &p.now
 		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedByPerson, noteOr(v.Spec.DecisionNote, "approved by a person before the gate decided"))
-		startPromotionFromGate(line, v, p, reasonApprovedByPerson)
+		startPromotion(line, vw, v, p, reasonApprovedByPerson, "passed the gate, approved beforehand")
 	default:
 		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedAuto, "the line's approval is Automatic")
-		startPromotionFromGate(line, v, p, reasonApprovedAuto)
+		startPromotion(line, vw, v, p, reasonApprovedAuto, "passed the gate")
 	}
-}
-
-// startPromotionFromGate is startPromotion for a version the gate passed. It
-// takes the live version from the line's status, which settle has set.
-func startPromotionFromGate(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, reason string) {
-	v.Status.Phase = v1alpha1.PhasePromoting
-	v.Status.Reason = reason
-	v.Status.Promotion = nil
-	// The record of what is replaced is taken in the next pass, from the
-	// Deployment as it is, before anything patches it.
-	p.setPhase(v, v1alpha1.PhasePromoting, reason, "passed the gate; the rollout starts")
 }
 
 // startPromotion moves a version to Promoting, recording what the serving
@@ -685,9 +689,7 @@ func (r *ModelLineReconciler) promote(ctx context.Context, line *v1alpha1.ModelL
 	state, msg := rolloutState(dep)
 	switch state {
 	case rolloutProgressing:
-		if v.Status.Message != msg {
-			v.Status.Message = "rolling out: " + msg
-		}
+		v.Status.Message = "rolling out: " + msg
 	case rolloutFailed:
 		p.setPhase(v, v1alpha1.PhaseFailed, reasonRolloutFailed, msg+"; the Deployment is being restored to "+orNone(v.Status.Promotion.FromVersion))
 		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reasonRolloutFailed, msg)
@@ -728,7 +730,11 @@ func (r *ModelLineReconciler) revertFailedRollouts(ctx context.Context, line *v1
 			return err
 		}
 		vw.deployment = patched
-		v.Status.Message = fmt.Sprintf("rollout failed; Deployment %s restored to %s (%s)", patched.Name, orNone(back.version), back.artifact)
+		failure := "rollout failed"
+		if c := meta.FindStatusCondition(v.Status.Conditions, v1alpha1.ConditionLive); c != nil {
+			failure = c.Message
+		}
+		v.Status.Message = text.Truncate(fmt.Sprintf("%s; Deployment %s restored to %s (%s)", failure, patched.Name, orNone(back.version), back.artifact), 2000)
 		p.event(line, v, corev1.EventTypeNormal, "RolloutReverted", "Deployment %s restored to %s after the failed rollout of %s", patched.Name, orNone(back.version), v.Name)
 		return nil
 	}
@@ -770,15 +776,4 @@ func (r *ModelLineReconciler) prune(ctx context.Context, line *v1alpha1.ModelLin
 		p.event(line, nil, corev1.EventTypeNormal, "Pruned", "deleted %s version %s: history keeps %d finished versions (spec.historyLimit)", v.Status.Phase, v.Name, limit)
 	}
 	return nil
-}
-
-func truncate(s string, n int) string {
-	if len(s) <= n {
-		return s
-	}
-	cut := n - 3
-	for cut > 0 && s[cut]&0xC0 == 0x80 {
-		cut--
-	}
-	return s[:cut] + "..."
 }

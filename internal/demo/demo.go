@@ -35,6 +35,7 @@ import (
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/controlplane"
 	"plumbline.dev/plumbline/internal/manager"
+	"plumbline.dev/plumbline/internal/standin"
 )
 
 // Options say where the demo finds what it needs.
@@ -190,13 +191,8 @@ func (d *player) story(samples string) error {
 	}
 
 	d.step(3, "A mistake only the controller can see: a cron typo (\"Mon-Funday\") in the schedule")
-	var line v1alpha1.ModelLine
-	if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
-		return fmt.Errorf("get line: %w", err)
-	}
-	line.Spec.Schedule.Cron = "30 2 * * Mon-Funday"
-	if err := d.c.Update(d.ctx, &line); err != nil {
-		return fmt.Errorf("update line: %w", err)
+	if err := d.setCron(lineKey, "30 2 * * Mon-Funday"); err != nil {
+		return err
 	}
 	if err := d.waitReady(lineKey, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec); err != nil {
 		return err
@@ -209,18 +205,127 @@ func (d *player) story(samples string) error {
 			return err
 		}
 	}
-	if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
-		return fmt.Errorf("get line: %w", err)
-	}
-	line.Spec.Schedule.Cron = "30 2 * * 1"
-	if err := d.c.Update(d.ctx, &line); err != nil {
-		return fmt.Errorf("update line: %w", err)
+	if err := d.setCron(lineKey, "30 2 * * 1"); err != nil {
+		return err
 	}
 	d.say(`fixed spec.schedule.cron to "30 2 * * 1" (Mondays at 02:30, Europe/London)`)
 	if err := d.waitReady(lineKey, metav1.ConditionTrue, v1alpha1.ReasonSpecValid); err != nil {
 		return err
 	}
-	return d.waitAdopted(lineKey, len(byKind("ModelVersion")))
+	if err := d.waitAdopted(lineKey, len(byKind("ModelVersion"))); err != nil {
+		return err
+	}
+	return d.lifecycle(lineKey)
+}
+
+// lifecycle takes the line through its first promotion, a retrain that
+// passes the gate and one that does not.
+func (d *player) lifecycle(lineKey types.NamespacedName) error {
+	fmt.Fprintln(d.out, "\n   This control plane runs no kubelet and no Job or Deployment controller, so the demo")
+	fmt.Fprintln(d.out, "   plays their part: it finishes Jobs and rollouts the way they would.")
+
+	d.step(5, "The imported model becomes the first live version")
+	if err := d.waitPhase("late-risk-v0", v1alpha1.PhasePromoting); err != nil {
+		return err
+	}
+	if err := d.act("the scorer Deployment finishes its rollout", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v0", d.timeout)); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v0", v1alpha1.PhaseLive); err != nil {
+		return err
+	}
+
+	d.step(6, "The new Fenwick depot opens; an engineer asks for a retrain")
+	if err := d.annotate(lineKey, "fenwick-depot-opened"); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseTraining); err != nil {
+		return err
+	}
+	if err := d.act("training Job late-risk-v1-train completes", standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v1-train", "")); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseEvaluating); err != nil {
+		return err
+	}
+	if err := d.act("evaluation Job late-risk-v1-gate reports (synthetic numbers: better everywhere)",
+		standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v1-gate", goodReport())); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v1", v1alpha1.PhasePromoting); err != nil {
+		return err
+	}
+	if err := d.act("the scorer Deployment rolls out late-risk-v1", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v1", d.timeout)); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseLive); err != nil {
+		return err
+	}
+
+	d.step(7, "A week later another retrain: worse on the harbour depot, so the gate rejects it")
+	if err := d.annotate(lineKey, "weekly-review-47"); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseTraining); err != nil {
+		return err
+	}
+	if err := d.act("training Job late-risk-v2-train completes", standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v2-train", "")); err != nil {
+		return err
+	}
+	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseEvaluating); err != nil {
+		return err
+	}
+	if err := d.act("evaluation Job late-risk-v2-gate reports (synthetic numbers: harbour-depot recall drops)",
+		standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v2-gate", harbourRegressionReport())); err != nil {
+		return err
+	}
+	return d.waitPhase("late-risk-v2", v1alpha1.PhaseRejected)
+}
+
+const scorer = "late-risk-scorer"
+
+func (d *player) act(what string, err error) error {
+	if err != nil {
+		return err
+	}
+	d.say("(stand-in) " + what)
+	return nil
+}
+
+func (d *player) annotate(key types.NamespacedName, token string) error {
+	patch := fmt.Sprintf(`{"metadata":{"annotations":{%q:%q}}}`, v1alpha1.RetrainRequestAnnotation, token)
+	line := &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: key.Namespace, Name: key.Name}}
+	if err := d.c.Patch(d.ctx, line, client.RawPatch(types.MergePatchType, []byte(patch))); err != nil {
+		return fmt.Errorf("annotate line: %w", err)
+	}
+	d.say(fmt.Sprintf("kubectl annotate modelline %s %s=%s", key.Name, v1alpha1.RetrainRequestAnnotation, token))
+	return nil
+}
+
+// waitPhase prints events until a version reaches a phase.
+func (d *player) waitPhase(name string, phase v1alpha1.VersionPhase) error {
+	return d.wait(fmt.Sprintf("version %s to be %s", name, phase), func() (bool, error) {
+		var v v1alpha1.ModelVersion
+		if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: name}, &v); err != nil {
+			return false, client.IgnoreNotFound(err)
+		}
+		if v.Status.Phase != phase {
+			return false, nil
+		}
+		d.say(fmt.Sprintf("ModelVersion %s is now %s: %s", name, phase, v.Status.Message))
+		return true, nil
+	})
+}
+
+// setCron edits the line's schedule with a merge patch, as kubectl edit
+// would, so it does not race the controller's status writes.
+func (d *player) setCron(key types.NamespacedName, cron string) error {
+	patch := fmt.Sprintf(`{"spec":{"schedule":{"cron":%q}}}`, cron)
+	line := &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: key.Namespace, Name: key.Name}}
+	if err := d.c.Patch(d.ctx, line, client.RawPatch(types.MergePatchType, []byte(patch))); err != nil {
+		return fmt.Errorf("edit spec.schedule.cron: %w", err)
+	}
+	return nil
 }
 
 func (d *player) create(o *unstructured.Unstructured) error {
@@ -325,39 +430,46 @@ func (d *player) summary(metricsAddr string) error {
 		return fmt.Errorf("list lines: %w", err)
 	}
 	tw := tabwriter.NewWriter(d.out, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "MODELLINE\tREADY\tREASON\tSERVING")
+	fmt.Fprintln(tw, "MODELLINE\tREADY\tLIVE\tPREVIOUS\tLAST RETRAIN OUTCOME")
 	for _, l := range lines.Items {
-		c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionReady)
-		status, reason := "-", "-"
-		if c != nil {
-			status, reason = string(c.Status), c.Reason
+		ready, outcome := "-", "-"
+		if c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionReady); c != nil {
+			ready = string(c.Status)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s/%s\n", l.Name, status, reason, l.Spec.Serving.DeploymentName, l.Spec.Serving.ContainerName)
+		if c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionRetraining); c != nil {
+			outcome = c.Reason
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\n", l.Name, ready, orDash(l.Status.LiveVersion), orDash(l.Status.PreviousVersion), outcome)
 	}
 	fmt.Fprintln(tw)
 	var versions v1alpha1.ModelVersionList
 	if err := d.c.List(d.ctx, &versions, client.InNamespace(namespace)); err != nil {
 		return fmt.Errorf("list versions: %w", err)
 	}
-	fmt.Fprintln(tw, "MODELVERSION\tLINE\tSOURCE\tPHASE\tARTIFACT")
+	fmt.Fprintln(tw, "MODELVERSION\tSOURCE\tREASON\tPHASE\tGATE\tARTIFACT")
 	for _, v := range versions.Items {
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\n", v.Name, v.Spec.Line, v.Spec.Source, v.Status.Phase, v.Spec.ArtifactURI)
+		verdict := "-"
+		if v.Status.Gate != nil {
+			verdict = string(v.Status.Gate.Verdict)
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\n", v.Name, v.Spec.Source, orDash(v.Spec.Reason), v.Status.Phase, verdict, v.Spec.ArtifactURI)
 	}
 	if err := tw.Flush(); err != nil {
 		return err
 	}
 	var dep appsv1.Deployment
 	if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-scorer"}, &dep); err == nil {
-		fmt.Fprintf(d.out, "\nThe scorer serves %s (no kubelet here, so its pods are not run).\n", modelURI(&dep))
+		fmt.Fprintf(d.out, "\nThe scorer Deployment serves %s (%s=%s).\n", modelURI(&dep), v1alpha1.VersionAnnotation, dep.Spec.Template.Annotations[v1alpha1.VersionAnnotation])
 	}
 
-	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition")
+	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition", "plumbline_live_version_info", "plumbline_gate_decisions_total", "plumbline_promotions_total")
 	if err != nil {
 		return err
 	}
 	fmt.Fprintf(d.out, "\nWhat Prometheus would scrape from the manager:\n%s\n", metrics)
-	fmt.Fprintln(d.out, "\nThis build covers the resource model, admission rules and spec checks;")
-	fmt.Fprintln(d.out, "retraining, the evaluation gate, promotion and rollback are not in it yet.")
+	fmt.Fprintln(d.out, "\nNot in this build yet: schedules and Prometheus triggers, the checks before a retrain,")
+	fmt.Fprintln(d.out, "the guard and rollback after a promotion, and plumbline evaluate (the gate reports above")
+	fmt.Fprintln(d.out, "are synthetic numbers written by the demo).")
 	return nil
 }
 
@@ -372,8 +484,9 @@ func modelURI(dep *appsv1.Deployment) string {
 	return "no model"
 }
 
-// scrape fetches a metrics page and keeps the lines of one metric.
-func scrape(ctx context.Context, url, metric string) (string, error) {
+// scrape fetches a metrics page and keeps the demo line's series of some
+// metrics.
+func scrape(ctx context.Context, url string, metrics ...string) (string, error) {
 	req, err := http.NewRequestWithContext(ctx, http.MethodGet, url, nil)
 	if err != nil {
 		return "", err
@@ -388,13 +501,17 @@ func scrape(ctx context.Context, url, metric string) (string, error) {
 		return "", fmt.Errorf("read manager metrics: %w", err)
 	}
 	var keep []string
-	for _, l := range strings.Split(string(body), "\n") {
-		if strings.HasPrefix(l, metric+"{") && strings.Contains(l, `namespace="`+namespace+`"`) {
-			keep = append(keep, "    "+l)
+	for _, m := range metrics {
+		found := false
+		for _, l := range strings.Split(string(body), "\n") {
+			if strings.HasPrefix(l, m+"{") && strings.Contains(l, `namespace="`+namespace+`"`) {
+				keep = append(keep, "    "+l)
+				found = true
+			}
 		}
-	}
-	if len(keep) == 0 {
-		return "", fmt.Errorf("the manager exports no %s series", metric)
+		if !found {
+			return "", fmt.Errorf("the manager exports no %s series", m)
+		}
 	}
 	sort.Strings(keep)
 	return strings.Join(keep, "\n"), nil
@@ -441,6 +558,13 @@ func setTrigger(o *unstructured.Unstructured, field string, v any) error {
 	}
 	triggers[0].(map[string]any)[field] = v
 	return unstructured.SetNestedSlice(o.Object, triggers, "spec", "triggers")
+}
+
+func orDash(s string) string {
+	if s == "" {
+		return "-"
+	}
+	return s
 }
 
 func firstLine(s string) string {

@@ -50,7 +50,16 @@ func TestDemoRuns(t *testing.T) {
 		"event Warning InvalidSpec ModelLine/late-risk: spec.schedule.cron:",
 		"Ready=True (SpecValid)",
 		"2 versions belong to line late-risk",
+		"ModelVersion late-risk-v0 is now Live",
+		"event Normal RetrainRequested ModelLine/late-risk",
+		"ModelVersion late-risk-v1 is now Live",
+		"event Normal Archived ModelVersion/late-risk-v0: replaced by late-risk-v1",
+		`event Warning GateFailed ModelLine/late-risk: version late-risk-v2 rejected, live version unchanged`,
+		"ModelVersion late-risk-v2 is now Rejected",
+		"late-risk  True   late-risk-v1  late-risk-v0  GateFailed",
+		"(plumbline.dev/version=late-risk-v1)",
 		`plumbline_line_condition{condition="Ready",line="late-risk",namespace="larkspur"} 1`,
+		`plumbline_live_version_info{line="late-risk",namespace="larkspur",source="Trained",version="late-risk-v1"} 1`,
 		"Stopping the manager and the control plane.",
 	} {
 		if !strings.Contains(out.String(), want) {

@@ -8,10 +8,10 @@ import (
 	"sort"
 	"strconv"
 	"strings"
-	"unicode/utf8"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/gatereport"
+	"plumbline.dev/plumbline/internal/text"
 )
 
 // Verdict reasons.
@@ -79,7 +79,7 @@ func Decide(criteria []v1alpha1.GateCriterion, rep *gatereport.Report, hasBaseli
 	if dropped > 0 {
 		res.Message += fmt.Sprintf(" (%d passing results not listed)", dropped)
 	}
-	res.Message = truncate(res.Message, 4000)
+	res.Message = text.Truncate(res.Message, 4000)
 	return res
 }
 
@@ -167,7 +167,7 @@ func judgeOne(c v1alpha1.GateCriterion, segment string, rep *gatereport.Report, 
 		}
 	}
 	r.Passed = ok
-	r.Message = truncate(strings.Join(parts, "; "), 1000)
+	r.Message = text.Truncate(strings.Join(parts, "; "), 1000)
 	return r
 }
 
@@ -230,16 +230,4 @@ func format(v *float64) string {
 		return ""
 	}
 	return num(*v)
-}
-
-// truncate shortens s to at most n bytes without splitting a character.
-func truncate(s string, n int) string {
-	if len(s) <= n {
-		return s
-	}
-	cut := n - 3
-	for cut > 0 && !utf8.RuneStart(s[cut]) {
-		cut--
-	}
-	return s[:cut] + "..."
 }

@@ -63,7 +63,9 @@ func TestDecide(t *testing.T) {
 		{"lower-is-better inferior", []v1alpha1.GateCriterion{{Metric: "log_loss", MaxRegression: ptr.To(0.003)}}, nil, false,
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 1, []string{"upper bound of the change in log_loss 0.004 > 0.003"}},
 		{"own metric with direction", []v1alpha1.GateCriterion{{Metric: "late_minutes", Direction: v1alpha1.LowerIsBetter, MaxRegression: ptr.To(1.0)}},
-			func(r *gatereport.Report) { r.Metrics = append(r.Metrics, metric("late_minutes", "", 12, -0.5, 1.5, 0.95)) }, false,
+			func(r *gatereport.Report) {
+				r.Metrics = append(r.Metrics, metric("late_minutes", "", 12, -0.5, 1.5, 0.95))
+			}, false,
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 1, []string{"upper bound of the change in late_minutes 1.5 > 1"}},
 		{"interval at too low a confidence", []v1alpha1.GateCriterion{{Metric: "accuracy", MaxRegression: ptr.To(0.01), Confidence: ptr.To(0.95)}}, nil, false,
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 1, []string{"at 90% confidence; the criterion asks for 95%"}},
@@ -90,7 +92,9 @@ func TestDecide(t *testing.T) {
 		{"every segment, all pass", []v1alpha1.GateCriterion{{Metric: "recall", Segment: "*", MaxRegression: ptr.To(0.05)}}, nil, false,
 			v1alpha1.GatePassed, ReasonCriteriaMet, 2, []string{"all 2 criteria met"}},
 		{"every segment, metric missing in one", []v1alpha1.GateCriterion{{Metric: "recall", Segment: "*", MaxRegression: ptr.To(0.05)}},
-			func(r *gatereport.Report) { r.Metrics = append(r.Metrics, metric("roc_auc", "lakeside", 0.8, 0, 0.01, 0.95)) }, false,
+			func(r *gatereport.Report) {
+				r.Metrics = append(r.Metrics, metric("roc_auc", "lakeside", 0.8, 0, 0.01, 0.95))
+			}, false,
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 3, []string{`no recall for segment "lakeside"`}},
 		{"every segment, no segments", []v1alpha1.GateCriterion{{Metric: "roc_auc", Segment: "*", Minimum: ptr.To(0.5)}},
 			func(r *gatereport.Report) { r.Metrics = r.Metrics[:3] }, false,
@@ -104,7 +108,10 @@ func TestDecide(t *testing.T) {
 			func(r *gatereport.Report) { r.Metrics[0].Candidate = nil; r.Metrics[0].Undefined = "only one class" }, false,
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 1, []string{"roc_auc is undefined for whole set: only one class"}},
 		{"must-pass failure rejects even when criteria pass", []v1alpha1.GateCriterion{{Metric: "roc_auc", Minimum: ptr.To(0.8)}},
-			func(r *gatereport.Report) { r.MustPass.Failed = 2; r.MustPass.FailedIDs = []string{"parcel-17", "parcel-99"} }, false,
+			func(r *gatereport.Report) {
+				r.MustPass.Failed = 2
+				r.MustPass.FailedIDs = []string{"parcel-17", "parcel-99"}
+			}, false,
 			v1alpha1.GateFailed, ReasonMustPassFailed, 1, []string{"2 of 40 must-pass rows wrong", "parcel-17, parcel-99"}},
 		{"several criteria, all listed", []v1alpha1.GateCriterion{
 			{Metric: "roc_auc", Minimum: ptr.To(0.8)}, {Metric: "roc_auc", MaxRegression: ptr.To(0.005)},
@@ -166,13 +173,5 @@ func TestDecideBoundsResults(t *testing.T) {
 	}
 	if got.Verdict != v1alpha1.GateFailed || len(got.Message) > 4096 {
 		t.Errorf("verdict %s, message of %d bytes", got.Verdict, len(got.Message))
-	}
-}
-
-func TestTruncateKeepsCharacters(t *testing.T) {
-	s := strings.Repeat("é", 10) // 20 bytes
-	got := truncate(s, 10)
-	if len(got) > 10 || !strings.HasSuffix(got, "...") || strings.ContainsRune(got, '\uFFFD') {
-		t.Errorf("truncate(%q, 10) = %q", s, got)
 	}
 }

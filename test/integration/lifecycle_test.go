@@ -76,7 +76,7 @@ func liveLine(t *testing.T, ns string, mutate func(*unstructured.Unstructured)) 
 		t.Fatal(err)
 	}
 	waitPhase(t, ns, initial, v1alpha1.PhasePromoting)
-	rollOut(t, ns, scorer)
+	rollOutTo(t, ns, initial)
 	waitPhase(t, ns, initial, v1alpha1.PhaseLive)
 	return client.ObjectKey{Namespace: ns, Name: lineName}
 }
@@ -439,4 +439,3 @@ func conditionIs(conds []metav1.Condition, typ string) bool {
 	c := meta.FindStatusCondition(conds, typ)
 	return c != nil && c.Status == metav1.ConditionTrue
 }
-
