@@ -19,14 +19,24 @@ help: ## List the targets.
 ##@ The two commands of the README
 
 .PHONY: demo
-demo: build controlplane ## Run the local demo on an embedded control plane (builds what it needs once).
+demo: build controlplane prometheus ## Run the local demo on an embedded control plane (builds what it needs once).
 	KUBEBUILDER_ASSETS=$(K8S_BIN) $(BIN)/plumbline demo --crds config/crd/bases --samples config/samples
 
 .PHONY: test
-test: controlplane ## Run every test tier that can run here (unit and API-server).
+test: controlplane prometheus ## Run every test tier that can run here (unit, API server, Prometheus).
 	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 go test -count=1 $(GO_PACKAGES)
 
 ##@ Development
+
+.PHONY: prometheus
+prometheus: ## Install Debian's prometheus package (prometheus, promtool) when missing.
+	@if command -v prometheus >/dev/null && command -v promtool >/dev/null; then exit 0; fi; \
+	if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null; then \
+	  echo "installing Debian's prometheus package ..."; \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq prometheus >/dev/null; \
+	else \
+	  echo "prometheus and promtool are needed: sudo apt-get install -y prometheus (Debian/Ubuntu)" >&2; exit 1; \
+	fi
 
 .PHONY: test-unit
 test-unit: ## Run the pure-function tests only (no API server).

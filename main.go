@@ -16,6 +16,7 @@ import (
 	"os/signal"
 	"strings"
 	"syscall"
+	"time"
 
 	// The controller reads schedules in IANA time zones; embed the zone
 	// database so a minimal image without /usr/share/zoneinfo works too.
@@ -121,6 +122,8 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 	fs.StringVar(&o.LeaderElectionNamespace, "leader-election-namespace", "", "namespace of the leader-election lease (default: the manager's own)")
 	fs.StringVar(&o.PrometheusURL, "prometheus-url", "", "Prometheus server that triggers, checks and guards query, for example http://prometheus.monitoring:9090")
 	fs.StringVar(&namespaces, "namespaces", "", "comma-separated namespaces to act in (default: all)")
+	fs.DurationVar(&o.PrometheusTimeout, "prometheus-timeout", 10*time.Second, "how long one Prometheus query may take")
+	fs.Float64Var(&o.TriggerCoverage, "trigger-coverage", 0.8, "share of a trigger window's points that must be present to judge it (fewer: Unknown)")
 	zapOpts := zap.Options{}
 	zapOpts.BindFlags(fs)
 	if err := parseFlags(fs, args, stderr); err != nil {

@@ -104,16 +104,37 @@ type pass struct {
 	now     metav1.Time
 	events  []event
 	metrics []func()
-	deleted map[string]bool
+	// wake is the earliest moment, by the controller's clock, when time
+	// alone will change something (a trigger due, a scheduled start).
+	wake time.Time
+	// evaluated are the triggers evaluated in this pass.
+	evaluated []string
+}
+
+// wakeAt asks for a pass at t, unless an earlier one is asked for.
+func (p *pass) wakeAt(t time.Time) {
+	if p.wake.IsZero() || t.Before(p.wake) {
+		p.wake = t
+	}
 }
 
 type event struct {
 	regarding, related    runtime.Object
 	kind, reason, message string
+	// action tells apart events of the same reason about the same object
+	// (two triggers changing state at once): events.k8s.io folds events
+	// with the same reason, action and objects into one series and keeps
+	// the first note.
+	action string
 }
 
 func (p *pass) event(regarding, related runtime.Object, kind, reason, format string, args ...any) {
-	p.events = append(p.events, event{regarding, related, kind, reason, fmt.Sprintf(format, args...)})
+	p.events = append(p.events, event{regarding, related, kind, reason, fmt.Sprintf(format, args...), "Reconcile"})
+}
+
+// eventFor is event with an action naming what it is about.
+func (p *pass) eventFor(action string, regarding, related runtime.Object, kind, reason, format string, args ...any) {
+	p.events = append(p.events, event{regarding, related, kind, reason, fmt.Sprintf(format, args...), action})
 }
 
 // setPhase moves a version to a phase with a reason and a message.
@@ -133,11 +154,25 @@ var errJobNameTaken = errors.New("job name taken")
 // undoes failed rollouts, turns a person's retrain request into a version,
 // takes the active version one step, and prunes history.
 func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	// Triggers are evaluated on a suspended line too: that is reporting,
+	// not acting.
+	firing := r.evaluateTriggers(ctx, line, p)
+	if line.Spec.Suspend {
+		return nil
+	}
 	settle(line, vw, p)
 	if err := r.revertFailedRollouts(ctx, line, vw, p); err != nil {
 		return err
 	}
+	// A person's request first, then the schedule, then the triggers: each
+	// later one sees a version the earlier started as in flight.
 	if err := r.handleRetrainRequest(ctx, line, vw, p); err != nil {
+		return err
+	}
+	if err := r.handleSchedule(ctx, line, vw, p); err != nil {
+		return err
+	}
+	if err := r.handleTriggers(ctx, line, vw, p, firing); err != nil {
 		return err
 	}
 	if v := vw.active(); v != nil {
@@ -205,16 +240,12 @@ func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1
 		p.event(line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "retrain request %q: the line has no spec.training", token)
 		return nil
 	}
-	v, err := r.StartVersion(ctx, line, vw, p, v1alpha1.ReasonManual, token)
-	if err != nil {
+	settled, err := r.tryStart(ctx, line, vw, p, pathManual, v1alpha1.ReasonManual, token)
+	if err != nil || !settled {
+		// Not settled: the checks could not be judged; the token waits.
 		return err
 	}
 	line.Status.LastRetrainRequest = token
-	queued := ""
-	if a := vw.active(); a != nil && a != v {
-		queued = fmt.Sprintf("; it waits for %s (%s)", a.Name, a.Status.Phase)
-	}
-	p.event(line, v, corev1.EventTypeNormal, "RetrainRequested", "retrain request %q created version %s%s", token, v.Name, queued)
 	return nil
 }
 
@@ -257,6 +288,9 @@ func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.M
 		return nil, fmt.Errorf("version name %s is taken by a version of line %q", name, v.Spec.Line)
 	}
 	line.Status.VersionCount = max(line.Status.VersionCount, n)
+	if t := line.Status.LastRetrainTime; t == nil || t.Before(&p.now) {
+		line.Status.LastRetrainTime = p.now.DeepCopy()
+	}
 	if vw.version(v.Name) == nil {
 		vw.versions = append(vw.versions, v)
 	}
@@ -772,7 +806,8 @@ func (r *ModelLineReconciler) prune(ctx context.Context, line *v1alpha1.ModelLin
 		if err := r.Delete(ctx, v, client.Preconditions{UID: &v.UID}); client.IgnoreNotFound(err) != nil {
 			return fmt.Errorf("prune version %s: %w", v.Name, err)
 		}
-		p.deleted[v.Name] = true
+		now := p.now
+		v.DeletionTimestamp = &now
 		p.event(line, nil, corev1.EventTypeNormal, "Pruned", "deleted %s version %s: history keeps %d finished versions (spec.historyLimit)", v.Status.Phase, v.Name, limit)
 	}
 	return nil

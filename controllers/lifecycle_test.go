@@ -367,7 +367,7 @@ func TestViewActiveAndLive(t *testing.T) {
 		t.Errorf("active %v, want v4: the oldest in flight, rule-based excluded", vw.active().Name)
 	}
 
-	p := &pass{now: metav1.NewTime(time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC)), deleted: map[string]bool{}}
+	p := &pass{now: metav1.NewTime(time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC))}
 	settle(&v1alpha1.ModelLine{}, vw, p)
 	if v1.Status.Phase != v1alpha1.PhaseArchived || v1.Status.ArchivedTime == nil || v2.Status.Phase != v1alpha1.PhaseLive {
 		t.Errorf("after settle: v1 %s, v2 %s", v1.Status.Phase, v2.Status.Phase)

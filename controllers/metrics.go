@@ -6,6 +6,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/trigger"
 )
 
 // lineConditionTypes are the conditions exported per line.
@@ -55,6 +56,36 @@ var (
 		Help: "1 for the version a line serves, labelled with its name and source.",
 	}, []string{"namespace", "line", "version", "source"})
 
+	triggerValue = prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "plumbline_trigger_value",
+		Help: "The value a trigger's query gave at its last evaluation (the deciding series' latest point); NaN when none.",
+	}, []string{"namespace", "line", "trigger"})
+
+	triggerState = prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "plumbline_trigger_state",
+		Help: "1 for a trigger's current state (Inactive, Pending, Firing, Unknown), 0 for the others.",
+	}, []string{"namespace", "line", "trigger", "state"})
+
+	triggerEvaluations = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_trigger_evaluations_total",
+		Help: "Trigger evaluations (one range query each), by the state found.",
+	}, []string{"namespace", "line", "trigger", "state"})
+
+	retrainDecisions = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_retrain_decisions_total",
+		Help: "Decisions on whether to start a retrain, by path (Manual, Schedule, Trigger) and outcome (Started, DataQualityIssue, DegradedWithoutDrift, InsufficientData, ChecksUnknown, InFlight, Cooldown).",
+	}, []string{"namespace", "line", "path", "outcome"})
+
+	scheduleMissed = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_schedule_missed_total",
+		Help: "Scheduled starts that never ran (missed while the controller was down, or past the starting deadline).",
+	}, []string{"namespace", "line"})
+
+	lineReconciles = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_line_reconciles_total",
+		Help: "Passes of the controller over a line; a steady rate with nothing changing would mean a retry loop.",
+	}, []string{"namespace", "line"})
+
 	lastPromotion = prometheus.NewGaugeVec(prometheus.GaugeOpts{
 		Name: "plumbline_last_promotion_timestamp_seconds",
 		Help: "When a version last went live on the line, in Unix seconds; time() minus this is the time since.",
@@ -63,7 +94,8 @@ var (
 
 func init() {
 	metrics.Registry.MustRegister(lineCondition, retrainsStarted, retrainsFinished, gateDecisions,
-		promotions, rolloutFailures, liveVersion, lastPromotion)
+		promotions, rolloutFailures, liveVersion, lastPromotion, triggerValue, triggerState,
+		triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles)
 }
 
 // recordLineMetrics exports the gauges that describe a line as it is.
@@ -89,7 +121,36 @@ func forgetLineMetrics(namespace, name string) {
 	labels := prometheus.Labels{"namespace": namespace, "line": name}
 	for _, v := range []interface {
 		DeletePartialMatch(prometheus.Labels) int
-	}{lineCondition, retrainsStarted, retrainsFinished, gateDecisions, promotions, rolloutFailures, liveVersion, lastPromotion} {
+	}{lineCondition, retrainsStarted, retrainsFinished, gateDecisions, promotions, rolloutFailures, liveVersion, lastPromotion,
+		triggerValue, triggerState, triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles} {
 		v.DeletePartialMatch(labels)
+	}
+}
+
+var triggerStates = []v1alpha1.TriggerState{v1alpha1.TriggerInactive, v1alpha1.TriggerPending, v1alpha1.TriggerFiring, v1alpha1.TriggerUnknown}
+
+// recordTrigger exports a trigger evaluation.
+func recordTrigger(line *v1alpha1.ModelLine, name string, res trigger.Result) {
+	triggerValue.WithLabelValues(line.Namespace, line.Name, name).Set(res.Value)
+	for _, s := range triggerStates {
+		v := 0.0
+		if s == res.State {
+			v = 1
+		}
+		triggerState.WithLabelValues(line.Namespace, line.Name, name, string(s)).Set(v)
+	}
+	triggerEvaluations.WithLabelValues(line.Namespace, line.Name, name, string(res.State)).Inc()
+}
+
+// forgetRemovedTriggers drops the series of triggers no longer in the spec.
+func forgetRemovedTriggers(line *v1alpha1.ModelLine, kept []v1alpha1.TriggerStatus) {
+	for _, old := range line.Status.Triggers {
+		if findTrigger(kept, old.Name) != nil {
+			continue
+		}
+		labels := prometheus.Labels{"namespace": line.Namespace, "line": line.Name, "trigger": old.Name}
+		triggerValue.DeletePartialMatch(labels)
+		triggerState.DeletePartialMatch(labels)
+		triggerEvaluations.DeletePartialMatch(labels)
 	}
 }

@@ -13,7 +13,9 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/client-go/tools/events"
-	"k8s.io/utils/clock"
+	"sync"
+	"time"
+
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/builder"
 	"sigs.k8s.io/controller-runtime/pkg/client"
@@ -23,6 +25,8 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/reconcile"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/clock"
+	"plumbline.dev/plumbline/internal/promq"
 	"plumbline.dev/plumbline/internal/speccheck"
 )
 
@@ -51,8 +55,17 @@ type ModelLineReconciler struct {
 	// APIReader reads past the cache: Pods (which are not cached) and objects
 	// just created, which the cache may not hold yet.
 	APIReader client.Reader
-	Clock     clock.PassiveClock
+	Clock     clock.Clock
 	Recorder  events.EventRecorder
+	// Prometheus answers the triggers' and checks' queries.
+	Prometheus promq.Querier
+	// Coverage is the share of a trigger window's points that must be
+	// present for the trigger to be judged; zero means 0.8.
+	Coverage float64
+
+	evals evaluations
+	// written is the resourceVersion of each line's last status write.
+	written sync.Map
 }
 
 // lineObservation is what one pass read about a line from the cluster,
@@ -78,11 +91,16 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 	if err := r.Get(ctx, req.NamespacedName, &line); err != nil {
 		if apierrors.IsNotFound(err) {
 			forgetLineMetrics(req.Namespace, req.Name)
+			r.evals.forget(req.NamespacedName)
 			return ctrl.Result{}, nil
 		}
 		return ctrl.Result{}, fmt.Errorf("get ModelLine %s: %w", req.NamespacedName, err)
 	}
+	if err := r.fresh(ctx, &line); err != nil {
+		return ctrl.Result{}, err
+	}
 	orig := line.DeepCopy()
+	lineReconciles.WithLabelValues(line.Namespace, line.Name).Inc()
 
 	obs, vw, err := r.observe(ctx, &line)
 	if err != nil {
@@ -92,11 +110,11 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 	}
 	before := snapshot(vw.versions)
 
-	p := &pass{now: metav1.NewTime(r.Clock.Now()), deleted: map[string]bool{}}
+	p := &pass{now: metav1.NewTime(r.Clock.Now())}
 	ready := readyCondition(line.Spec.Suspend, obs)
 	readyChanged := setCondition(&line.Status.Conditions, ready, line.Generation, p.now)
 	var advanceErr error
-	if ready.Status == metav1.ConditionTrue && !line.Spec.Suspend {
+	if ready.Status == metav1.ConditionTrue {
 		advanceErr = r.advance(ctx, &line, vw, p)
 	}
 	summarize(&line, vw, p.now)
@@ -106,28 +124,86 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 
 	// Versions first: a line's summary is derived from them, so a crash
 	// between the two writes is mended by the next pass.
-	if err := r.writeVersions(ctx, vw, before, p); err != nil {
-		return ctrl.Result{}, err
-	}
-	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
-		if err := r.Status().Patch(ctx, &line, client.MergeFrom(orig)); err != nil {
-			return ctrl.Result{}, fmt.Errorf("write status of ModelLine %s: %w", req.NamespacedName, err)
+	written, err := r.writeVersions(ctx, vw, before)
+	if err == nil && !equality.Semantic.DeepEqual(orig.Status, line.Status) {
+		// The optimistic lock refuses a write computed from a stale copy;
+		// the pass is then redone on fresh data.
+		err = r.Status().Patch(ctx, &line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{}))
+		if err == nil {
+			r.written.Store(req.NamespacedName, line.ResourceVersion)
+		} else {
+			err = fmt.Errorf("write status of ModelLine %s: %w", req.NamespacedName, err)
 		}
 	}
+	if err != nil {
+		// Tell what the written versions went through; the rest is
+		// recomputed by the pass that follows.
+		r.emit(p, written)
+		if apierrors.IsConflict(err) {
+			log.FromContext(ctx).V(1).Info("status write raced another change; redoing the pass", "error", err.Error())
+			return ctrl.Result{RequeueAfter: conflictRetry}, nil
+		}
+		return ctrl.Result{}, err
+	}
+	r.evals.done(req.NamespacedName, line.Generation, p.evaluated, p.now.Time)
 	if readyChanged {
 		r.eventForReady(orig, &line)
 	}
-	for _, e := range p.events {
-		r.Recorder.Eventf(e.regarding, e.related, e.kind, e.reason, "Reconcile", "%s", e.message)
-	}
+	r.emit(p, nil)
 	for _, m := range p.metrics {
 		m()
 	}
 	recordLineMetrics(&line, vw.live())
-	// Nothing here changes with time alone: the next pass comes from a change
-	// to the line, its Deployment, its versions or their Jobs, never from a
-	// retry loop.
-	return ctrl.Result{}, advanceErr
+	// The next pass comes from a change to the line, its Deployment, its
+	// versions or their Jobs, or when a trigger or a scheduled start is due;
+	// never from a retry loop.
+	return ctrl.Result{RequeueAfter: r.requeue(p)}, advanceErr
+}
+
+// requeue turns the pass's wake time into the real time to wait.
+func (r *ModelLineReconciler) requeue(p *pass) time.Duration {
+	if p.wake.IsZero() {
+		return 0
+	}
+	d := r.Clock.Delay(p.wake.Sub(p.now.Time))
+	if d < time.Second {
+		d = time.Second
+	}
+	return d
+}
+
+// conflictRetry is how soon a pass whose write raced another change is
+// redone.
+const conflictRetry = 200 * time.Millisecond
+
+// fresh makes sure the pass starts from the line as it is after this
+// controller's own last write: the cache can lag behind it, and a pass on a
+// stale copy would redo what was done. When the cached copy is not the one
+// last written, the line is read from the API server.
+func (r *ModelLineReconciler) fresh(ctx context.Context, line *v1alpha1.ModelLine) error {
+	key := client.ObjectKeyFromObject(line)
+	rv, ok := r.written.Load(key)
+	if !ok || rv == line.ResourceVersion {
+		return nil
+	}
+	if err := r.APIReader.Get(ctx, key, line); err != nil {
+		return fmt.Errorf("read ModelLine %s: %w", key, err)
+	}
+	return nil
+}
+
+// emit sends the pass's events. With only set, only the events about those
+// versions go out (their statuses were written; the rest was not).
+func (r *ModelLineReconciler) emit(p *pass, only map[string]bool) {
+	for _, e := range p.events {
+		if only != nil {
+			v, ok := e.regarding.(*v1alpha1.ModelVersion)
+			if !ok || !only[v.Name] {
+				continue
+			}
+		}
+		r.Recorder.Eventf(e.regarding, e.related, e.kind, e.reason, e.action, "%s", e.message)
+	}
 }
 
 // snapshot copies the versions' statuses before a pass changes them.
@@ -140,9 +216,10 @@ func snapshot(vs []*v1alpha1.ModelVersion) map[string]v1alpha1.ModelVersionStatu
 }
 
 // writeVersions writes the status of each version the pass changed, once.
-func (r *ModelLineReconciler) writeVersions(ctx context.Context, vw *view, before map[string]v1alpha1.ModelVersionStatus, p *pass) error {
+func (r *ModelLineReconciler) writeVersions(ctx context.Context, vw *view, before map[string]v1alpha1.ModelVersionStatus) (map[string]bool, error) {
+	written := map[string]bool{}
 	for _, v := range vw.versions {
-		if p.deleted[v.Name] {
+		if v.DeletionTimestamp != nil {
 			continue
 		}
 		old := before[v.Name] // a version created in this pass had none
@@ -152,11 +229,12 @@ func (r *ModelLineReconciler) writeVersions(ctx context.Context, vw *view, befor
 		v.Status.ObservedGeneration = v.Generation
 		base := v.DeepCopy()
 		base.Status = old
-		if err := r.Status().Patch(ctx, v, client.MergeFrom(base)); err != nil {
-			return fmt.Errorf("write status of ModelVersion %s/%s: %w", v.Namespace, v.Name, err)
+		if err := r.Status().Patch(ctx, v, client.MergeFromWithOptions(base, client.MergeFromWithOptimisticLock{})); err != nil {
+			return written, fmt.Errorf("write status of ModelVersion %s/%s: %w", v.Namespace, v.Name, err)
 		}
+		written[v.Name] = true
 	}
-	return nil
+	return written, nil
 }
 
 // observe reads the serving Deployment, the line's versions and Jobs, and

@@ -8,7 +8,7 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/client-go/tools/events"
-	"k8s.io/utils/clock"
+	"plumbline.dev/plumbline/internal/clock"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/controller/controllerutil"
@@ -28,7 +28,7 @@ import (
 // ModelVersionReconciler ties each version to its line and reports its phase.
 type ModelVersionReconciler struct {
 	client.Client
-	Clock    clock.PassiveClock
+	Clock    clock.Clock
 	Recorder events.EventRecorder
 }
 

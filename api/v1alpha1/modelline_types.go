@@ -514,7 +514,8 @@ type ModelLineStatus struct {
 	// +kubebuilder:validation:MaxLength=253
 	ActiveVersion string `json:"activeVersion,omitempty"`
 
-	// lastRetrainTime is when the last retrain started.
+	// lastRetrainTime is when the last retrain was started, whatever asked for
+	// it; triggers wait cooldownSeconds after it.
 	// +optional
 	LastRetrainTime *metav1.Time `json:"lastRetrainTime,omitempty"`
 
@@ -522,7 +523,8 @@ type ModelLineStatus struct {
 	// +optional
 	LastPromotionTime *metav1.Time `json:"lastPromotionTime,omitempty"`
 
-	// lastScheduleTime is the last scheduled start that was acted on.
+	// lastScheduleTime is the last scheduled start that was acted on (started,
+	// skipped or refused), or when the controller first saw the schedule.
 	// +optional
 	LastScheduleTime *metav1.Time `json:"lastScheduleTime,omitempty"`
 

@@ -28,13 +28,17 @@ import (
 	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
 	"k8s.io/apimachinery/pkg/types"
 	utilyaml "k8s.io/apimachinery/pkg/util/yaml"
+	clocktesting "k8s.io/utils/clock/testing"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
+	ctrlmetrics "sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/clock"
 	"plumbline.dev/plumbline/internal/controlplane"
 	"plumbline.dev/plumbline/internal/manager"
+	"plumbline.dev/plumbline/internal/promserver"
 	"plumbline.dev/plumbline/internal/standin"
 )
 
@@ -59,7 +63,7 @@ func Run(ctx context.Context, o Options, out io.Writer) error {
 	if o.StepTimeout == 0 {
 		o.StepTimeout = 60 * time.Second
 	}
-	d := &player{out: out, start: time.Now(), timeout: o.StepTimeout, seen: map[types.UID]bool{}}
+	d := &player{out: out, timeout: o.StepTimeout, seen: map[types.UID]bool{}, clock: clocktesting.NewFakePassiveClock(storyStart)}
 	work, err := filepath.Abs(o.WorkDir)
 	if err != nil {
 		return fmt.Errorf("work directory %q: %w", o.WorkDir, err)
@@ -80,7 +84,17 @@ func Run(ctx context.Context, o Options, out io.Writer) error {
 			fmt.Fprintf(out, "demo: %v\n", err)
 		}
 	}()
-	d.say("Control plane up, CRDs installed. To watch along in another terminal:")
+	promDir := filepath.Join(work, "prometheus")
+	if err := os.RemoveAll(promDir); err != nil {
+		return fmt.Errorf("clear %s: %w", promDir, err)
+	}
+	d.say("Starting Prometheus with eleven days of synthetic Larkspur monitoring history ...")
+	prom, err := promserver.Start(promDir, history())
+	if err != nil {
+		return err
+	}
+	defer prom.Stop()
+	d.say("Control plane up, CRDs installed, Prometheus at " + prom.URL + ". To watch along in another terminal:")
 	fmt.Fprintf(out, "\n    export KUBECONFIG=%s\n    kubectl get modellines,modelversions -n %s -w\n\n", env.KubeconfigPath, namespace)
 
 	logPath := filepath.Join(work, "manager.log")
@@ -96,7 +110,8 @@ func Run(ctx context.Context, o Options, out io.Writer) error {
 		return err
 	}
 	mctx, stopManager := context.WithCancel(ctx)
-	mgr, err := manager.New(mctx, env.Config, manager.Options{MetricsAddr: metricsAddr, ProbeAddr: "0"})
+	mgr, err := manager.New(mctx, env.Config, manager.Options{MetricsAddr: metricsAddr, ProbeAddr: "0",
+		PrometheusURL: prom.URL, Clock: clock.Manual{PassiveClock: d.clock}})
 	if err != nil {
 		stopManager()
 		return err
@@ -135,15 +150,16 @@ type player struct {
 	ctx     context.Context
 	c       client.Client
 	out     io.Writer
-	start   time.Time
 	timeout time.Duration
+	// clock is the controller's clock; the demo moves it through the story,
+	// and the timeline shows it.
+	clock *clocktesting.FakePassiveClock
 	// seen are the events already printed.
 	seen map[types.UID]bool
 }
 
 func (d *player) say(msg string) {
-	el := time.Since(d.start).Round(time.Second)
-	fmt.Fprintf(d.out, "[%02d:%02d] %s\n", int(el.Minutes()), int(el.Seconds())%60, msg)
+	fmt.Fprintf(d.out, "[%s] %s\n", d.clock.Now().Format("Mon 15:04"), msg)
 }
 
 func (d *player) step(n int, title string) {
@@ -218,11 +234,13 @@ func (d *player) story(samples string) error {
 	return d.lifecycle(lineKey)
 }
 
-// lifecycle takes the line through its first promotion, a retrain that
-// passes the gate and one that does not.
+// lifecycle takes the line through its first promotion, a drop in quality
+// that fires a trigger (first refused on broken data, then retrained and
+// promoted), and a person's retrain that the gate rejects.
 func (d *player) lifecycle(lineKey types.NamespacedName) error {
 	fmt.Fprintln(d.out, "\n   This control plane runs no kubelet and no Job or Deployment controller, so the demo")
-	fmt.Fprintln(d.out, "   plays their part: it finishes Jobs and rollouts the way they would.")
+	fmt.Fprintln(d.out, "   plays their part: it finishes Jobs and rollouts the way they would. It also moves the")
+	fmt.Fprintln(d.out, "   controller's clock through the story, and Prometheus answers from the backfilled history.")
 
 	d.step(5, "The imported model becomes the first live version")
 	if err := d.waitPhase("late-risk-v0", v1alpha1.PhasePromoting); err != nil {
@@ -235,19 +253,30 @@ func (d *player) lifecycle(lineKey types.NamespacedName) error {
 		return err
 	}
 
-	d.step(6, "The new Fenwick depot opens; an engineer asks for a retrain")
-	if err := d.annotate(lineKey, "fenwick-depot-opened"); err != nil {
+	d.step(6, "Tuesday 02:00 the new Fenwick depot opens: quality falls, and the address feed breaks for a while")
+	fmt.Fprintln(d.out, "   (the clock moves in half-hour steps; the triggers are judged on Prometheus at each)")
+	started, err := d.fastForward(lineKey, storyStart.Add(30*time.Minute), time.Date(2026, 11, 3, 12, 0, 0, 0, time.UTC), func() (bool, error) {
+		var v v1alpha1.ModelVersion
+		err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-v1"}, &v)
+		return err == nil, client.IgnoreNotFound(err)
+	})
+	if err != nil {
 		return err
+	}
+	if !started {
+		return fmt.Errorf("the auc-drop trigger started no retrain by Tuesday noon")
 	}
 	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseTraining); err != nil {
 		return err
 	}
+	d.clock.SetTime(time.Date(2026, 11, 3, 12, 40, 0, 0, time.UTC))
 	if err := d.act("training Job late-risk-v1-train completes", standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v1-train", "")); err != nil {
 		return err
 	}
 	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseEvaluating); err != nil {
 		return err
 	}
+	d.clock.SetTime(time.Date(2026, 11, 3, 13, 10, 0, 0, time.UTC))
 	if err := d.act("evaluation Job late-risk-v1-gate reports (synthetic numbers: better everywhere)",
 		standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v1-gate", goodReport())); err != nil {
 		return err
@@ -255,6 +284,7 @@ func (d *player) lifecycle(lineKey types.NamespacedName) error {
 	if err := d.waitPhase("late-risk-v1", v1alpha1.PhasePromoting); err != nil {
 		return err
 	}
+	d.clock.SetTime(time.Date(2026, 11, 3, 13, 20, 0, 0, time.UTC))
 	if err := d.act("the scorer Deployment rolls out late-risk-v1", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v1", d.timeout)); err != nil {
 		return err
 	}
@@ -262,24 +292,87 @@ func (d *player) lifecycle(lineKey types.NamespacedName) error {
 		return err
 	}
 
-	d.step(7, "A week later another retrain: worse on the harbour depot, so the gate rejects it")
-	if err := d.annotate(lineKey, "weekly-review-47"); err != nil {
+	d.step(7, "Wednesday: quality is back; an engineer asks for a retrain, and the gate rejects it")
+	if _, err := d.fastForward(lineKey, time.Date(2026, 11, 4, 10, 0, 0, 0, time.UTC), time.Date(2026, 11, 4, 10, 0, 0, 0, time.UTC), nil); err != nil {
+		return err
+	}
+	if err := d.annotate(lineKey, "weekly-review-45"); err != nil {
 		return err
 	}
 	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseTraining); err != nil {
 		return err
 	}
+	d.clock.SetTime(time.Date(2026, 11, 4, 11, 30, 0, 0, time.UTC))
 	if err := d.act("training Job late-risk-v2-train completes", standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v2-train", "")); err != nil {
 		return err
 	}
 	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseEvaluating); err != nil {
 		return err
 	}
+	d.clock.SetTime(time.Date(2026, 11, 4, 12, 0, 0, 0, time.UTC))
 	if err := d.act("evaluation Job late-risk-v2-gate reports (synthetic numbers: harbour-depot recall drops)",
 		standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v2-gate", harbourRegressionReport())); err != nil {
 		return err
 	}
 	return d.waitPhase("late-risk-v2", v1alpha1.PhaseRejected)
+}
+
+// fastForward moves the controller's clock from one time to another in
+// half-hour steps, waking the line at each and waiting until it has judged
+// its triggers there; it stops early when done says so.
+func (d *player) fastForward(key types.NamespacedName, from, to time.Time, done func() (bool, error)) (bool, error) {
+	for t := from; !t.After(to); t = t.Add(30 * time.Minute) {
+		before := evaluations(key)
+		d.clock.SetTime(t)
+		patch := fmt.Sprintf(`{"metadata":{"annotations":{"demo.plumbline.dev/clock":%q}}}`, t.Format(time.RFC3339))
+		line := &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: key.Namespace, Name: key.Name}}
+		if err := d.c.Patch(d.ctx, line, client.RawPatch(types.MergePatchType, []byte(patch))); err != nil {
+			return false, fmt.Errorf("wake the line: %w", err)
+		}
+		err := d.wait("the triggers to be judged at "+t.Format("Mon 15:04"), func() (bool, error) {
+			return evaluations(key) > before, nil
+		})
+		if err != nil {
+			return false, err
+		}
+		if done != nil {
+			ok, err := done()
+			if err != nil || ok {
+				return ok, err
+			}
+		}
+	}
+	return false, d.printEvents()
+}
+
+// evaluations counts the line's trigger evaluations, from the manager's
+// metrics (the manager runs in this process).
+func evaluations(key types.NamespacedName) float64 {
+	families, err := ctrlmetrics.Registry.Gather()
+	if err != nil {
+		return 0
+	}
+	sum := 0.0
+	for _, f := range families {
+		if f.GetName() != "plumbline_trigger_evaluations_total" {
+			continue
+		}
+		for _, m := range f.GetMetric() {
+			ns, line := "", ""
+			for _, l := range m.GetLabel() {
+				switch l.GetName() {
+				case "namespace":
+					ns = l.GetValue()
+				case "line":
+					line = l.GetValue()
+				}
+			}
+			if ns == key.Namespace && line == key.Name {
+				sum += m.GetCounter().GetValue()
+			}
+		}
+	}
+	return sum
 }
 
 const scorer = "late-risk-scorer"
@@ -462,14 +555,14 @@ func (d *player) summary(metricsAddr string) error {
 		fmt.Fprintf(d.out, "\nThe scorer Deployment serves %s (%s=%s).\n", modelURI(&dep), v1alpha1.VersionAnnotation, dep.Spec.Template.Annotations[v1alpha1.VersionAnnotation])
 	}
 
-	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition", "plumbline_live_version_info", "plumbline_gate_decisions_total", "plumbline_promotions_total")
+	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition", "plumbline_live_version_info",
+		"plumbline_gate_decisions_total", "plumbline_promotions_total", "plumbline_trigger_state", "plumbline_retrain_decisions_total")
 	if err != nil {
 		return err
 	}
 	fmt.Fprintf(d.out, "\nWhat Prometheus would scrape from the manager:\n%s\n", metrics)
-	fmt.Fprintln(d.out, "\nNot in this build yet: schedules and Prometheus triggers, the checks before a retrain,")
-	fmt.Fprintln(d.out, "the guard and rollback after a promotion, and plumbline evaluate (the gate reports above")
-	fmt.Fprintln(d.out, "are synthetic numbers written by the demo).")
+	fmt.Fprintln(d.out, "\nNot in this build yet: the guard and rollback after a promotion, and plumbline evaluate")
+	fmt.Fprintln(d.out, "(the gate reports above are synthetic numbers written by the demo).")
 	return nil
 }
 
@@ -504,6 +597,9 @@ func scrape(ctx context.Context, url string, metrics ...string) (string, error) 
 	for _, m := range metrics {
 		found := false
 		for _, l := range strings.Split(string(body), "\n") {
+			if m == "plumbline_trigger_state" && strings.HasSuffix(l, " 0") {
+				continue // one-hot: show the state each trigger is in
+			}
 			if strings.HasPrefix(l, m+"{") && strings.Contains(l, `namespace="`+namespace+`"`) {
 				keep = append(keep, "    "+l)
 				found = true

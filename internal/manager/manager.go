@@ -8,6 +8,7 @@ import (
 	"context"
 	"fmt"
 	"net/url"
+	"time"
 
 	batchv1 "k8s.io/api/batch/v1"
 	"k8s.io/apimachinery/pkg/labels"
@@ -15,7 +16,7 @@ import (
 	"k8s.io/apimachinery/pkg/selection"
 	clientgoscheme "k8s.io/client-go/kubernetes/scheme"
 	"k8s.io/client-go/rest"
-	"k8s.io/utils/clock"
+
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/cache"
 	"sigs.k8s.io/controller-runtime/pkg/client"
@@ -25,6 +26,8 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/controllers"
+	"plumbline.dev/plumbline/internal/clock"
+	"plumbline.dev/plumbline/internal/promq"
 )
 
 // ControllerName is the name plumbline reports events and leases under.
@@ -46,8 +49,13 @@ type Options struct {
 	PrometheusURL string
 	// Namespaces limits the manager to these namespaces; empty means all.
 	Namespaces []string
+	// PrometheusTimeout bounds each query; zero means 10s.
+	PrometheusTimeout time.Duration
+	// TriggerCoverage is the share of a trigger window's points that must be
+	// present for it to be judged; zero means 0.8.
+	TriggerCoverage float64
 	// Clock is the time source; nil means the real clock.
-	Clock clock.PassiveClock
+	Clock clock.Clock
 	// AllowSecondManager lets a process build another manager after stopping
 	// one (controller names must otherwise be unique per process): the demo
 	// and the restart tests do.
@@ -74,6 +82,9 @@ func (o Options) Validate() error {
 			return fmt.Errorf("--prometheus-url %q: want an http(s) URL such as http://prometheus.monitoring:9090", o.PrometheusURL)
 		}
 	}
+	if o.TriggerCoverage < 0 || o.TriggerCoverage > 1 {
+		return fmt.Errorf("--trigger-coverage %v: want a share between 0 and 1, such as 0.8", o.TriggerCoverage)
+	}
 	return nil
 }
 
@@ -88,7 +99,19 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	}
 	clk := o.Clock
 	if clk == nil {
-		clk = clock.RealClock{}
+		clk = clock.Real{}
+	}
+	var prom promq.Querier = promq.None{}
+	if o.PrometheusURL != "" {
+		timeout := o.PrometheusTimeout
+		if timeout == 0 {
+			timeout = 10 * time.Second
+		}
+		c, err := promq.New(o.PrometheusURL, timeout)
+		if err != nil {
+			return nil, err
+		}
+		prom = c
 	}
 	// The manager caches only the Jobs it made (they carry the line label),
 	// not every Job in the cluster.
@@ -129,7 +152,8 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	}
 
 	recorder := mgr.GetEventRecorder(ControllerName)
-	lines := &controllers.ModelLineReconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder}
+	lines := &controllers.ModelLineReconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
+		Prometheus: prom, Coverage: o.TriggerCoverage}
 	if err := lines.SetupWithManager(ctx, mgr); err != nil {
 		return nil, fmt.Errorf("set up ModelLine controller: %w", err)
 	}

@@ -47,7 +47,9 @@ func larkspurDeployment(ns string) *appsv1.Deployment {
 // liveLine sets up the Larkspur line in its own namespace with its imported
 // first version live: the Deployment, the rule-based fallback, the line
 // (mutated as asked) and the Imported version, whose rollout the test plays
-// out. It returns the line's key.
+// out. It returns the line's key. The line starts without schedule, triggers
+// and checks, which the trigger tests give it with their own queries: the
+// lifecycle tests start retrains by hand.
 func liveLine(t *testing.T, ns string, mutate func(*unstructured.Unstructured)) client.ObjectKey {
 	t.Helper()
 	ctx := context.Background()
@@ -64,6 +66,9 @@ func liveLine(t *testing.T, ns string, mutate func(*unstructured.Unstructured)) 
 	}
 	line := sample(t, lineSample)
 	line.SetNamespace(ns)
+	for _, f := range []string{"spec.schedule", "spec.triggers", "spec.checks"} {
+		mustSet(t, line, f, nil)
+	}
 	if mutate != nil {
 		mutate(line)
 	}

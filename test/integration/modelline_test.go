@@ -13,7 +13,6 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/utils/ptr"
 	"sigs.k8s.io/controller-runtime/pkg/client"
-	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 )
@@ -74,30 +73,6 @@ func waitEvent(t *testing.T, namespace, name, reason string) eventsv1.Event {
 	return found
 }
 
-// reconcileCount reads controller-runtime's count of a controller's
-// reconciles, whatever their result.
-func reconcileCount(t *testing.T, controller string) float64 {
-	t.Helper()
-	families, err := metrics.Registry.Gather()
-	if err != nil {
-		t.Fatal(err)
-	}
-	total := 0.0
-	for _, f := range families {
-		if f.GetName() != "controller_runtime_reconcile_total" {
-			continue
-		}
-		for _, m := range f.GetMetric() {
-			for _, l := range m.GetLabel() {
-				if l.GetName() == "controller" && l.GetValue() == controller {
-					total += m.GetCounter().GetValue()
-				}
-			}
-		}
-	}
-	return total
-}
-
 func servingDeployment(namespace, name string, containers ...string) *appsv1.Deployment {
 	var cs []corev1.Container
 	for _, c := range containers {
@@ -150,11 +125,12 @@ func TestInvalidSpecCondition(t *testing.T) {
 	// No retry storm: with nothing changing, the line is not reconciled again
 	// and no second event appears.
 	time.Sleep(time.Second)
-	before := reconcileCount(t, "modelline")
+	lineLabels := map[string]string{"namespace": key.Namespace, "line": key.Name}
+	before := metricValue(t, "plumbline_line_reconciles_total", lineLabels)
 	rv := line.ResourceVersion
 	time.Sleep(3 * time.Second)
-	if after := reconcileCount(t, "modelline"); after != before {
-		t.Errorf("modelline reconciled %v more times with nothing changed", after-before)
+	if after := metricValue(t, "plumbline_line_reconciles_total", lineLabels); after != before {
+		t.Errorf("the line was reconciled %v more times with nothing changed", after-before)
 	}
 	if err := k8s.Get(ctx, key, line); err != nil {
 		t.Fatal(err)

@@ -26,8 +26,10 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
+	"plumbline.dev/plumbline/internal/clock"
 	"plumbline.dev/plumbline/internal/controlplane"
 	"plumbline.dev/plumbline/internal/manager"
+	"plumbline.dev/plumbline/internal/promserver"
 )
 
 var (
@@ -39,6 +41,10 @@ var (
 	repoRoot string
 	// kubeconfigPath is an admin kubeconfig, for kubectl.
 	kubeconfigPath string
+	// promServer is the test Prometheus; prometheusURL its address ("" when
+	// it is not installed and the trigger tests skip).
+	promServer    *promserver.Server
+	prometheusURL string
 )
 
 func TestMain(m *testing.M) {
@@ -107,6 +113,19 @@ func runSuite(m *testing.M) int {
 		fmt.Fprintf(os.Stderr, "integration: %v\n", err)
 		return 1
 	}
+	// A real Prometheus with the trigger scenarios' history.
+	prom, err := promserver.Start(filepath.Join(tmp, "prometheus"), triggerHistory())
+	switch {
+	case errors.Is(err, promserver.ErrNotInstalled) && os.Getenv("PLUMBLINE_REQUIRE_ENVTEST") == "":
+		fmt.Printf("integration: the trigger tests will skip: %v\n", err)
+	case err != nil:
+		fmt.Fprintf(os.Stderr, "integration: %v\n", err)
+		return 1
+	default:
+		promServer, prometheusURL = prom, prom.URL
+		defer prom.Stop()
+	}
+
 	managerConfig = rest.CopyConfig(env.Config)
 	managerConfig.Impersonate = rest.ImpersonationConfig{UserName: managerUser}
 
@@ -136,7 +155,8 @@ var running struct {
 // startManager starts a manager as plumbline manager would.
 func startManager() error {
 	ctx, cancel := context.WithCancel(context.Background())
-	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clk, AllowSecondManager: true})
+	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clock.Manual{PassiveClock: clk},
+		AllowSecondManager: true, PrometheusURL: prometheusURL})
 	if err != nil {
 		cancel()
 		return err

@@ -1,0 +1,487 @@
+package controllers
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"strings"
+	"sync"
+	"time"
+
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/promq"
+	"plumbline.dev/plumbline/internal/schedule"
+	"plumbline.dev/plumbline/internal/text"
+	"plumbline.dev/plumbline/internal/trigger"
+)
+
+// The paths by which a retrain is asked for.
+const (
+	pathManual   = "Manual"
+	pathSchedule = "Schedule"
+	pathTrigger  = "Trigger"
+)
+
+// Outcomes of the decision whether to start a retrain.
+const (
+	outcomeStarted       = "Started"
+	outcomeDataQuality   = "DataQualityIssue"
+	outcomeNoDrift       = "DegradedWithoutDrift"
+	outcomeInsufficient  = "InsufficientData"
+	outcomeChecksUnknown = "ChecksUnknown"
+	outcomeInFlight      = "InFlight"
+	outcomeCooldown      = "Cooldown"
+)
+
+// checkRetry is how soon a start whose checks could not be judged (Prometheus
+// unreachable, no data) is tried again.
+const checkRetry = 30 * time.Second
+
+// evaluations remembers when each trigger of each line was last evaluated,
+// so a pass that comes early (a Job or a Deployment changed) does not query
+// Prometheus again: each trigger is queried once per everySeconds. A new
+// generation of the line (an edited trigger) is evaluated at once. After a
+// restart every trigger is evaluated once at start-up; its window is in
+// Prometheus, so nothing is lost.
+type evaluations struct {
+	mu    sync.Mutex
+	lines map[types.NamespacedName]*lineEvals
+}
+
+type lineEvals struct {
+	generation int64
+	at         map[string]time.Time
+}
+
+func (e *evaluations) get(key types.NamespacedName, generation int64) *lineEvals {
+	if e.lines == nil {
+		e.lines = map[types.NamespacedName]*lineEvals{}
+	}
+	le := e.lines[key]
+	if le == nil || le.generation != generation {
+		le = &lineEvals{generation: generation, at: map[string]time.Time{}}
+		e.lines[key] = le
+	}
+	return le
+}
+
+// due reports whether a trigger is due at now, and when it next will be.
+func (e *evaluations) due(key types.NamespacedName, generation int64, name string, every time.Duration, now time.Time) (bool, time.Time) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	last, ok := e.get(key, generation).at[name]
+	if !ok || !now.Before(last.Add(every)) {
+		return true, now.Add(every)
+	}
+	return false, last.Add(every)
+}
+
+// done records evaluations made at now. It is called once the pass that made
+// them has written its status: an evaluation whose result was lost (a write
+// that raced another change) is made again by the pass that follows.
+func (e *evaluations) done(key types.NamespacedName, generation int64, names []string, now time.Time) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	le := e.get(key, generation)
+	for _, n := range names {
+		le.at[n] = now
+	}
+}
+
+func (e *evaluations) forget(key types.NamespacedName) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	delete(e.lines, key)
+}
+
+func threshold(below, above *float64) trigger.Threshold {
+	return trigger.Threshold{Below: below, Above: above}
+}
+
+func seconds(n int32) time.Duration { return time.Duration(n) * time.Second }
+
+// evaluateTriggers runs each due trigger's range query and updates its
+// status. The status changes only when a trigger's state does; the value
+// seen each time goes to metrics. It returns the triggers found Firing in
+// this pass, in spec order.
+func (r *ModelLineReconciler) evaluateTriggers(ctx context.Context, line *v1alpha1.ModelLine, p *pass) []v1alpha1.TriggerSpec {
+	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
+	now := p.now.Time
+	var firing []v1alpha1.TriggerSpec
+	var statuses []v1alpha1.TriggerStatus
+	for _, tr := range line.Spec.Triggers {
+		prev := findTrigger(line.Status.Triggers, tr.Name)
+		every := seconds(tr.EverySeconds)
+		if every <= 0 {
+			every = time.Minute
+		}
+		due, next := r.evals.due(key, line.Generation, tr.Name, every, now)
+		if !due {
+			p.wakeAt(next)
+			if prev != nil {
+				statuses = append(statuses, *prev)
+			}
+			continue
+		}
+		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
+		series, err := r.Prometheus.Range(ctx, tr.Query, now.Add(-w.For), now, w.Step())
+		var res trigger.Result
+		if err != nil {
+			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
+		} else {
+			res = trigger.Judge(series, threshold(tr.Below, tr.Above), w, now)
+		}
+		p.evaluated = append(p.evaluated, tr.Name)
+		if !errors.Is(err, promq.ErrNotConfigured) {
+			// With no Prometheus at all nothing will change with time.
+			p.wakeAt(next)
+		}
+		recordTrigger(line, tr.Name, res)
+		st := nextTriggerStatus(prev, tr.Name, res, p.now)
+		statuses = append(statuses, st)
+		if prev == nil || prev.State != st.State {
+			p.eventFor("Trigger/"+tr.Name, line, nil, triggerEventType(st.State), "Trigger"+string(st.State), "trigger %s is %s: %s", tr.Name, st.State, st.Message)
+		}
+		if res.State == v1alpha1.TriggerFiring {
+			firing = append(firing, tr)
+		}
+	}
+	forgetRemovedTriggers(line, statuses)
+	line.Status.Triggers = statuses
+	return firing
+}
+
+func findTrigger(sts []v1alpha1.TriggerStatus, name string) *v1alpha1.TriggerStatus {
+	for i := range sts {
+		if sts[i].Name == name {
+			return &sts[i]
+		}
+	}
+	return nil
+}
+
+// nextTriggerStatus is a trigger's status after an evaluation: unchanged
+// while the state holds (so an evaluation that finds nothing new writes
+// nothing), and on a change the state, when it began, and the value, series
+// and message that decided it.
+func nextTriggerStatus(prev *v1alpha1.TriggerStatus, name string, res trigger.Result, now metav1.Time) v1alpha1.TriggerStatus {
+	if prev != nil && prev.State == res.State {
+		return *prev
+	}
+	since := now
+	if (res.State == v1alpha1.TriggerPending || res.State == v1alpha1.TriggerFiring) && !res.Since.IsZero() {
+		since = metav1.NewTime(res.Since)
+	}
+	return v1alpha1.TriggerStatus{
+		Name:    name,
+		State:   res.State,
+		Since:   &since,
+		Value:   promq.Format(res.Value),
+		Series:  text.Truncate(res.Series, 1024),
+		Message: text.Truncate(res.Message, 1024),
+	}
+}
+
+func triggerEventType(s v1alpha1.TriggerState) string {
+	if s == v1alpha1.TriggerFiring || s == v1alpha1.TriggerUnknown {
+		return corev1.EventTypeWarning
+	}
+	return corev1.EventTypeNormal
+}
+
+// check is the outcome of one PromQL check.
+type check struct {
+	kind, name string
+	known      bool
+	breached   bool
+	value      float64
+	series     string
+	err        string
+}
+
+func (c check) String() string {
+	where := ""
+	if c.series != "" && c.series != "{}" {
+		where = " " + c.series
+	}
+	if !c.known {
+		return fmt.Sprintf("%s check %s could not be judged: %s", c.kind, c.name, c.err)
+	}
+	return fmt.Sprintf("%s check %s%s is %s", c.kind, c.name, where, promq.Format(c.value))
+}
+
+// runCheck asks one instant query and judges it against a threshold: any
+// series breaching breaches; no series at all cannot be judged.
+func (r *ModelLineReconciler) runCheck(ctx context.Context, kind, name, query string, th trigger.Threshold, now time.Time) check {
+	c := check{kind: kind, name: name}
+	series, err := r.Prometheus.Instant(ctx, query, now)
+	if err != nil {
+		c.err = err.Error()
+		return c
+	}
+	var first *promq.Series
+	for i := range series {
+		s := &series[i]
+		if len(s.Points) == 0 || math.IsNaN(s.Points[0].V) {
+			continue
+		}
+		if first == nil {
+			first = s
+		}
+		if th.Breached(s.Points[0].V) {
+			c.known, c.breached, c.value, c.series = true, true, s.Points[0].V, s.Labels
+			return c
+		}
+	}
+	if first == nil {
+		c.err = "the query returned no value"
+		return c
+	}
+	c.known, c.value, c.series = true, first.Points[0].V, first.Labels
+	return c
+}
+
+// checkResults are the outcomes of a line's checks before a start.
+type checkResults struct {
+	dataQuality []check
+	drift       []check
+	freshData   *check // nil when the line has no freshData check
+	atLeast     float64
+}
+
+// runChecks runs the checks a path needs: data quality always, drift only
+// for a trigger, fresh data always. Each is one instant query.
+func (r *ModelLineReconciler) runChecks(ctx context.Context, line *v1alpha1.ModelLine, path string, now time.Time) checkResults {
+	var res checkResults
+	c := line.Spec.Checks
+	if c == nil {
+		return res
+	}
+	for _, q := range c.DataQuality {
+		res.dataQuality = append(res.dataQuality, r.runCheck(ctx, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
+	}
+	if path == pathTrigger {
+		for _, q := range c.Drift {
+			res.drift = append(res.drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
+		}
+	}
+	if f := c.FreshData; f != nil {
+		// The least value across series must reach atLeast.
+		th := threshold(&f.AtLeast, nil)
+		fc := r.runCheck(ctx, "fresh-data", "freshData", f.Query, th, now)
+		res.freshData, res.atLeast = &fc, f.AtLeast
+	}
+	return res
+}
+
+// verdict is whether to start a retrain, and why not.
+type verdict struct {
+	outcome string
+	message string
+}
+
+// decideStart judges the checks in order: any data-quality breach blocks the
+// retrain (fix the data first); for a trigger, a quality drop that no drift
+// check explains needs a person; too few fresh labelled rows are not worth
+// training on. A check that cannot be judged never leads to an action: the
+// start waits. With no drift checks configured, drift is not required.
+func decideStart(path string, cr checkResults) verdict {
+	var unknown []string
+	for _, c := range cr.dataQuality {
+		if c.known && c.breached {
+			return verdict{outcomeDataQuality, c.String() + ": retraining on broken data is refused; fix the data first"}
+		}
+		if !c.known {
+			unknown = append(unknown, c.String())
+		}
+	}
+	if len(unknown) > 0 {
+		return verdict{outcomeChecksUnknown, strings.Join(unknown, "; ")}
+	}
+	if path == pathTrigger && len(cr.drift) > 0 {
+		drifted, unknownDrift := false, []string{}
+		for _, c := range cr.drift {
+			drifted = drifted || c.known && c.breached
+			if !c.known {
+				unknownDrift = append(unknownDrift, c.String())
+			}
+		}
+		switch {
+		case !drifted && len(unknownDrift) > 0:
+			return verdict{outcomeChecksUnknown, strings.Join(unknownDrift, "; ")}
+		case !drifted:
+			var seen []string
+			for _, c := range cr.drift {
+				seen = append(seen, c.String())
+			}
+			return verdict{outcomeNoDrift, "quality dropped but no drift check found the inputs shifted (" + strings.Join(seen, "; ") + "): retraining on the same kind of data is unlikely to help; a person should look"}
+		}
+	}
+	if f := cr.freshData; f != nil {
+		switch {
+		case !f.known:
+			return verdict{outcomeChecksUnknown, f.String()}
+		case f.breached:
+			return verdict{outcomeInsufficient, fmt.Sprintf("%s, below the %s new labelled rows worth training on", f.String(), promq.Format(cr.atLeast))}
+		}
+	}
+	return verdict{outcomeStarted, "checks passed"}
+}
+
+// apply records a decision's outcome on the line's Blocked and NeedsReview
+// conditions, with an event when a condition changes.
+func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
+	cond := func(typ string, status metav1.ConditionStatus, why, msg string) bool {
+		return setCondition(&line.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: why, Message: text.Truncate(msg, 2000)}, line.Generation, p.now)
+	}
+	msg := fmt.Sprintf("retrain for %s: %s", reason, v.message)
+	switch v.outcome {
+	case outcomeStarted:
+		cond(v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed", msg)
+		cond(v1alpha1.ConditionNeedsReview, metav1.ConditionFalse, "Retraining", msg)
+	case outcomeDataQuality:
+		if cond(v1alpha1.ConditionBlocked, metav1.ConditionTrue, outcomeDataQuality, msg) {
+			p.eventFor(reason, line, nil, corev1.EventTypeWarning, "RetrainBlocked", "%s", msg)
+		}
+	case outcomeChecksUnknown:
+		if cond(v1alpha1.ConditionBlocked, metav1.ConditionUnknown, outcomeChecksUnknown, msg+"; the start waits until the checks can be judged") {
+			p.eventFor(reason, line, nil, corev1.EventTypeWarning, outcomeChecksUnknown, "%s", msg)
+		}
+	case outcomeNoDrift, outcomeInsufficient:
+		cond(v1alpha1.ConditionBlocked, metav1.ConditionFalse, "DataQualityOK", "the data-quality checks passed")
+		if cond(v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, v.outcome, msg) {
+			p.eventFor(reason, line, nil, corev1.EventTypeWarning, "NeedsReview", "%s: %s", v.outcome, msg)
+		}
+	}
+}
+
+// tryStart is the path every retrain takes: the checks, then the start. It
+// reports whether the request was settled (started or refused); false means
+// the checks could not be judged and the caller should try again later.
+func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason, token string) (bool, error) {
+	v := decideStart(path, r.runChecks(ctx, line, path, p.now.Time))
+	p.metrics = append(p.metrics, func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.outcome).Inc() })
+	applyVerdict(line, p, reason, v)
+	switch v.outcome {
+	case outcomeChecksUnknown:
+		p.wakeAt(p.now.Add(checkRetry))
+		return false, nil
+	case outcomeStarted:
+		version, err := r.StartVersion(ctx, line, vw, p, reason, token)
+		if err != nil {
+			return false, err
+		}
+		queued := ""
+		if a := vw.active(); a != nil && a != version {
+			queued = fmt.Sprintf("; it waits for %s (%s)", a.Name, a.Status.Phase)
+		}
+		p.event(line, version, corev1.EventTypeNormal, "RetrainStarted", "%s: created version %s%s", reason, version.Name, queued)
+	}
+	return true, nil
+}
+
+// handleSchedule starts the scheduled retrain that is due, the way the
+// built-in CronJob does: only the most recent missed start, not past the
+// starting deadline, and not while a version is in flight.
+func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	s := line.Spec.Schedule
+	if s == nil {
+		line.Status.NextScheduleTime = nil
+		return nil
+	}
+	if line.Status.LastScheduleTime == nil {
+		// Count from when the controller first saw the schedule, by its own
+		// clock, as the built-in CronJob counts from its creation.
+		line.Status.LastScheduleTime = p.now.DeepCopy()
+	}
+	last := line.Status.LastScheduleTime.Time
+	plan, err := schedule.Compute(s.Cron, s.TimeZone, last, p.now.Time, s.StartingDeadlineSeconds)
+	if err != nil {
+		// The spec checks report this as InvalidSpec; nothing to do here.
+		return nil
+	}
+	next := metav1.NewTime(plan.Next)
+	line.Status.NextScheduleTime = &next
+	p.wakeAt(plan.Next)
+	if s.Suspend || plan.Latest == nil {
+		return nil
+	}
+	missed := func() string {
+		n := fmt.Sprint(plan.Missed)
+		if plan.MissedMore {
+			n = "more than " + n
+		}
+		return n
+	}
+	if plan.Due == nil {
+		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Latest}
+		p.eventFor("Schedule", line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts missed, the latest at %s, which is past spec.schedule.startingDeadlineSeconds (%ds); next start %s",
+			missed(), plan.Latest.Format(time.RFC3339), *s.StartingDeadlineSeconds, plan.Next.Format(time.RFC3339))
+		p.metrics = append(p.metrics, func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
+		return nil
+	}
+	reason := v1alpha1.ReasonSchedule
+	if a := vw.active(); a != nil {
+		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
+		p.event(line, a, corev1.EventTypeNormal, "ScheduleSkipped", "scheduled start at %s skipped: version %s is in flight (%s)", plan.Due.Format(time.RFC3339), a.Name, a.Status.Phase)
+		p.metrics = append(p.metrics, func() {
+			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathSchedule, outcomeInFlight).Inc()
+		})
+		return nil
+	}
+	settled, err := r.tryStart(ctx, line, vw, p, pathSchedule, reason, "")
+	if err != nil || !settled {
+		return err
+	}
+	line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
+	if plan.Missed > 0 {
+		p.eventFor("Schedule", line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
+			missed(), plan.Due.Format(time.RFC3339))
+		p.metrics = append(p.metrics, func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
+	}
+	return nil
+}
+
+// handleTriggers starts a retrain for the first trigger that fired in this
+// pass, unless a version is in flight or the line is cooling down from its
+// last retrain.
+func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
+	if len(firing) == 0 {
+		return nil
+	}
+	tr := firing[0]
+	reason := v1alpha1.ReasonTriggerPrefix + tr.Name
+	if vw.active() != nil {
+		p.metrics = append(p.metrics, func() {
+			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcomeInFlight).Inc()
+		})
+		return nil
+	}
+	cooldown := time.Hour
+	if line.Spec.CooldownSeconds != nil {
+		cooldown = seconds(*line.Spec.CooldownSeconds)
+	}
+	if last := lastRetrain(line); last != nil && p.now.Time.Before(last.Add(cooldown)) {
+		p.metrics = append(p.metrics, func() {
+			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcomeCooldown).Inc()
+		})
+		return nil
+	}
+	_, err := r.tryStart(ctx, line, vw, p, pathTrigger, reason, "")
+	return err
+}
+
+// lastRetrain is when the line last started a retrain, whatever asked, by
+// the controller's clock.
+func lastRetrain(line *v1alpha1.ModelLine) *time.Time {
+	if t := line.Status.LastRetrainTime; t != nil {
+		tt := t.Time
+		return &tt
+	}
+	return nil
+}
