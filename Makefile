@@ -42,6 +42,14 @@ prometheus: ## Install Debian's prometheus package (prometheus, promtool) when m
 test-unit: ## Run the pure-function tests only (no API server).
 	go test -count=1 -short $(GO_PACKAGES)
 
+.PHONY: bench
+bench: controlplane prometheus ## Print the benchmarks' figures (trigger fleet against a real Prometheus).
+	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench . -benchtime 5x
+
+.PHONY: false-alarms
+false-alarms: ## Print the trigger false-alarm and detection-delay table of the README (about 2 minutes).
+	go run ./hack/falsealarms
+
 .PHONY: manifests
 manifests: $(CONTROLLER_GEN) ## Generate the CRDs and RBAC from the markers.
 	$(CONTROLLER_GEN) crd:allowDangerousTypes=true paths=./api/... output:crd:artifacts:config=config/crd/bases

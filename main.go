@@ -123,6 +123,7 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 	fs.StringVar(&o.PrometheusURL, "prometheus-url", "", "Prometheus server that triggers, checks and guards query, for example http://prometheus.monitoring:9090")
 	fs.StringVar(&namespaces, "namespaces", "", "comma-separated namespaces to act in (default: all)")
 	fs.DurationVar(&o.PrometheusTimeout, "prometheus-timeout", 10*time.Second, "how long one Prometheus query may take")
+	fs.IntVar(&o.MaxConcurrentReconciles, "max-concurrent-reconciles", 4, "how many lines are worked on at once")
 	fs.Float64Var(&o.TriggerCoverage, "trigger-coverage", 0.8, "share of a trigger window's points that must be present to judge it (fewer: Unknown)")
 	zapOpts := zap.Options{}
 	zapOpts.BindFlags(fs)

@@ -19,6 +19,7 @@ import (
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/builder"
 	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/controller"
 	"sigs.k8s.io/controller-runtime/pkg/handler"
 	"sigs.k8s.io/controller-runtime/pkg/log"
 	"sigs.k8s.io/controller-runtime/pkg/predicate"
@@ -365,7 +366,7 @@ func (r *ModelLineReconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
 }
 
 // SetupWithManager registers the reconciler, its indexes and its watches.
-func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Manager) error {
+func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Manager, workers int) error {
 	if err := mgr.GetFieldIndexer().IndexField(ctx, &v1alpha1.ModelLine{}, indexServingDeployment, func(o client.Object) []string {
 		return []string{o.(*v1alpha1.ModelLine).Spec.Serving.DeploymentName}
 	}); err != nil {
@@ -378,6 +379,7 @@ func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Man
 	}
 	return ctrl.NewControllerManagedBy(mgr).
 		Named("modelline").
+		WithOptions(controller.Options{MaxConcurrentReconciles: workers}).
 		// Status writes do not change the generation, so they do not wake the
 		// line again; annotations carry a person's requests.
 		For(&v1alpha1.ModelLine{}, builder.WithPredicates(predicate.Or(predicate.GenerationChangedPredicate{}, predicate.AnnotationChangedPredicate{}))).

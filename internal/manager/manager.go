@@ -54,6 +54,9 @@ type Options struct {
 	// TriggerCoverage is the share of a trigger window's points that must be
 	// present for it to be judged; zero means 0.8.
 	TriggerCoverage float64
+	// MaxConcurrentReconciles is how many lines are worked on at once; zero
+	// means 4.
+	MaxConcurrentReconciles int
 	// Clock is the time source; nil means the real clock.
 	Clock clock.Clock
 	// AllowSecondManager lets a process build another manager after stopping
@@ -81,6 +84,9 @@ func (o Options) Validate() error {
 		if err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" {
 			return fmt.Errorf("--prometheus-url %q: want an http(s) URL such as http://prometheus.monitoring:9090", o.PrometheusURL)
 		}
+	}
+	if o.MaxConcurrentReconciles < 0 {
+		return fmt.Errorf("--max-concurrent-reconciles %d: want a positive number", o.MaxConcurrentReconciles)
 	}
 	if o.TriggerCoverage < 0 || o.TriggerCoverage > 1 {
 		return fmt.Errorf("--trigger-coverage %v: want a share between 0 and 1, such as 0.8", o.TriggerCoverage)
@@ -154,7 +160,11 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	recorder := mgr.GetEventRecorder(ControllerName)
 	lines := &controllers.ModelLineReconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
 		Prometheus: prom, Coverage: o.TriggerCoverage}
-	if err := lines.SetupWithManager(ctx, mgr); err != nil {
+	workers := o.MaxConcurrentReconciles
+	if workers <= 0 {
+		workers = 4
+	}
+	if err := lines.SetupWithManager(ctx, mgr, workers); err != nil {
 		return nil, fmt.Errorf("set up ModelLine controller: %w", err)
 	}
 	versions := &controllers.ModelVersionReconciler{Client: mgr.GetClient(), Clock: clk, Recorder: recorder}
