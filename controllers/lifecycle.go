@@ -109,6 +109,8 @@ type pass struct {
 	wake time.Time
 	// evaluated are the triggers evaluated in this pass.
 	evaluated []string
+	// created are the versions this pass created.
+	created map[string]bool
 }
 
 // wakeAt asks for a pass at t, unless an earlier one is asked for.
@@ -282,6 +284,10 @@ func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.M
 			return nil, fmt.Errorf("read version %s: %w", name, err)
 		}
 	} else {
+		if p.created == nil {
+			p.created = map[string]bool{}
+		}
+		p.created[v.Name] = true
 		p.event(v, line, corev1.EventTypeNormal, "Created", "version %d of %s, reason %s, artifact %s", n, line.Name, reason, uri)
 	}
 	if v.Spec.Line != line.Name {

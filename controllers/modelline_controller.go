@@ -11,6 +11,7 @@ import (
 	"k8s.io/apimachinery/pkg/api/equality"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/client-go/tools/events"
 	"sync"
@@ -137,8 +138,11 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 		}
 	}
 	if err != nil {
-		// Tell what the written versions went through; the rest is
-		// recomputed by the pass that follows.
+		// Tell what the written and the created versions went through;
+		// the rest is recomputed by the pass that follows.
+		for name := range p.created {
+			written[name] = true
+		}
 		r.emit(p, written)
 		if apierrors.IsConflict(err) {
 			log.FromContext(ctx).V(1).Info("status write raced another change; redoing the pass", "error", err.Error())
@@ -194,14 +198,16 @@ func (r *ModelLineReconciler) fresh(ctx context.Context, line *v1alpha1.ModelLin
 }
 
 // emit sends the pass's events. With only set, only the events about those
-// versions go out (their statuses were written; the rest was not).
+// versions, or related to them, go out (what happened to them is recorded;
+// the rest was not and will be recomputed).
 func (r *ModelLineReconciler) emit(p *pass, only map[string]bool) {
+	about := func(o runtime.Object) bool {
+		v, ok := o.(*v1alpha1.ModelVersion)
+		return ok && only[v.Name]
+	}
 	for _, e := range p.events {
-		if only != nil {
-			v, ok := e.regarding.(*v1alpha1.ModelVersion)
-			if !ok || !only[v.Name] {
-				continue
-			}
+		if only != nil && !about(e.regarding) && !about(e.related) {
+			continue
 		}
 		r.Recorder.Eventf(e.regarding, e.related, e.kind, e.reason, e.action, "%s", e.message)
 	}

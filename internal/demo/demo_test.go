@@ -54,7 +54,7 @@ func TestDemoRuns(t *testing.T) {
 		"trigger auc-drop is Pending: below 0.78 since 2026-11-03T02:",
 		"[Tue 08:30] event Warning TriggerFiring ModelLine/late-risk: trigger auc-drop is Firing",
 		"event Warning RetrainBlocked ModelLine/late-risk: retrain for Trigger/auc-drop: data-quality check address-missing is 0.22",
-		"[Tue 10:30] event Normal RetrainStarted ModelLine/late-risk: Trigger/auc-drop: created version late-risk-v1",
+		"event Normal RetrainStarted ModelLine/late-risk: Trigger/auc-drop: created version late-risk-v1",
 		"ModelVersion late-risk-v1 is now Live",
 		"trigger auc-drop is Inactive: latest value 0.83",
 		"event Normal RetrainStarted ModelLine/late-risk: Manual: created version late-risk-v2",
