@@ -226,7 +226,7 @@ func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1
 	}
 	if len(token) == 0 || len(token) > 253 {
 		line.Status.LastRetrainRequest = text.Truncate(token, 253)
-		p.event(line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "annotation %s must hold a token of 1 to 253 characters (a timestamp works); this one has %d", v1alpha1.RetrainRequestAnnotation, len(token))
+		p.eventFor("Request/"+text.Truncate(token, 100), line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "annotation %s must hold a token of 1 to 253 characters (a timestamp works); this one has %d", v1alpha1.RetrainRequestAnnotation, len(token))
 		return nil
 	}
 	// A version already made for this token (a pass that crashed before
@@ -239,7 +239,7 @@ func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1
 	}
 	if line.Spec.Training == nil {
 		line.Status.LastRetrainRequest = token
-		p.event(line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "retrain request %q: the line has no spec.training", token)
+		p.eventFor("Request/"+text.Truncate(token, 100), line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "retrain request %q: the line has no spec.training", token)
 		return nil
 	}
 	settled, err := r.tryStart(ctx, line, vw, p, pathManual, v1alpha1.ReasonManual, token)
@@ -814,7 +814,7 @@ func (r *ModelLineReconciler) prune(ctx context.Context, line *v1alpha1.ModelLin
 		}
 		now := p.now
 		v.DeletionTimestamp = &now
-		p.event(line, nil, corev1.EventTypeNormal, "Pruned", "deleted %s version %s: history keeps %d finished versions (spec.historyLimit)", v.Status.Phase, v.Name, limit)
+		p.eventFor("Prune/"+v.Name, line, nil, corev1.EventTypeNormal, "Pruned", "deleted %s version %s: history keeps %d finished versions (spec.historyLimit)", v.Status.Phase, v.Name, limit)
 	}
 	return nil
 }

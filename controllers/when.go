@@ -420,7 +420,7 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 	}
 	if plan.Due == nil {
 		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Latest}
-		p.eventFor("Schedule", line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts missed, the latest at %s, which is past spec.schedule.startingDeadlineSeconds (%ds); next start %s",
+		p.eventFor("Schedule/"+plan.Latest.Format(time.RFC3339), line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts missed, the latest at %s, which is past spec.schedule.startingDeadlineSeconds (%ds); next start %s",
 			missed(), plan.Latest.Format(time.RFC3339), *s.StartingDeadlineSeconds, plan.Next.Format(time.RFC3339))
 		p.metrics = append(p.metrics, func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
 		return nil
@@ -428,7 +428,7 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 	reason := v1alpha1.ReasonSchedule
 	if a := vw.active(); a != nil {
 		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
-		p.event(line, a, corev1.EventTypeNormal, "ScheduleSkipped", "scheduled start at %s skipped: version %s is in flight (%s)", plan.Due.Format(time.RFC3339), a.Name, a.Status.Phase)
+		p.eventFor("Schedule/"+plan.Due.Format(time.RFC3339), line, a, corev1.EventTypeNormal, "ScheduleSkipped", "scheduled start at %s skipped: version %s is in flight (%s)", plan.Due.Format(time.RFC3339), a.Name, a.Status.Phase)
 		p.metrics = append(p.metrics, func() {
 			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathSchedule, outcomeInFlight).Inc()
 		})
@@ -440,7 +440,7 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 	}
 	line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
 	if plan.Missed > 0 {
-		p.eventFor("Schedule", line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
+		p.eventFor("Schedule/"+plan.Due.Format(time.RFC3339), line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
 			missed(), plan.Due.Format(time.RFC3339))
 		p.metrics = append(p.metrics, func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
 	}
