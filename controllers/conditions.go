@@ -27,3 +27,14 @@ func conditionIs(conds []metav1.Condition, t string, s metav1.ConditionStatus) b
 	c := meta.FindStatusCondition(conds, t)
 	return c != nil && c.Status == s
 }
+
+// setConditionSticky is setCondition for conditions whose message carries a
+// live measurement: while the status and reason hold, the message seen when
+// they last changed is kept, so an evaluation that finds nothing new writes
+// nothing. It reports whether the status or reason changed.
+func setConditionSticky(conds *[]metav1.Condition, c metav1.Condition, generation int64, now metav1.Time) bool {
+	if old := meta.FindStatusCondition(*conds, c.Type); old != nil && old.Status == c.Status && old.Reason == c.Reason {
+		c.Message = old.Message
+	}
+	return setCondition(conds, c, generation, now)
+}

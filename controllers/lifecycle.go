@@ -76,6 +76,9 @@ func (v *view) live() *v1alpha1.ModelVersion {
 }
 
 func promotedAfter(a, b *v1alpha1.ModelVersion) bool {
+	if sa, sb := promotionSequence(a), promotionSequence(b); sa != sb {
+		return sa > sb
+	}
 	at, bt := a.Status.PromotedTime, b.Status.PromotedTime
 	switch {
 	case at == nil:
@@ -88,11 +91,43 @@ func promotedAfter(a, b *v1alpha1.ModelVersion) bool {
 	return a.Name > b.Name
 }
 
+func promotionSequence(v *v1alpha1.ModelVersion) int64 {
+	if v.Status.Promotion == nil {
+		return 0
+	}
+	return v.Status.Promotion.Sequence
+}
+
+// nextSequence is one more than the highest promotion sequence of the line.
+func (v *view) nextSequence() int64 {
+	var n int64
+	for _, x := range v.versions {
+		n = max(n, promotionSequence(x))
+	}
+	return n + 1
+}
+
 // active is the one version the line works on: the oldest in flight.
 // Others wait their turn in Pending.
 func (v *view) active() *v1alpha1.ModelVersion {
 	for _, x := range v.versions {
-		if x.Spec.Source != v1alpha1.SourceRuleBased && x.DeletionTimestamp == nil && x.Status.Phase.InFlight() {
+		if x.DeletionTimestamp != nil || !x.Status.Phase.InFlight() {
+			continue
+		}
+		// A rule-based version is never trained or judged; it is in flight
+		// only while the line switches to it.
+		if x.Spec.Source == v1alpha1.SourceRuleBased && x.Status.Phase != v1alpha1.PhasePromoting {
+			continue
+		}
+		return x
+	}
+	return nil
+}
+
+// promoting is the version being rolled out, if any.
+func (v *view) promoting() *v1alpha1.ModelVersion {
+	for _, x := range v.versions {
+		if x.DeletionTimestamp == nil && x.Status.Phase == v1alpha1.PhasePromoting {
 			return x
 		}
 	}
@@ -159,6 +194,7 @@ func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelL
 	// Triggers are evaluated on a suspended line too: that is reporting,
 	// not acting.
 	firing := r.evaluateTriggers(ctx, line, p)
+	guarded := r.evaluateGuard(ctx, line, vw, p)
 	if line.Spec.Suspend {
 		return nil
 	}
@@ -166,6 +202,9 @@ func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelL
 	if err := r.revertFailedRollouts(ctx, line, vw, p); err != nil {
 		return err
 	}
+	// Production first: a regression is answered before anything new starts.
+	r.guard(line, vw, p, guarded)
+	r.handleRollbackRequest(line, vw, p)
 	// A person's request first, then the schedule, then the triggers: each
 	// later one sees a version the earlier started as in flight.
 	if err := r.handleRetrainRequest(ctx, line, vw, p); err != nil {
@@ -205,10 +244,21 @@ func settle(line *v1alpha1.ModelLine, vw *view, p *pass) {
 	for _, v := range vw.versions {
 		switch {
 		case v.Status.Phase == v1alpha1.PhaseLive && v != live:
-			v.Status.ArchivedTime = &p.now
-			p.setPhase(v, v1alpha1.PhaseArchived, reasonReplaced, fmt.Sprintf("replaced by %s", live.Name))
-			p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reasonReplaced, fmt.Sprintf("replaced by %s", live.Name))
-			p.event(v, line, corev1.EventTypeNormal, "Archived", "replaced by %s", live.Name)
+			reason, msg := reasonReplaced, fmt.Sprintf("replaced by %s", live.Name)
+			if k := promotionKind(live); (k == v1alpha1.PromotionRollback || k == v1alpha1.PromotionFallback) && live.Status.Promotion.FromVersion == v.Name {
+				// The guard took it out: it is never promoted again
+				// automatically.
+				reason, msg = v1alpha1.ReasonRolledBack, fmt.Sprintf("rolled back to %s after a sustained regression in production", live.Name)
+			}
+			if v.Spec.Source == v1alpha1.SourceRuleBased {
+				// A fallback goes back into reserve.
+				p.setPhase(v, v1alpha1.PhaseStandby, reasonStandby, msg+"; back in reserve as the line's fallback")
+			} else {
+				v.Status.ArchivedTime = &p.now
+				p.setPhase(v, v1alpha1.PhaseArchived, reason, msg)
+			}
+			p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reason, msg)
+			p.event(v, line, corev1.EventTypeNormal, "Archived", "%s", msg)
 		case v.Spec.Source == v1alpha1.SourceRuleBased && (v.Status.Phase == "" || v.Status.Phase == v1alpha1.PhasePending):
 			p.setPhase(v, v1alpha1.PhaseStandby, reasonStandby, "rule-based version held in reserve as the line's fallback")
 		}
@@ -680,11 +730,24 @@ func (r *ModelLineReconciler) judged(line *v1alpha1.ModelLine, vw *view, v *v1al
 	}
 }
 
+// promotionKind is why a version was last rolled out.
+func promotionKind(v *v1alpha1.ModelVersion) v1alpha1.PromotionKind {
+	if v == nil || v.Status.Promotion == nil || v.Status.Promotion.Kind == "" {
+		return v1alpha1.PromotionCandidate
+	}
+	return v.Status.Promotion.Kind
+}
+
 // startPromotion moves a version to Promoting, recording what the serving
 // Deployment serves now so a failed rollout can restore it. The Deployment
 // is patched only in a later pass, after this record is written.
 func startPromotion(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass, reason, why string) {
-	from := v1alpha1.PromotionStatus{StartedTime: &p.now}
+	startPromotionAs(line, vw, v, p, v1alpha1.PromotionCandidate, reason, why)
+}
+
+// startPromotionAs is startPromotion for a kind of switch.
+func startPromotionAs(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass, kind v1alpha1.PromotionKind, reason, why string) {
+	from := v1alpha1.PromotionStatus{Kind: kind, StartedTime: &p.now, Sequence: vw.nextSequence()}
 	if live := vw.live(); live != nil {
 		from.FromVersion = live.Name
 	}
@@ -744,9 +807,21 @@ func (r *ModelLineReconciler) promote(ctx context.Context, line *v1alpha1.ModelL
 		p.setPhase(v, v1alpha1.PhaseLive, reasonPromoted, msg)
 		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionTrue, reasonPromoted, msg)
 		p.event(v, line, corev1.EventTypeNormal, reasonPromoted, "%s", msg)
-		p.event(line, v, corev1.EventTypeNormal, reasonPromoted, "version %s is live (replacing %s)", v.Name, orNone(v.Status.Promotion.FromVersion))
-		p.metrics = append(p.metrics, func() { promotions.WithLabelValues(line.Namespace, line.Name).Inc() })
-		finished(line, v, p, "Promoted")
+		from := orNone(v.Status.Promotion.FromVersion)
+		switch promotionKind(v) {
+		case v1alpha1.PromotionCandidate:
+			p.event(line, v, corev1.EventTypeNormal, reasonPromoted, "version %s is live (replacing %s)", v.Name, from)
+			p.metrics = append(p.metrics, func() { promotions.WithLabelValues(line.Namespace, line.Name).Inc() })
+			finished(line, v, p, "Promoted")
+		case v1alpha1.PromotionRollback:
+			p.event(line, v, corev1.EventTypeWarning, "RolledBack", "version %s serves again in place of %s, which regressed", v.Name, from)
+		case v1alpha1.PromotionFallback:
+			p.event(line, v, corev1.EventTypeWarning, "FallbackServing", "rule-based version %s serves in place of %s", v.Name, from)
+		case v1alpha1.PromotionAlternative:
+			p.event(line, v, corev1.EventTypeWarning, "AlternativeServing", "version %s, which beat %s on the golden set, serves in its place", v.Name, from)
+		case v1alpha1.PromotionRequested:
+			p.event(line, v, corev1.EventTypeNormal, "RollbackDone", "version %s serves again, as requested, in place of %s", v.Name, from)
+		}
 	}
 	return nil
 }

@@ -81,6 +81,26 @@ var (
 		Help: "Scheduled starts that never ran (missed while the controller was down, or past the starting deadline).",
 	}, []string{"namespace", "line"})
 
+	rollbacks = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_rollbacks_total",
+		Help: "Switches away from a live version, by target: previous and rule-based (the guard), requested (a person).",
+	}, []string{"namespace", "line", "target"})
+
+	guardState = prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "plumbline_guard_state",
+		Help: "1 for the guard's current state on the live version (Inactive, Pending, Firing, Unknown), 0 for the others.",
+	}, []string{"namespace", "line", "state"})
+
+	guardEvaluations = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_guard_evaluations_total",
+		Help: "Guard evaluations on the live version, by the state found.",
+	}, []string{"namespace", "line", "state"})
+
+	guardValue = prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "plumbline_guard_value",
+		Help: "The value the guard's query gave at its last evaluation; NaN when none.",
+	}, []string{"namespace", "line"})
+
 	lineReconciles = prometheus.NewCounterVec(prometheus.CounterOpts{
 		Name: "plumbline_line_reconciles_total",
 		Help: "Passes of the controller over a line; a steady rate with nothing changing would mean a retry loop.",
@@ -95,7 +115,7 @@ var (
 func init() {
 	metrics.Registry.MustRegister(lineCondition, retrainsStarted, retrainsFinished, gateDecisions,
 		promotions, rolloutFailures, liveVersion, lastPromotion, triggerValue, triggerState,
-		triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles)
+		triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations)
 }
 
 // recordLineMetrics exports the gauges that describe a line as it is.
@@ -122,7 +142,7 @@ func forgetLineMetrics(namespace, name string) {
 	for _, v := range []interface {
 		DeletePartialMatch(prometheus.Labels) int
 	}{lineCondition, retrainsStarted, retrainsFinished, gateDecisions, promotions, rolloutFailures, liveVersion, lastPromotion,
-		triggerValue, triggerState, triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles} {
+		triggerValue, triggerState, triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations} {
 		v.DeletePartialMatch(labels)
 	}
 }
@@ -152,5 +172,18 @@ func forgetRemovedTriggers(line *v1alpha1.ModelLine, kept []v1alpha1.TriggerStat
 		triggerValue.DeletePartialMatch(labels)
 		triggerState.DeletePartialMatch(labels)
 		triggerEvaluations.DeletePartialMatch(labels)
+	}
+}
+
+// recordGuard exports a guard evaluation.
+func recordGuard(line *v1alpha1.ModelLine, res trigger.Result) {
+	guardValue.WithLabelValues(line.Namespace, line.Name).Set(res.Value)
+	guardEvaluations.WithLabelValues(line.Namespace, line.Name, string(res.State)).Inc()
+	for _, s := range triggerStates {
+		v := 0.0
+		if s == res.State {
+			v = 1
+		}
+		guardState.WithLabelValues(line.Namespace, line.Name, string(s)).Set(v)
 	}
 }

@@ -3,6 +3,7 @@ package controllers
 import (
 	"fmt"
 	"strconv"
+	"time"
 
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
@@ -37,8 +38,51 @@ func summarize(line *v1alpha1.ModelLine, vw *view, now metav1.Time) {
 			st.LastRetrainTime = t.DeepCopy()
 		}
 	}
+	if last := lastAutomaticRollback(vw); last != nil {
+		st.LastRollbackTime = &metav1.Time{Time: *last}
+	}
 	setCondition(&st.Conditions, retrainingCondition(vw), line.Generation, now)
 	setCondition(&st.Conditions, awaitingApprovalCondition(vw), line.Generation, now)
+	setCondition(&st.Conditions, fallbackCondition(vw), line.Generation, now)
+}
+
+// fallbackCondition is True while the line serves something other than its
+// newest promoted candidate: a version the guard rolled back to, the
+// rule-based version, an alternative, or a version a person went back to.
+func fallbackCondition(vw *view) metav1.Condition {
+	c := metav1.Condition{Type: v1alpha1.ConditionFallbackActive, Status: metav1.ConditionFalse, Reason: "ServingCandidate", Message: "the line serves its latest promoted version"}
+	live := vw.live()
+	if live == nil {
+		c.Reason, c.Message = "NothingLive", "no version serves yet"
+		return c
+	}
+	kind := promotionKind(live)
+	if kind == v1alpha1.PromotionCandidate && live.Spec.Source != v1alpha1.SourceRuleBased {
+		return c
+	}
+	since := ""
+	if t := live.Status.PromotedTime; t != nil {
+		since = " since " + t.UTC().Format(time.RFC3339)
+	}
+	from := ""
+	if live.Status.Promotion != nil && live.Status.Promotion.FromVersion != "" {
+		from = " in place of " + live.Status.Promotion.FromVersion
+	}
+	c.Status = metav1.ConditionTrue
+	switch kind {
+	case v1alpha1.PromotionRollback:
+		c.Reason = v1alpha1.ReasonRolledBack
+	case v1alpha1.PromotionFallback:
+		c.Reason = "RuleBasedFallback"
+	case v1alpha1.PromotionAlternative:
+		c.Reason = "Alternative"
+	case v1alpha1.PromotionRequested:
+		c.Reason = "RequestedRollback"
+	default:
+		c.Reason = "RuleBasedFallback"
+	}
+	c.Message = fmt.Sprintf("%s (%s) serves%s%s", live.Name, kind, from, since)
+	return c
 }
 
 // retrainingCondition is True while a version is on its way and says where;

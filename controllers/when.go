@@ -337,7 +337,7 @@ func decideStart(path string, cr checkResults) verdict {
 // conditions, with an event when a condition changes.
 func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
 	cond := func(typ string, status metav1.ConditionStatus, why, msg string) bool {
-		return setCondition(&line.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: why, Message: text.Truncate(msg, 2000)}, line.Generation, p.now)
+		return setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: why, Message: text.Truncate(msg, 2000)}, line.Generation, p.now)
 	}
 	msg := fmt.Sprintf("retrain for %s: %s", reason, v.message)
 	switch v.outcome {
@@ -452,6 +452,7 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 // last retrain.
 func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
 	if len(firing) == 0 {
+		clearReviewWhenQuiet(line, p)
 		return nil
 	}
 	tr := firing[0]
@@ -484,4 +485,22 @@ func lastRetrain(line *v1alpha1.ModelLine) *time.Time {
 		return &tt
 	}
 	return nil
+}
+
+// clearReviewWhenQuiet withdraws a review the triggers asked for once every
+// trigger is Inactive again: the drop that raised it is over.
+func clearReviewWhenQuiet(line *v1alpha1.ModelLine, p *pass) {
+	if r := conditionReason(line, v1alpha1.ConditionNeedsReview); r != outcomeNoDrift && r != outcomeInsufficient {
+		return
+	}
+	if len(line.Status.Triggers) == 0 {
+		return
+	}
+	for _, t := range line.Status.Triggers {
+		if t.State != v1alpha1.TriggerInactive {
+			return
+		}
+	}
+	setCondition(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionFalse,
+		Reason: "Recovered", Message: "every trigger is Inactive again"}, line.Generation, p.now)
 }

@@ -10,6 +10,10 @@ const (
 	// RetrainRequestAnnotation on a ModelLine asks for a retrain; its value is a
 	// token, and each distinct token acts once.
 	RetrainRequestAnnotation = "plumbline.dev/retrain-request"
+	// RollbackRequestAnnotation on a ModelLine asks to serve a named version
+	// of the line again (an archived one, or the rule-based fallback). Each
+	// distinct value acts once.
+	RollbackRequestAnnotation = "plumbline.dev/rollback-to"
 	// VersionAnnotation is stamped on the serving Deployment's pod template on
 	// promotion, naming the ModelVersion it serves.
 	VersionAnnotation = "plumbline.dev/version"
@@ -466,6 +470,74 @@ type TriggerStatus struct {
 	Message string `json:"message,omitempty"`
 }
 
+// AlternativesStatus is an evaluation of the line's alternatives against its
+// live version on the golden set.
+type AlternativesStatus struct {
+	// number counts the line's evaluations of alternatives; it names their
+	// Jobs.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	Number int32 `json:"number"`
+
+	// reason they were evaluated: InsufficientData or CandidateRejected.
+	// +required
+	// +kubebuilder:validation:MaxLength=128
+	Reason string `json:"reason"`
+
+	// against is the live version they were compared with.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	Against string `json:"against,omitempty"`
+
+	// startedTime is when the evaluation began.
+	// +optional
+	StartedTime *metav1.Time `json:"startedTime,omitempty"`
+
+	// candidates are the alternatives and how each fared.
+	// +optional
+	// +listType=atomic
+	// +kubebuilder:validation:MaxItems=4
+	Candidates []AlternativeResult `json:"candidates,omitempty"`
+
+	// outcome once all are judged: Switched (to chosen) or NoneQualified.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	Outcome string `json:"outcome,omitempty"`
+
+	// chosen is the alternative switched to.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	Chosen string `json:"chosen,omitempty"`
+}
+
+// AlternativeResult is how one alternative fared against the live version.
+type AlternativeResult struct {
+	// version is the alternative.
+	// +required
+	// +kubebuilder:validation:MaxLength=253
+	Version string `json:"version"`
+
+	// job is its evaluation Job.
+	// +optional
+	// +kubebuilder:validation:MaxLength=63
+	Job string `json:"job,omitempty"`
+
+	// verdict of the gate; empty while it runs.
+	// +optional
+	Verdict GateVerdict `json:"verdict,omitempty"`
+
+	// score is the value of the first criterion's metric, as text, used to
+	// choose between alternatives that both pass.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	Score string `json:"score,omitempty"`
+
+	// message explains the verdict.
+	// +optional
+	// +kubebuilder:validation:MaxLength=2048
+	Message string `json:"message,omitempty"`
+}
+
 // ModelLine condition types.
 const (
 	// ConditionReady: the spec is valid and the serving Deployment is there.
@@ -491,6 +563,7 @@ const (
 	ReasonServingNotFound  = "ServingNotFound"
 	ReasonFallbackNotFound = "FallbackNotFound"
 	ReasonSuspended        = "Suspended"
+	ReasonRolledBack       = "RolledBack"
 )
 
 // ModelLineStatus is what the controller last saw and did.
@@ -542,6 +615,25 @@ type ModelLineStatus struct {
 	// +optional
 	// +kubebuilder:validation:Minimum=0
 	VersionCount int32 `json:"versionCount,omitempty"`
+
+	// guard is the last state of the guard on the live version.
+	// +optional
+	Guard *TriggerStatus `json:"guard,omitempty"`
+
+	// lastRollbackTime is when the guard last rolled back automatically; no
+	// other automatic rollback happens within probationSeconds of it.
+	// +optional
+	LastRollbackTime *metav1.Time `json:"lastRollbackTime,omitempty"`
+
+	// lastRollbackRequest is the last rollback-to request handled.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	LastRollbackRequest string `json:"lastRollbackRequest,omitempty"`
+
+	// alternatives is the last evaluation of the line's alternatives (the
+	// previous version, the rule-based one) against a degraded live version.
+	// +optional
+	Alternatives *AlternativesStatus `json:"alternatives,omitempty"`
 
 	// triggers is the last state of each trigger.
 	// +optional

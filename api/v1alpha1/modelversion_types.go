@@ -232,9 +232,39 @@ type GateResult struct {
 	EvaluatedTime *metav1.Time `json:"evaluatedTime,omitempty"`
 }
 
+// PromotionKind says why a version was rolled out.
+// +kubebuilder:validation:Enum=Candidate;Rollback;Fallback;Alternative;Requested
+type PromotionKind string
+
+const (
+	// PromotionCandidate: a new version that passed the gate.
+	PromotionCandidate PromotionKind = "Candidate"
+	// PromotionRollback: the guard rolled back to the version that served
+	// before a regressed one.
+	PromotionRollback PromotionKind = "Rollback"
+	// PromotionFallback: the guard switched to the rule-based version.
+	PromotionFallback PromotionKind = "Fallback"
+	// PromotionAlternative: an older or rule-based version that beat the
+	// degraded live one on the golden set.
+	PromotionAlternative PromotionKind = "Alternative"
+	// PromotionRequested: a person asked to go back to this version.
+	PromotionRequested PromotionKind = "Requested"
+)
+
 // PromotionStatus records a rollout of the serving Deployment to this
 // version, with what it replaced so a failed rollout can be undone.
 type PromotionStatus struct {
+	// kind says why the version was rolled out; empty means Candidate.
+	// +optional
+	Kind PromotionKind `json:"kind,omitempty"`
+
+	// sequence orders the line's promotions: each one gets one more than
+	// the highest before it. The live version is the Live one with the
+	// highest sequence.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	Sequence int64 `json:"sequence,omitempty"`
+
 	// fromVersion is the version that served before; empty when none did.
 	// +optional
 	// +kubebuilder:validation:MaxLength=253

@@ -254,7 +254,7 @@ func (d *player) lifecycle(lineKey types.NamespacedName) error {
 	}
 
 	d.step(6, "Tuesday 02:00 the new Fenwick depot opens: quality falls, and the address feed breaks for a while")
-	fmt.Fprintln(d.out, "   (the clock moves in half-hour steps; the triggers are judged on Prometheus at each)")
+	fmt.Fprintln(d.out, "   (the clock moves in quarter-hour steps; triggers and guard are judged on Prometheus at each)")
 	started, err := d.fastForward(lineKey, storyStart.Add(30*time.Minute), time.Date(2026, 11, 3, 12, 0, 0, 0, time.UTC), func() (bool, error) {
 		var v v1alpha1.ModelVersion
 		err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-v1"}, &v)
@@ -292,36 +292,79 @@ func (d *player) lifecycle(lineKey types.NamespacedName) error {
 		return err
 	}
 
-	d.step(7, "Wednesday: quality is back; an engineer asks for a retrain, and the gate rejects it")
+	d.step(7, "Wednesday morning: an engineer asks for a retrain; the gate rejects it")
 	if _, err := d.fastForward(lineKey, time.Date(2026, 11, 4, 10, 0, 0, 0, time.UTC), time.Date(2026, 11, 4, 10, 0, 0, 0, time.UTC), nil); err != nil {
 		return err
 	}
-	if err := d.annotate(lineKey, "weekly-review-45"); err != nil {
+	if err := d.retrain(lineKey, "weekly-review-45", "late-risk-v2", time.Date(2026, 11, 4, 10, 40, 0, 0, time.UTC),
+		"harbour-depot recall drops", harbourRegressionReport()); err != nil {
 		return err
 	}
-	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseTraining); err != nil {
+	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseRejected); err != nil {
 		return err
 	}
-	d.clock.SetTime(time.Date(2026, 11, 4, 11, 30, 0, 0, time.UTC))
-	if err := d.act("training Job late-risk-v2-train completes", standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v2-train", "")); err != nil {
+
+	d.step(8, "Wednesday noon: another candidate passes the gate, goes live, and does badly in production")
+	if err := d.retrain(lineKey, "weekly-review-45b", "late-risk-v3", time.Date(2026, 11, 4, 11, 50, 0, 0, time.UTC),
+		"better everywhere", goodReport()); err != nil {
 		return err
 	}
-	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseEvaluating); err != nil {
+	if err := d.waitPhase("late-risk-v3", v1alpha1.PhasePromoting); err != nil {
 		return err
 	}
 	d.clock.SetTime(time.Date(2026, 11, 4, 12, 0, 0, 0, time.UTC))
-	if err := d.act("evaluation Job late-risk-v2-gate reports (synthetic numbers: harbour-depot recall drops)",
-		standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v2-gate", harbourRegressionReport())); err != nil {
+	if err := d.act("the scorer Deployment rolls out late-risk-v3", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v3", d.timeout)); err != nil {
 		return err
 	}
-	return d.waitPhase("late-risk-v2", v1alpha1.PhaseRejected)
+	if err := d.waitPhase("late-risk-v3", v1alpha1.PhaseLive); err != nil {
+		return err
+	}
+	fmt.Fprintln(d.out, "   (the guard watches the hourly ROC AUC: below 0.76 for 30 minutes within 12 hours of the promotion rolls back)")
+	rolling, err := d.fastForward(lineKey, time.Date(2026, 11, 4, 12, 15, 0, 0, time.UTC), time.Date(2026, 11, 4, 14, 0, 0, 0, time.UTC), func() (bool, error) {
+		var v v1alpha1.ModelVersion
+		if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-v1"}, &v); err != nil {
+			return false, err
+		}
+		return v.Status.Phase == v1alpha1.PhasePromoting, nil
+	})
+	if err != nil {
+		return err
+	}
+	if !rolling {
+		return fmt.Errorf("the guard did not roll late-risk-v3 back")
+	}
+	if err := d.act("the scorer Deployment rolls back to late-risk-v1", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v1", d.timeout)); err != nil {
+		return err
+	}
+	return d.waitPhase("late-risk-v1", v1alpha1.PhaseLive)
+}
+
+// retrain asks for a retrain with a token and plays its training and
+// evaluation, the Jobs finishing at the given time.
+func (d *player) retrain(key types.NamespacedName, token, version string, at time.Time, what, report string) error {
+	if err := d.annotate(key, token); err != nil {
+		return err
+	}
+	if err := d.waitPhase(version, v1alpha1.PhaseTraining); err != nil {
+		return err
+	}
+	d.clock.SetTime(at)
+	if err := d.act("training Job "+version+"-train completes", standin.SucceedJob(d.ctx, d.c, namespace, version+"-train", "")); err != nil {
+		return err
+	}
+	if err := d.waitPhase(version, v1alpha1.PhaseEvaluating); err != nil {
+		return err
+	}
+	d.clock.SetTime(at.Add(5 * time.Minute))
+	return d.act(fmt.Sprintf("evaluation Job %s-gate reports (synthetic numbers: %s)", version, what),
+		standin.SucceedJob(d.ctx, d.c, namespace, version+"-gate", report))
 }
 
 // fastForward moves the controller's clock from one time to another in
-// half-hour steps, waking the line at each and waiting until it has judged
-// its triggers there; it stops early when done says so.
+// quarter-hour steps, waking the line at each and waiting until it has
+// judged its triggers and guard there; it stops early when done says so.
 func (d *player) fastForward(key types.NamespacedName, from, to time.Time, done func() (bool, error)) (bool, error) {
-	for t := from; !t.After(to); t = t.Add(30 * time.Minute) {
+	for t := from; !t.After(to); t = t.Add(15 * time.Minute) {
 		before := evaluations(key)
 		d.clock.SetTime(t)
 		patch := fmt.Sprintf(`{"metadata":{"annotations":{"demo.plumbline.dev/clock":%q}}}`, t.Format(time.RFC3339))
@@ -345,8 +388,8 @@ func (d *player) fastForward(key types.NamespacedName, from, to time.Time, done 
 	return false, d.printEvents()
 }
 
-// evaluations counts the line's trigger evaluations, from the manager's
-// metrics (the manager runs in this process).
+// evaluations counts the line's trigger and guard evaluations, from the
+// manager's metrics (the manager runs in this process).
 func evaluations(key types.NamespacedName) float64 {
 	families, err := ctrlmetrics.Registry.Gather()
 	if err != nil {
@@ -354,7 +397,7 @@ func evaluations(key types.NamespacedName) float64 {
 	}
 	sum := 0.0
 	for _, f := range families {
-		if f.GetName() != "plumbline_trigger_evaluations_total" {
+		if f.GetName() != "plumbline_trigger_evaluations_total" && f.GetName() != "plumbline_guard_evaluations_total" {
 			continue
 		}
 		for _, m := range f.GetMetric() {
@@ -523,16 +566,24 @@ func (d *player) summary(metricsAddr string) error {
 		return fmt.Errorf("list lines: %w", err)
 	}
 	tw := tabwriter.NewWriter(d.out, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "MODELLINE\tREADY\tLIVE\tPREVIOUS\tLAST RETRAIN OUTCOME")
+	fmt.Fprintln(tw, "MODELLINE\tREADY\tLIVE\tPREVIOUS\tFALLBACK\tLAST RETRAIN OUTCOME")
 	for _, l := range lines.Items {
-		ready, outcome := "-", "-"
-		if c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionReady); c != nil {
-			ready = string(c.Status)
+		cond := func(typ string, reason bool) string {
+			c := meta.FindStatusCondition(l.Status.Conditions, typ)
+			switch {
+			case c == nil:
+				return "-"
+			case reason:
+				return c.Reason
+			}
+			return string(c.Status)
 		}
-		if c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionRetraining); c != nil {
-			outcome = c.Reason
+		fallback := cond(v1alpha1.ConditionFallbackActive, false)
+		if fallback == "True" {
+			fallback += " (" + cond(v1alpha1.ConditionFallbackActive, true) + ")"
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\n", l.Name, ready, orDash(l.Status.LiveVersion), orDash(l.Status.PreviousVersion), outcome)
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, cond(v1alpha1.ConditionReady, false), orDash(l.Status.LiveVersion),
+			orDash(l.Status.PreviousVersion), fallback, cond(v1alpha1.ConditionRetraining, true))
 	}
 	fmt.Fprintln(tw)
 	var versions v1alpha1.ModelVersionList
@@ -556,13 +607,13 @@ func (d *player) summary(metricsAddr string) error {
 	}
 
 	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition", "plumbline_live_version_info",
-		"plumbline_gate_decisions_total", "plumbline_promotions_total", "plumbline_trigger_state", "plumbline_retrain_decisions_total")
+		"plumbline_gate_decisions_total", "plumbline_promotions_total", "plumbline_rollbacks_total", "plumbline_trigger_state", "plumbline_retrain_decisions_total")
 	if err != nil {
 		return err
 	}
 	fmt.Fprintf(d.out, "\nWhat Prometheus would scrape from the manager:\n%s\n", metrics)
-	fmt.Fprintln(d.out, "\nNot in this build yet: the guard and rollback after a promotion, and plumbline evaluate")
-	fmt.Fprintln(d.out, "(the gate reports above are synthetic numbers written by the demo).")
+	fmt.Fprintln(d.out, "\nNot in this build yet: plumbline evaluate (the gate reports above are synthetic numbers")
+	fmt.Fprintln(d.out, "written by the demo) and the evaluation of alternatives when retraining cannot help.")
 	return nil
 }
 

@@ -12,7 +12,9 @@ import (
 //
 //   - the late-delivery model's ROC AUC holds near 0.82 until the Fenwick
 //     depot opens on Tuesday at 02:00, then falls to about 0.74, and is
-//     back at 0.83 once the retrained model serves (Tuesday 13:30);
+//     back at 0.83 once the retrained model serves (Tuesday 13:30); the
+//     hourly figure the guard watches falls to 0.70 while Wednesday's
+//     candidate serves (12:05 to 13:00);
 //   - the depot feature's PSI jumps from 0.04 to 0.41 when the depot opens
 //     (the inputs drifted), the distance feature's stays at 0.05;
 //   - the address feed breaks on Tuesday from 07:00 to 10:30: a fifth of
@@ -29,6 +31,10 @@ var (
 	// The retrained model goes live on Tuesday at 13:20 in the story; from
 	// 13:30 the monitored quality is back.
 	recovered = time.Date(2026, 11, 3, 13, 30, 0, 0, time.UTC)
+	// Wednesday's candidate goes live at 12:00 and does badly in production
+	// from 12:05 until the line has rolled back (13:00).
+	badCandidate = time.Date(2026, 11, 4, 12, 5, 0, 0, time.UTC)
+	rolledBack   = time.Date(2026, 11, 4, 13, 0, 0, 0, time.UTC)
 	// storyStart is the demo clock's first reading: Monday morning.
 	storyStart = time.Date(2026, 11, 2, 9, 30, 0, 0, time.UTC)
 )
@@ -59,6 +65,8 @@ func history() []promserver.Series {
 				return 0.82 + wobble(t, 700, 0.02)
 			case t.Before(recovered):
 				return 0.74 + wobble(t, 700, 0.02)
+			case !t.Before(badCandidate) && t.Before(rolledBack):
+				return 0.70 + wobble(t, 700, 0.01)
 			}
 			return 0.83 + wobble(t, 700, 0.02)
 		}},

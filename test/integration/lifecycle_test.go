@@ -247,12 +247,10 @@ func TestLifecycleHappyPath(t *testing.T) {
 	ns := "happy"
 	key := liveLine(t, ns, nil)
 
-	line := getLine(t, key)
+	// The line's status follows its versions' (written just before it).
+	line := waitLineCondition(t, key, v1alpha1.ConditionRetraining, metav1.ConditionFalse, "Promoted")
 	if line.Status.LiveVersion != initial || line.Status.PreviousVersion != "" {
 		t.Errorf("after the first import: live %q previous %q", line.Status.LiveVersion, line.Status.PreviousVersion)
-	}
-	if err := expectCondition(line.Status.Conditions, v1alpha1.ConditionRetraining, metav1.ConditionFalse, "Promoted"); err != nil {
-		t.Error(err)
 	}
 	if _, v := served(t, ns); v != initial {
 		t.Errorf("Deployment annotation %s = %q, want %s", v1alpha1.VersionAnnotation, v, initial)
@@ -272,12 +270,9 @@ func TestLifecycleHappyPath(t *testing.T) {
 	if v1.Status.DataTo == nil || !v1.Status.DataTo.Time.Equal(start.Truncate(1e9)) || v1.Status.DataFrom != nil {
 		t.Errorf("data window %v to %v; want all history to the clock's %s", v1.Status.DataFrom, v1.Status.DataTo, start)
 	}
-	line = getLine(t, key)
+	line = waitLineCondition(t, key, v1alpha1.ConditionRetraining, metav1.ConditionTrue, "Training")
 	if line.Status.LastRetrainRequest != "2026-11-02T09:30" || line.Status.ActiveVersion != "late-risk-v1" || line.Status.VersionCount != 1 {
 		t.Errorf("line status after the request: %+v", line.Status)
-	}
-	if err := expectCondition(line.Status.Conditions, v1alpha1.ConditionRetraining, metav1.ConditionTrue, "Training"); err != nil {
-		t.Error(err)
 	}
 
 	// The training Job: deterministic name, owned by the version, labelled,

@@ -32,6 +32,8 @@ func hm(h, m int) time.Time {
 // with no address confidence, the depot feature's PSI and the labelled rows.
 type scenario struct {
 	auc, missing, psi, labelled func(t time.Time) float64
+	// live is the production quality the guard watches; healthy when nil.
+	live func(t time.Time) float64
 }
 
 func healthy(t time.Time) float64 {
@@ -59,7 +61,29 @@ func step(at time.Time, before, after float64) func(time.Time) float64 {
 
 func constant(v float64) func(time.Time) float64 { return func(time.Time) float64 { return v } }
 
+// guardScenario is a line whose production quality is healthy but for the
+// given stretches at 0.70.
+func guardScenario(bad ...[2]time.Time) scenario {
+	return scenario{auc: healthy, missing: constant(0.01), psi: constant(0.05), labelled: constant(50000),
+		live: func(t time.Time) float64 {
+			for _, b := range bad {
+				if !t.Before(b[0]) && t.Before(b[1]) {
+					return 0.70
+				}
+			}
+			return healthy(t)
+		}}
+}
+
 var scenarios = map[string]scenario{
+	// The guard's scenarios: the live version's quality over the day.
+	"guard-rollback":  guardScenario([2]time.Time{hm(6, 10), hm(12, 0)}),
+	"guard-rulebased": guardScenario([2]time.Time{hm(1, 0), hm(12, 0)}),
+	"guard-late":      guardScenario([2]time.Time{hm(3, 0), hm(12, 0)}),
+	"guard-dip":       guardScenario([2]time.Time{hm(1, 0), hm(1, 5)}),
+	"guard-down":      guardScenario([2]time.Time{hm(1, 0), hm(12, 0)}),
+	"guard-restart":   guardScenario([2]time.Time{hm(1, 0), hm(12, 0)}),
+	"guard-manual":    guardScenario(),
 	// A twenty-minute dip at 03:00: shorter than the one-hour window.
 	"dip": {auc: func(t time.Time) float64 {
 		if !t.Before(hm(3, 0)) && t.Before(hm(3, 20)) {
@@ -83,11 +107,16 @@ var scenarios = map[string]scenario{
 func triggerHistory() []promserver.Series {
 	var out []promserver.Series
 	for name, sc := range scenarios {
+		live := sc.live
+		if live == nil {
+			live = healthy
+		}
 		for metric, f := range map[string]func(time.Time) float64{
 			"larkspur_late_risk_roc_auc":     sc.auc,
 			"larkspur_feature_missing_ratio": sc.missing,
 			"larkspur_feature_psi":           sc.psi,
 			"larkspur_labelled_deliveries":   sc.labelled,
+			"larkspur_live_auc":              live,
 		} {
 			s := promserver.Series{Name: metric, Labels: map[string]string{"scenario": name}}
 			switch metric {
