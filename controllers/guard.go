@@ -242,7 +242,7 @@ func (r *ModelLineReconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass,
 	}
 	startPromotionAs(line, vw, v.target, p, v.kind, v.reason, v.message)
 	p.eventFor("Guard/rollback", line, v.target, corev1.EventTypeWarning, "RollingBack", "%s", v.message)
-	p.metrics = append(p.metrics, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, target).Inc() })
+	p.countFor(v.target.Name, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, target).Inc() })
 }
 
 // handleRollbackRequest serves a version a person named in the
@@ -275,7 +275,7 @@ func (r *ModelLineReconciler) handleRollbackRequest(line *v1alpha1.ModelLine, vw
 	msg := fmt.Sprintf("a person asked to serve %s again (annotation %s)", name, v1alpha1.RollbackRequestAnnotation)
 	startPromotionAs(line, vw, target, p, v1alpha1.PromotionRequested, "RequestedByPerson", msg)
 	p.eventFor("Rollback/"+target.Name, line, target, corev1.EventTypeNormal, "RollbackRequested", "%s", msg)
-	p.metrics = append(p.metrics, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, "requested").Inc() })
+	p.countFor(target.Name, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, "requested").Inc() })
 }
 
 func conditionReason(line *v1alpha1.ModelLine, typ string) string {

@@ -136,9 +136,12 @@ func (v *view) promoting() *v1alpha1.ModelVersion {
 
 // pass collects what a reconcile pass did, to report after its writes.
 type pass struct {
-	now     metav1.Time
-	events  []event
-	metrics []func()
+	now    metav1.Time
+	events []event
+	// metrics are counts to make once the pass's writes are done; a count
+	// bound to a version is made when that version's status was written,
+	// the rest when the line's was.
+	metrics []count
 	// wake is the earliest moment, by the controller's clock, when time
 	// alone will change something (a trigger due, a scheduled start).
 	wake time.Time
@@ -146,6 +149,19 @@ type pass struct {
 	evaluated []string
 	// created are the versions this pass created.
 	created map[string]bool
+}
+
+type count struct {
+	version string
+	inc     func()
+}
+
+// count adds a line-level count.
+func (p *pass) count(inc func()) { p.metrics = append(p.metrics, count{inc: inc}) }
+
+// countFor adds a count of something that happened to a version.
+func (p *pass) countFor(version string, inc func()) {
+	p.metrics = append(p.metrics, count{version: version, inc: inc})
 }
 
 // wakeAt asks for a pass at t, unless an earlier one is asked for.
@@ -204,6 +220,9 @@ func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelL
 	}
 	// Production first: a regression is answered before anything new starts.
 	r.guard(line, vw, p, guarded)
+	if err := r.watchAlternatives(ctx, line, vw, p); err != nil {
+		return err
+	}
 	r.handleRollbackRequest(line, vw, p)
 	// A person's request first, then the schedule, then the triggers: each
 	// later one sees a version the earlier started as in flight.
@@ -221,6 +240,13 @@ func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelL
 			return err
 		}
 		settle(line, vw, p)
+		if v.Status.Phase == v1alpha1.PhaseRejected && v.Status.Gate != nil && v.Status.Gate.Verdict == v1alpha1.GateFailed && conditionIs(line.Status.Conditions, v1alpha1.ConditionDegraded, metav1.ConditionTrue) {
+			// The live version is degraded and the retrain did not help:
+			// try what the line had before.
+			if _, err := r.startAlternatives(ctx, line, vw, p, altCandidateRejected); err != nil {
+				return err
+			}
+		}
 	}
 	queue(vw, p)
 	return r.prune(ctx, line, vw, p)
@@ -292,7 +318,7 @@ func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1
 		p.eventFor("Request/"+text.Truncate(token, 100), line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "retrain request %q: the line has no spec.training", token)
 		return nil
 	}
-	settled, err := r.tryStart(ctx, line, vw, p, pathManual, v1alpha1.ReasonManual, token)
+	settled, _, err := r.tryStart(ctx, line, vw, p, pathManual, v1alpha1.ReasonManual, map[string]string{v1alpha1.RetrainRequestAnnotation: token})
 	if err != nil || !settled {
 		// Not settled: the checks could not be judged; the token waits.
 		return err
@@ -306,7 +332,7 @@ func (r *ModelLineReconciler) handleRetrainRequest(ctx context.Context, line *v1
 // Trained version with the reason, which then waits its turn. The name comes
 // from the version number, so a pass that crashed after creating it finds
 // it again instead of making a second.
-func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason, token string) (*v1alpha1.ModelVersion, error) {
+func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason string, marks map[string]string) (*v1alpha1.ModelVersion, error) {
 	n := nextNumber(line, vw)
 	name := versionName(line.Name, n)
 	uri, err := speccheck.RenderArtifactURI(line.Spec.Training.ArtifactURI, speccheck.ArtifactData{Line: line.Name, Version: name, Number: n})
@@ -323,8 +349,10 @@ func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.M
 		},
 		Spec: v1alpha1.ModelVersionSpec{Line: line.Name, Source: v1alpha1.SourceTrained, ArtifactURI: uri, Reason: reason},
 	}
-	if token != "" {
-		v.Annotations = map[string]string{v1alpha1.RetrainRequestAnnotation: token}
+	// The marks (a person's token, a scheduled start) say what the version
+	// answers, so a pass that crashed before recording it knows it was done.
+	if len(marks) > 0 {
+		v.Annotations = merge(marks, nil)
 	}
 	if err := r.Create(ctx, v); err != nil {
 		if !apierrors.IsAlreadyExists(err) {
@@ -430,7 +458,7 @@ func (r *ModelLineReconciler) rejectByPerson(ctx context.Context, line *v1alpha1
 // finished counts a version that will not go further.
 func finished(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, result string) {
 	reason := v.Spec.Reason
-	p.metrics = append(p.metrics, func() { retrainsFinished.WithLabelValues(line.Namespace, line.Name, reason, result).Inc() })
+	p.countFor(v.Name, func() { retrainsFinished.WithLabelValues(line.Namespace, line.Name, reason, result).Inc() })
 }
 
 // startTraining creates the training Job, or adopts the one an earlier pass
@@ -479,7 +507,7 @@ func (r *ModelLineReconciler) startTraining(ctx context.Context, line *v1alpha1.
 	if created {
 		p.event(v, line, corev1.EventTypeNormal, reasonTrainingStarted, "%s", msg)
 		reason := v.Spec.Reason
-		p.metrics = append(p.metrics, func() { retrainsStarted.WithLabelValues(line.Namespace, line.Name, reason).Inc() })
+		p.countFor(v.Name, func() { retrainsStarted.WithLabelValues(line.Namespace, line.Name, reason).Inc() })
 	}
 	return nil
 }
@@ -649,13 +677,30 @@ func (r *ModelLineReconciler) watchEvaluation(ctx context.Context, line *v1alpha
 		r.rejectReport(line, vw, v, p, reasonEvaluationLost, fmt.Sprintf("evaluation Job %s was deleted before it finished", jobName(v.Name, roleGate)), "")
 		return nil
 	}
+	res, done, err := r.judgeGateJob(ctx, line, job, p)
+	if err != nil || !done {
+		return err
+	}
+	r.judged(line, vw, v, p, res)
+	return nil
+}
+
+// judgeGateJob judges a finished evaluation Job: the report its Pod left,
+// against the line's criteria. done is false while the Job runs. A Job that
+// failed or left no usable report is a Failed verdict whose reason names the
+// problem.
+func (r *ModelLineReconciler) judgeGateJob(ctx context.Context, line *v1alpha1.ModelLine, job *batchv1.Job, p *pass) (v1alpha1.GateResult, bool, error) {
+	baseline := job.Annotations[baselineVersionAnnotation]
+	refuse := func(reason, msg string) (v1alpha1.GateResult, bool, error) {
+		return v1alpha1.GateResult{Verdict: v1alpha1.GateFailed, Reason: reason, Message: text.Truncate(msg, 4000), BaselineVersion: baseline, EvaluatedTime: &p.now}, true, nil
+	}
 	outcome, reason, message := jobResult(job)
 	if outcome == jobRunning {
-		return nil
+		return v1alpha1.GateResult{}, false, nil
 	}
 	var pods corev1.PodList
 	if err := r.APIReader.List(ctx, &pods, client.InNamespace(job.Namespace), client.MatchingLabels{batchv1.ControllerUidLabel: string(job.UID)}); err != nil {
-		return fmt.Errorf("list Pods of Job %s: %w", job.Name, err)
+		return v1alpha1.GateResult{}, false, fmt.Errorf("list Pods of Job %s: %w", job.Name, err)
 	}
 	raw, pod, found := terminationMessage(job, pods.Items)
 	if outcome == jobFailed {
@@ -663,28 +708,23 @@ func (r *ModelLineReconciler) watchEvaluation(ctx context.Context, line *v1alpha
 		if found && raw != "" {
 			detail = fmt.Sprintf("; Pod %s said: %s", pod, text.Truncate(raw, 400))
 		}
-		r.rejectReport(line, vw, v, p, reasonEvaluationFailed, fmt.Sprintf("evaluation Job %s failed: %s: %s%s", job.Name, reason, message, detail), job.Annotations[baselineVersionAnnotation])
-		return nil
+		return refuse(reasonEvaluationFailed, fmt.Sprintf("evaluation Job %s failed: %s: %s%s", job.Name, reason, message, detail))
 	}
 	if !found {
-		r.rejectReport(line, vw, v, p, gatereport.ReasonMissing, fmt.Sprintf("evaluation Job %s completed but none of its Pods is left with a report (a short ttlSecondsAfterFinished can remove them)", job.Name), job.Annotations[baselineVersionAnnotation])
-		return nil
+		return refuse(gatereport.ReasonMissing, fmt.Sprintf("evaluation Job %s completed but none of its Pods is left with a report (a short ttlSecondsAfterFinished can remove them)", job.Name))
 	}
 	rep, err := gatereport.Parse([]byte(raw))
 	var bad *gatereport.Error
 	if errors.As(err, &bad) {
-		r.rejectReport(line, vw, v, p, bad.Reason, fmt.Sprintf("report of Pod %s: %s", pod, bad.Message), job.Annotations[baselineVersionAnnotation])
-		return nil
+		return refuse(bad.Reason, fmt.Sprintf("report of Pod %s: %s", pod, bad.Message))
 	}
 	if err != nil {
-		return err
+		return v1alpha1.GateResult{}, false, err
 	}
-	baseline := job.Annotations[baselineVersionAnnotation]
 	res := gate.Decide(line.Spec.Gate.Criteria, rep, baseline != "")
 	res.BaselineVersion = baseline
 	res.EvaluatedTime = &p.now
-	r.judged(line, vw, v, p, res)
-	return nil
+	return res, true, nil
 }
 
 // rejectReport rejects a candidate whose evaluation gave nothing to judge.
@@ -696,7 +736,7 @@ func (r *ModelLineReconciler) rejectReport(line *v1alpha1.ModelLine, vw *view, v
 // for a person, or promoting.
 func (r *ModelLineReconciler) judged(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass, res v1alpha1.GateResult) {
 	v.Status.Gate = &res
-	p.metrics = append(p.metrics, func() {
+	p.countFor(v.Name, func() {
 		gateDecisions.WithLabelValues(line.Namespace, line.Name, string(res.Verdict), res.Reason).Inc()
 	})
 	evaluated := metav1.ConditionTrue
@@ -798,7 +838,7 @@ func (r *ModelLineReconciler) promote(ctx context.Context, line *v1alpha1.ModelL
 		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reasonRolloutFailed, msg)
 		p.event(v, line, corev1.EventTypeWarning, reasonRolloutFailed, "%s", msg)
 		p.event(line, v, corev1.EventTypeWarning, reasonRolloutFailed, "version %s: %s; restoring %s", v.Name, msg, orNone(v.Status.Promotion.FromVersion))
-		p.metrics = append(p.metrics, func() { rolloutFailures.WithLabelValues(line.Namespace, line.Name).Inc() })
+		p.countFor(v.Name, func() { rolloutFailures.WithLabelValues(line.Namespace, line.Name).Inc() })
 		finished(line, v, p, "Failed")
 	case rolloutComplete:
 		v.Status.PromotedTime = &p.now
@@ -811,7 +851,7 @@ func (r *ModelLineReconciler) promote(ctx context.Context, line *v1alpha1.ModelL
 		switch promotionKind(v) {
 		case v1alpha1.PromotionCandidate:
 			p.event(line, v, corev1.EventTypeNormal, reasonPromoted, "version %s is live (replacing %s)", v.Name, from)
-			p.metrics = append(p.metrics, func() { promotions.WithLabelValues(line.Namespace, line.Name).Inc() })
+			p.countFor(v.Name, func() { promotions.WithLabelValues(line.Namespace, line.Name).Inc() })
 			finished(line, v, p, "Promoted")
 		case v1alpha1.PromotionRollback:
 			p.event(line, v, corev1.EventTypeWarning, "RolledBack", "version %s serves again in place of %s, which regressed", v.Name, from)

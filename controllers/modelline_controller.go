@@ -138,12 +138,17 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 		}
 	}
 	if err != nil {
-		// Tell what the written and the created versions went through;
-		// the rest is recomputed by the pass that follows.
+		// Tell what the written and the created versions went through,
+		// and count it; the rest is recomputed by the pass that follows.
 		for name := range p.created {
 			written[name] = true
 		}
 		r.emit(p, written)
+		for _, m := range p.metrics {
+			if m.version != "" && written[m.version] {
+				m.inc()
+			}
+		}
 		if apierrors.IsConflict(err) {
 			log.FromContext(ctx).V(1).Info("status write raced another change; redoing the pass", "error", err.Error())
 			return ctrl.Result{RequeueAfter: conflictRetry}, nil
@@ -156,7 +161,7 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 	}
 	r.emit(p, nil)
 	for _, m := range p.metrics {
-		m()
+		m.inc()
 	}
 	recordLineMetrics(&line, vw.live())
 	// The next pass comes from a change to the line, its Deployment, its

@@ -11,6 +11,7 @@ import (
 
 	corev1 "k8s.io/api/core/v1"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
@@ -37,6 +38,9 @@ const (
 	outcomeInFlight      = "InFlight"
 	outcomeCooldown      = "Cooldown"
 )
+
+// scheduledForAnnotation on a version names the scheduled start it answers.
+const scheduledForAnnotation = "plumbline.dev/scheduled-for"
 
 // checkRetry is how soon a start whose checks could not be judged (Prometheus
 // unreachable, no data) is tried again.
@@ -363,26 +367,39 @@ func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
 // tryStart is the path every retrain takes: the checks, then the start. It
 // reports whether the request was settled (started or refused); false means
 // the checks could not be judged and the caller should try again later.
-func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason, token string) (bool, error) {
+func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason string, marks map[string]string) (bool, *v1alpha1.ModelVersion, error) {
 	v := decideStart(path, r.runChecks(ctx, line, path, p.now.Time))
-	p.metrics = append(p.metrics, func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.outcome).Inc() })
+	p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.outcome).Inc() })
+	if v.outcome == outcomeInsufficient {
+		// Retraining cannot help; an older or rule-based version might.
+		started, err := r.startAlternatives(ctx, line, vw, p, altInsufficientData)
+		if err != nil {
+			return false, nil, err
+		}
+		if started {
+			setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionBlocked, Status: metav1.ConditionFalse,
+				Reason: "DataQualityOK", Message: "the data-quality checks passed"}, line.Generation, p.now)
+			return true, nil, nil
+		}
+	}
 	applyVerdict(line, p, reason, v)
 	switch v.outcome {
 	case outcomeChecksUnknown:
 		p.wakeAt(p.now.Add(checkRetry))
-		return false, nil
+		return false, nil, nil
 	case outcomeStarted:
-		version, err := r.StartVersion(ctx, line, vw, p, reason, token)
+		version, err := r.StartVersion(ctx, line, vw, p, reason, marks)
 		if err != nil {
-			return false, err
+			return false, nil, err
 		}
 		queued := ""
 		if a := vw.active(); a != nil && a != version {
 			queued = fmt.Sprintf("; it waits for %s (%s)", a.Name, a.Status.Phase)
 		}
 		p.event(line, version, corev1.EventTypeNormal, "RetrainStarted", "%s: created version %s%s", reason, version.Name, queued)
+		return true, version, nil
 	}
-	return true, nil
+	return true, nil, nil
 }
 
 // handleSchedule starts the scheduled retrain that is due, the way the
@@ -422,27 +439,47 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Latest}
 		p.eventFor("Schedule/"+plan.Latest.Format(time.RFC3339), line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts missed, the latest at %s, which is past spec.schedule.startingDeadlineSeconds (%ds); next start %s",
 			missed(), plan.Latest.Format(time.RFC3339), *s.StartingDeadlineSeconds, plan.Next.Format(time.RFC3339))
-		p.metrics = append(p.metrics, func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
+		p.count(func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
 		return nil
 	}
 	reason := v1alpha1.ReasonSchedule
 	if a := vw.active(); a != nil {
 		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
 		p.eventFor("Schedule/"+plan.Due.Format(time.RFC3339), line, a, corev1.EventTypeNormal, "ScheduleSkipped", "scheduled start at %s skipped: version %s is in flight (%s)", plan.Due.Format(time.RFC3339), a.Name, a.Status.Phase)
-		p.metrics = append(p.metrics, func() {
+		p.count(func() {
 			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathSchedule, outcomeInFlight).Inc()
 		})
 		return nil
 	}
-	settled, err := r.tryStart(ctx, line, vw, p, pathSchedule, reason, "")
+	due := plan.Due.Format(time.RFC3339)
+	for _, v := range vw.versions {
+		if v.Annotations[scheduledForAnnotation] == due {
+			// Started by a pass that did not live to record it.
+			line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
+			return nil
+		}
+	}
+	settled, started, err := r.tryStart(ctx, line, vw, p, pathSchedule, reason, map[string]string{scheduledForAnnotation: due})
 	if err != nil || !settled {
 		return err
 	}
 	line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
 	if plan.Missed > 0 {
-		p.eventFor("Schedule/"+plan.Due.Format(time.RFC3339), line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
-			missed(), plan.Due.Format(time.RFC3339))
-		p.metrics = append(p.metrics, func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
+		// Told about the version it started, when there is one, so the
+		// warning goes out even if the line's own write races.
+		var about runtime.Object
+		name := ""
+		if started != nil {
+			about, name = started, started.Name
+		}
+		p.eventFor("Schedule/"+due, line, about, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
+			missed(), due)
+		inc := func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) }
+		if name != "" {
+			p.countFor(name, inc)
+		} else {
+			p.count(inc)
+		}
 	}
 	return nil
 }
@@ -458,7 +495,7 @@ func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1
 	tr := firing[0]
 	reason := v1alpha1.ReasonTriggerPrefix + tr.Name
 	if vw.active() != nil {
-		p.metrics = append(p.metrics, func() {
+		p.count(func() {
 			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcomeInFlight).Inc()
 		})
 		return nil
@@ -468,12 +505,12 @@ func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1
 		cooldown = seconds(*line.Spec.CooldownSeconds)
 	}
 	if last := lastRetrain(line); last != nil && p.now.Time.Before(last.Add(cooldown)) {
-		p.metrics = append(p.metrics, func() {
+		p.count(func() {
 			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcomeCooldown).Inc()
 		})
 		return nil
 	}
-	_, err := r.tryStart(ctx, line, vw, p, pathTrigger, reason, "")
+	_, _, err := r.tryStart(ctx, line, vw, p, pathTrigger, reason, nil)
 	return err
 }
 

@@ -336,7 +336,18 @@ func (d *player) lifecycle(lineKey types.NamespacedName) error {
 	if err := d.act("the scorer Deployment rolls back to late-risk-v1", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v1", d.timeout)); err != nil {
 		return err
 	}
-	return d.waitPhase("late-risk-v1", v1alpha1.PhaseLive)
+	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseLive); err != nil {
+		return err
+	}
+	// The line's own status follows its versions'.
+	return d.wait("the line to say it fell back", func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
+			return false, err
+		}
+		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionFallbackActive)
+		return c != nil && c.Status == metav1.ConditionTrue && line.Status.LiveVersion == "late-risk-v1", nil
+	})
 }
 
 // retrain asks for a retrain with a token and plays its training and
@@ -613,7 +624,7 @@ func (d *player) summary(metricsAddr string) error {
 	}
 	fmt.Fprintf(d.out, "\nWhat Prometheus would scrape from the manager:\n%s\n", metrics)
 	fmt.Fprintln(d.out, "\nNot in this build yet: plumbline evaluate (the gate reports above are synthetic numbers")
-	fmt.Fprintln(d.out, "written by the demo) and the evaluation of alternatives when retraining cannot help.")
+	fmt.Fprintln(d.out, "written by the demo, not computed from a golden set).")
 	return nil
 }
 

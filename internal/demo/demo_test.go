@@ -52,7 +52,7 @@ func TestDemoRuns(t *testing.T) {
 		"2 versions belong to line late-risk",
 		"ModelVersion late-risk-v0 is now Live",
 		"trigger auc-drop is Pending: below 0.78 since 2026-11-03T02:",
-		"[Tue 08:15] event Warning TriggerFiring ModelLine/late-risk: trigger auc-drop is Firing",
+		"event Warning TriggerFiring ModelLine/late-risk: trigger auc-drop is Firing",
 		"event Warning RetrainBlocked ModelLine/late-risk: retrain for Trigger/auc-drop: data-quality check address-missing is 0.22",
 		"event Normal RetrainStarted ModelLine/late-risk: Trigger/auc-drop: created version late-risk-v1",
 		"ModelVersion late-risk-v1 is now Live",

@@ -84,6 +84,10 @@ var scenarios = map[string]scenario{
 	"guard-down":      guardScenario([2]time.Time{hm(1, 0), hm(12, 0)}),
 	"guard-restart":   guardScenario([2]time.Time{hm(1, 0), hm(12, 0)}),
 	"guard-manual":    guardScenario(),
+	// Alternatives: a drop with too few labels to retrain on; a live
+	// version degraded after probation.
+	"alt-insufficient": {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(3000)},
+	"alt-degraded":     guardScenario([2]time.Time{hm(3, 0), hm(12, 0)}),
 	// A twenty-minute dip at 03:00: shorter than the one-hour window.
 	"dip": {auc: func(t time.Time) float64 {
 		if !t.Before(hm(3, 0)) && t.Before(hm(3, 20)) {
@@ -370,9 +374,10 @@ func TestTriggerWithoutDriftNeedsReview(t *testing.T) {
 	}
 }
 
-// A drop with too few new labelled rows is not worth a retrain.
+// A drop with too few new labelled rows is not worth a retrain; with no
+// fallback to try either, a person should look.
 func TestTriggerWithTooFewLabels(t *testing.T) {
-	key := watchedLine(t, "few-labels", nil)
+	key := watchedLine(t, "few-labels", func(o *unstructured.Unstructured) { mustSet(t, o, "spec.fallback", nil) })
 	stateAt(t, key, hm(4, 0), v1alpha1.TriggerFiring)
 	line := waitLineCondition(t, key, v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, "InsufficientData")
 	mustContain(t, "NeedsReview message", meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionNeedsReview).Message,
