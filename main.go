@@ -3,6 +3,7 @@
 //
 //	plumbline manager   run the controller
 //	plumbline demo      run the local demo on an embedded control plane
+//	plumbline evaluate  measure a candidate against the live model on a golden set
 //	plumbline version   print the version
 package main
 
@@ -26,6 +27,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
 	"plumbline.dev/plumbline/internal/demo"
+	"plumbline.dev/plumbline/internal/evaluate"
 	"plumbline.dev/plumbline/internal/manager"
 )
 
@@ -41,6 +43,7 @@ type command struct {
 var commands = []command{
 	{"manager", "run the controller against the cluster of the current kubeconfig", runManager},
 	{"demo", "run the local demo on an embedded control plane", runDemo},
+	{"evaluate", "measure a candidate against the live model on a golden set (the gate Job's tool)", runEvaluate},
 	{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
 		_, err := fmt.Fprintln(stdout, version)
 		return err
@@ -153,6 +156,14 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 		return fmt.Errorf("run manager: %w", err)
 	}
 	return nil
+}
+
+func runEvaluate(_ context.Context, args []string, stdout, stderr io.Writer) error {
+	err := evaluate.Command(args, os.Getenv, stdout, stderr)
+	if errors.Is(err, evaluate.ErrUsage) {
+		return errUsage
+	}
+	return err
 }
 
 func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {

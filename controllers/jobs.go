@@ -4,6 +4,8 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"fmt"
+	"strconv"
+	"strings"
 	"time"
 
 	batchv1 "k8s.io/api/batch/v1"
@@ -11,6 +13,7 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/evaluate"
 )
 
 // Job roles, in the plumbline.dev/role label and the Job name's suffix.
@@ -38,7 +41,58 @@ const (
 	envDataTo       = "PLUMBLINE_DATA_TO"
 	envCandidateURI = "PLUMBLINE_CANDIDATE_URI"
 	envBaselineURI  = "PLUMBLINE_BASELINE_URI"
+	// What the line's criteria judge, so plumbline evaluate puts just that
+	// in the gate report without the Job template repeating the criteria.
+	envGateMetrics    = evaluate.EnvGateMetrics
+	envGateSegments   = evaluate.EnvGateSegments
+	envGateConfidence = evaluate.EnvGateConfidence
 )
+
+// gateAsks sums up what the criteria judge: the metrics (comma-separated,
+// in the criteria's order), the segments ("*" when a criterion asks for
+// every one, else the named ones, else "none") and the highest confidence
+// asked (0.95 by default).
+func gateAsks(criteria []v1alpha1.GateCriterion) (metrics, segments, confidence string) {
+	var ms, segs []string
+	seenM, seenS := map[string]bool{}, map[string]bool{}
+	all := false
+	conf := 0.0
+	for _, c := range criteria {
+		if !seenM[c.Metric] {
+			seenM[c.Metric] = true
+			ms = append(ms, c.Metric)
+		}
+		switch c.Segment {
+		case "":
+		case "*":
+			all = true
+		default:
+			if !seenS[c.Segment] {
+				seenS[c.Segment] = true
+				segs = append(segs, c.Segment)
+			}
+		}
+		if c.MaxRegression != nil {
+			cc := 0.95
+			if c.Confidence != nil {
+				cc = *c.Confidence
+			}
+			conf = max(conf, cc)
+		}
+	}
+	switch {
+	case all:
+		segments = "*"
+	case len(segs) > 0:
+		segments = strings.Join(segs, ",")
+	default:
+		segments = "none"
+	}
+	if conf == 0 {
+		conf = 0.95
+	}
+	return strings.Join(ms, ","), segments, strconv.FormatFloat(conf, 'g', -1, 64)
+}
 
 // childName derives a name from base and suffix that fits max characters:
 // base-suffix when it fits, else a shortened base with a hash of the whole
@@ -106,9 +160,13 @@ func buildGateJob(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, baseline *
 		job.Annotations[baselineVersionAnnotation] = baseline.Name
 		baseURI = baseline.Spec.ArtifactURI
 	}
+	metrics, segments, confidence := gateAsks(line.Spec.Gate.Criteria)
 	env := append(versionEnv(line, v, w),
 		corev1.EnvVar{Name: envCandidateURI, Value: v.Spec.ArtifactURI},
-		corev1.EnvVar{Name: envBaselineURI, Value: baseURI})
+		corev1.EnvVar{Name: envBaselineURI, Value: baseURI},
+		corev1.EnvVar{Name: envGateMetrics, Value: metrics},
+		corev1.EnvVar{Name: envGateSegments, Value: segments},
+		corev1.EnvVar{Name: envGateConfidence, Value: confidence})
 	injectEnv(&job.Spec.Template.Spec, env)
 	return job
 }

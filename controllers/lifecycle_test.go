@@ -145,6 +145,9 @@ func TestBuildGateJob(t *testing.T) {
 	if job.Name != "late-risk-v4-gate" || env[envCandidateURI] != "s3://m/4" || env[envBaselineURI] != "s3://m/3" || job.Annotations[baselineVersionAnnotation] != "late-risk-v3" {
 		t.Errorf("gate job %s, env %v, annotations %v", job.Name, env, job.Annotations)
 	}
+	if env[envGateMetrics] != "" || env[envGateSegments] != "none" || env[envGateConfidence] != "0.95" {
+		t.Errorf("gate env with no criteria: %q %q %q", env[envGateMetrics], env[envGateSegments], env[envGateConfidence])
+	}
 	noBase := buildGateJob(line, v, nil, dataWindow{to: time.Now()})
 	if _, ok := noBase.Annotations[baselineVersionAnnotation]; ok {
 		t.Error("a baseline annotation without a baseline")
@@ -422,5 +425,25 @@ func TestNextNumber(t *testing.T) {
 	}
 	if n := nextNumber(line, &view{}); n != 4 {
 		t.Errorf("next %d, want 4 (one past the count)", n)
+	}
+}
+
+func TestGateAsks(t *testing.T) {
+	cases := []struct {
+		criteria             []v1alpha1.GateCriterion
+		metrics, segs, confi string
+	}{
+		{[]v1alpha1.GateCriterion{{Metric: "roc_auc", Minimum: ptr.To(0.8)}, {Metric: "roc_auc", MaxRegression: ptr.To(0.005), Confidence: ptr.To(0.9)},
+			{Metric: "log_loss", Maximum: ptr.To(0.45)}, {Metric: "recall", Segment: "*", MaxRegression: ptr.To(0.02)}},
+			"roc_auc,log_loss,recall", "*", "0.95"},
+		{[]v1alpha1.GateCriterion{{Metric: "recall", Segment: "harbour", MaxRegression: ptr.To(0.02), Confidence: ptr.To(0.99)}, {Metric: "recall", Segment: "north", Minimum: ptr.To(0.7)}},
+			"recall", "harbour,north", "0.99"},
+		{[]v1alpha1.GateCriterion{{Metric: "rmse", Maximum: ptr.To(3.0)}}, "rmse", "none", "0.95"},
+	}
+	for _, c := range cases {
+		m, s, conf := gateAsks(c.criteria)
+		if m != c.metrics || s != c.segs || conf != c.confi {
+			t.Errorf("gateAsks: %q %q %q; want %q %q %q", m, s, conf, c.metrics, c.segs, c.confi)
+		}
 	}
 }
