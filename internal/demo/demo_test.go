@@ -60,6 +60,8 @@ func TestDemoRuns(t *testing.T) {
 		"event Normal RetrainStarted ModelLine/late-risk: Manual: created version late-risk-v2",
 		"event Normal Archived ModelVersion/late-risk-v0: replaced by late-risk-v1",
 		`event Warning GateFailed ModelLine/late-risk: version late-risk-v2 rejected, live version unchanged`,
+		`recall/segment "harbour": lower bound of the change in recall`,
+		"evaluation Job late-risk-v1-gate ran plumbline evaluate on a synthetic golden set",
 		"ModelVersion late-risk-v2 is now Rejected",
 		"event Warning Degraded ModelLine/late-risk: late-risk-v0 regressed in production",
 		"so nothing is rolled back automatically",

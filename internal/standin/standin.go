@@ -172,3 +172,30 @@ func RollOutVersion(ctx context.Context, c client.Client, ns, name, version stri
 	}
 	return RollOut(ctx, c, ns, name)
 }
+
+// RunLastContainer plays the kubelet for a Job whose last container the
+// caller can run in this process (the plumbline binary): it hands run that
+// container's arguments and environment (as the controller set them), then
+// finishes the Job the way the Job controller would: Complete with run's
+// output as the termination message, or Failed (BackoffLimitExceeded) with
+// run's error as the message.
+func RunLastContainer(ctx context.Context, c client.Client, ns, name string, run func(args []string, env map[string]string) (string, error)) error {
+	var job batchv1.Job
+	if err := c.Get(ctx, types.NamespacedName{Namespace: ns, Name: name}, &job); err != nil {
+		return fmt.Errorf("get Job %s: %w", name, err)
+	}
+	cs := job.Spec.Template.Spec.Containers
+	if len(cs) == 0 {
+		return fmt.Errorf("Job %s has no container", name)
+	}
+	last := cs[len(cs)-1]
+	env := map[string]string{}
+	for _, e := range last.Env {
+		env[e.Name] = e.Value
+	}
+	msg, err := run(append([]string(nil), last.Args...), env)
+	if err != nil {
+		return FailJob(ctx, c, ns, name, "BackoffLimitExceeded", "Job has reached the specified backoff limit", err.Error())
+	}
+	return SucceedJob(ctx, c, ns, name, msg)
+}
