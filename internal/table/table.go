@@ -7,7 +7,6 @@ package table
 import (
 	"bufio"
 	"bytes"
-	"encoding/csv"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -103,8 +102,24 @@ type Reader interface {
 	Next() ([]Cell, error)
 	// Where names the last row read for a message: "golden.csv:17".
 	Where() string
+	// Pos is the last row's line (CSV, JSON Lines) or row number (Parquet),
+	// for At.
+	Pos() int64
+	// At names a row by its Pos, as Where names the last one.
+	At(pos int64) string
 	Close() error
 }
+
+// RowError is one malformed row. The reader can go on past it: the next
+// call to Next reads the row after (or io.EOF: a malformed last row is the
+// mark of a batch cut off while it was written).
+type RowError struct {
+	Where string
+	Pos   int64
+	Msg   string
+}
+
+func (e *RowError) Error() string { return e.Where + ": " + e.Msg }
 
 // Open opens a file for reading.
 func Open(path string, format Format) (Reader, error) {
@@ -115,7 +130,7 @@ func Open(path string, format Format) (Reader, error) {
 	var r Reader
 	switch format {
 	case CSV:
-		r, err = newCSV(f, path)
+		r, err = newFastCSV(f, path)
 	case JSONL:
 		r, err = newJSONL(f, path)
 	case Parquet:
@@ -129,60 +144,6 @@ func Open(path string, format Format) (Reader, error) {
 	}
 	return r, nil
 }
-
-// csvReader reads CSV with a header line.
-type csvReader struct {
-	f     *os.File
-	name  string
-	r     *csv.Reader
-	cols  []string
-	cells []Cell
-	line  int
-}
-
-func newCSV(f *os.File, name string) (*csvReader, error) {
-	r := csv.NewReader(bufio.NewReaderSize(f, 1<<20))
-	r.ReuseRecord = true
-	r.FieldsPerRecord = -1
-	head, err := r.Read()
-	if errors.Is(err, io.EOF) {
-		return nil, fmt.Errorf("%s: the file is empty; want a header line naming the columns", name)
-	}
-	if err != nil {
-		return nil, fmt.Errorf("%s: %w", name, err)
-	}
-	cols := make([]string, len(head))
-	for i, h := range head {
-		cols[i] = strings.TrimSpace(strings.TrimPrefix(h, "\ufeff"))
-	}
-	if err := checkColumns(name, cols); err != nil {
-		return nil, err
-	}
-	return &csvReader{f: f, name: name, r: r, cols: cols, cells: make([]Cell, len(cols)), line: 1}, nil
-}
-
-func (c *csvReader) Columns() []string { return c.cols }
-
-func (c *csvReader) Next() ([]Cell, error) {
-	rec, err := c.r.Read()
-	if err != nil {
-		if errors.Is(err, io.EOF) {
-			return nil, io.EOF
-		}
-		return nil, fmt.Errorf("%s: %w", c.name, err)
-	}
-	c.line, _ = c.r.FieldPos(0)
-	if len(rec) != len(c.cols) {
-		return nil, fmt.Errorf("%s: has %d fields, the header %d", c.Where(), len(rec), len(c.cols))
-	}
-	for i, s := range rec {
-		c.cells[i] = Cell{Kind: Text, S: s}
-	}
-	return c.cells, nil
-}
-
-func (c *csvReader) Where() string { return fmt.Sprintf("%s:%d", c.name, c.line) }
-func (c *csvReader) Close() error  { return c.f.Close() }
 
 // jsonlReader reads one JSON object per line. The columns are the keys of
 // the first object; later objects may leave some out (null) but not add
@@ -235,7 +196,7 @@ func (j *jsonlReader) object() (map[string]json.RawMessage, error) {
 		}
 		var obj map[string]json.RawMessage
 		if err := json.Unmarshal(b, &obj); err != nil {
-			return nil, fmt.Errorf("%s: not a JSON object: %v", j.Where(), err)
+			return nil, &RowError{Where: j.Where(), Pos: int64(j.line), Msg: fmt.Sprintf("not a JSON object: %v", err)}
 		}
 		return obj, nil
 	}
@@ -262,11 +223,11 @@ func (j *jsonlReader) Next() ([]Cell, error) {
 	for k, raw := range obj {
 		i, ok := j.index[k]
 		if !ok {
-			return nil, fmt.Errorf("%s: key %q is not among the columns of the first row (%s)", j.Where(), k, strings.Join(j.cols, ", "))
+			return nil, &RowError{Where: j.Where(), Pos: int64(j.line), Msg: fmt.Sprintf("key %q is not among the columns of the first row (%s)", k, strings.Join(j.cols, ", "))}
 		}
 		c, err := jsonCell(raw)
 		if err != nil {
-			return nil, fmt.Errorf("%s: key %q: %v", j.Where(), k, err)
+			return nil, &RowError{Where: j.Where(), Pos: int64(j.line), Msg: fmt.Sprintf("key %q: %v", k, err)}
 		}
 		j.cells[i] = c
 	}
@@ -298,8 +259,10 @@ func jsonCell(raw json.RawMessage) (Cell, error) {
 	return Cell{Kind: Number, S: string(raw), F: f}, nil
 }
 
-func (j *jsonlReader) Where() string { return fmt.Sprintf("%s:%d", j.name, j.line) }
-func (j *jsonlReader) Close() error  { return j.f.Close() }
+func (j *jsonlReader) Where() string       { return j.At(int64(j.line)) }
+func (j *jsonlReader) Pos() int64          { return int64(j.line) }
+func (j *jsonlReader) At(pos int64) string { return fmt.Sprintf("%s:%d", j.name, pos) }
+func (j *jsonlReader) Close() error        { return j.f.Close() }
 
 // parquetReader reads a flat Parquet file (no nested columns).
 type parquetReader struct {
@@ -400,8 +363,10 @@ func parquetCell(v parquet.Value) Cell {
 	return Cell{Kind: Text, S: v.String()}
 }
 
-func (p *parquetReader) Where() string { return fmt.Sprintf("%s: row %d", p.name, p.row) }
-func (p *parquetReader) Close() error  { return p.f.Close() }
+func (p *parquetReader) Where() string       { return p.At(p.row) }
+func (p *parquetReader) Pos() int64          { return p.row }
+func (p *parquetReader) At(pos int64) string { return fmt.Sprintf("%s: row %d", p.name, pos) }
+func (p *parquetReader) Close() error        { return p.f.Close() }
 
 func checkColumns(name string, cols []string) error {
 	seen := map[string]bool{}

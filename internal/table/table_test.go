@@ -1,7 +1,10 @@
 package table
 
 import (
+	"bytes"
+	"encoding/csv"
 	"errors"
+	"fmt"
 	"io"
 	"os"
 	"path/filepath"
@@ -135,6 +138,56 @@ func TestErrorsNameTheLine(t *testing.T) {
 	}
 }
 
+// A malformed row is a RowError the reader goes on past: the data checks
+// count such rows instead of giving up on the batch.
+func TestReadersGoOnPastMalformedRows(t *testing.T) {
+	cases := []struct {
+		file, content string
+		want          []string // the first cell of each good row
+		bad           []int64  // the lines of the malformed rows
+	}{
+		{"a.csv", "a,b\n1,2\n3\n4,5\n\"x\"y,6\n7,8\n9,\"cut", []string{"1", "4", "7"}, []int64{3, 5, 7}},
+		{"a.jsonl", "{\"a\":1}\n{\"a\":\n{\"a\":2}\n{\"b\":3}\n{\"a\":4}\n{\"a\":5", []string{"1", "2", "4"}, []int64{2, 4, 6}},
+	}
+	for _, c := range cases {
+		t.Run(c.file, func(t *testing.T) {
+			p := write(t, c.file, c.content)
+			f, _ := FormatOf(p, "")
+			r, err := Open(p, f)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer r.Close()
+			var good []string
+			var bad []int64
+			for {
+				cells, err := r.Next()
+				var rowErr *RowError
+				if errors.As(err, &rowErr) {
+					if rowErr.Pos != r.Pos() {
+						t.Errorf("RowError at %d, reader at %d", rowErr.Pos, r.Pos())
+					}
+					bad = append(bad, rowErr.Pos)
+					continue
+				}
+				if errors.Is(err, io.EOF) {
+					break
+				}
+				if err != nil {
+					t.Fatal(err)
+				}
+				good = append(good, cells[0].S)
+			}
+			if strings.Join(good, " ") != strings.Join(c.want, " ") {
+				t.Errorf("good rows %v, want %v", good, c.want)
+			}
+			if fmt.Sprint(bad) != fmt.Sprint(c.bad) {
+				t.Errorf("malformed rows at %v, want %v", bad, c.bad)
+			}
+		})
+	}
+}
+
 func TestFormatOf(t *testing.T) {
 	for path, want := range map[string]Format{"a.csv": CSV, "b.JSONL": JSONL, "c.ndjson": JSONL, "d.parquet": Parquet} {
 		if f, err := FormatOf(path, ""); err != nil || f != want {
@@ -163,6 +216,10 @@ func fuzzRead(t *testing.T, name string, data []byte) {
 	defer r.Close()
 	for i := 0; i < 100000; i++ {
 		cells, err := r.Next()
+		var rowErr *RowError
+		if errors.As(err, &rowErr) {
+			continue // the readers go on past a malformed row
+		}
 		if err != nil {
 			return
 		}
@@ -192,4 +249,50 @@ func FuzzParquet(f *testing.F) {
 	f.Add([]byte("PAR1"))
 	f.Add([]byte("PAR1\x00\x00\x00\x00PAR1"))
 	f.Fuzz(func(t *testing.T, data []byte) { fuzzRead(t, "f.parquet", data) })
+}
+
+// FuzzCSVAgainstStdlib: wherever encoding/csv reads a file without error,
+// the fast reader reads the same fields.
+func FuzzCSVAgainstStdlib(f *testing.F) {
+	for _, s := range []string{"a,b\n1,2\n", "a,b\n\"x,y\",\"he said \"\"hi\"\"\"\n", "a,b\r\n1,2\r\n", "a,b\n\"multi\nline\",3\n", "a\n\n1\n", "a,b\n1,\n,2\n"} {
+		f.Add([]byte(s))
+	}
+	f.Fuzz(func(t *testing.T, data []byte) {
+		std := csv.NewReader(bytes.NewReader(data))
+		want, err := std.ReadAll()
+		if err != nil || len(want) == 0 {
+			return
+		}
+		for _, rec := range want[1:] {
+			if len(rec) != len(want[0]) {
+				return
+			}
+		}
+		p := filepath.Join(t.TempDir(), "f.csv")
+		if err := os.WriteFile(p, data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		r, err := Open(p, CSV)
+		if err != nil {
+			if strings.Contains(err.Error(), "appears twice") || strings.Contains(err.Error(), "has no name") {
+				return // the header check is ours
+			}
+			t.Fatalf("fast reader refused what encoding/csv read: %v", err)
+		}
+		defer r.Close()
+		for i, rec := range want[1:] {
+			cells, err := r.Next()
+			if err != nil {
+				t.Fatalf("row %d: %v (encoding/csv read %q)", i+1, err, rec)
+			}
+			for j := range rec {
+				if cells[j].S != rec[j] {
+					t.Fatalf("row %d field %d: %q, encoding/csv %q", i+1, j, cells[j].S, rec[j])
+				}
+			}
+		}
+		if _, err := r.Next(); !errors.Is(err, io.EOF) {
+			t.Fatalf("more rows than encoding/csv: %v", err)
+		}
+	})
 }

@@ -1,0 +1,101 @@
+package stats
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"gonum.org/v1/gonum/stat"
+	"gonum.org/v1/gonum/stat/distuv"
+)
+
+// Source: SciPy test suite, ks_2samp: [1.01,2.01] vs [1,2,3] gives D=1/3,
+// p=1.0; [1.01,2.01] vs [1,2,3,4] gives D=0.5, p=14/15 (exact).
+func TestKSReference(t *testing.T) {
+	r := KSTest([]float64{1.01, 2.01}, []float64{1, 2, 3})
+	near(t, "D", r.D, 1.0/3, 1e-12)
+	near(t, "p", r.PValue, 1.0, 1e-12)
+	if !r.Exact {
+		t.Error("small samples: want the exact p-value")
+	}
+	r = KSTest([]float64{1.01, 2.01}, []float64{1, 2, 3, 4})
+	near(t, "D", r.D, 0.5, 1e-12)
+	near(t, "p", r.PValue, 14.0/15, 1e-12)
+	// gonum gives the same D by another route.
+	near(t, "D (gonum)", stat.KolmogorovSmirnov([]float64{1.01, 2.01}, nil, []float64{1, 2, 3, 4}, nil), 0.5, 1e-12)
+}
+
+// For larger samples the asymptotic p-value is used; it agrees with the
+// exact one near the switch (derived check: both routes on 110 x 100 values).
+func TestKSAsymptoticNearExact(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 5))
+	a, b := make([]float64, 110), make([]float64, 100)
+	for i := range a {
+		a[i] = rng.NormFloat64()
+	}
+	for i := range b {
+		b[i] = rng.NormFloat64() + 0.3
+	}
+	r := KSTest(a, b)
+	exact := ksExactP(r.D, len(a), len(b))
+	if math.Abs(r.PValue-exact) > 0.02 {
+		t.Errorf("asymptotic p %.4f, exact %.4f", r.PValue, exact)
+	}
+	if r.Exact {
+		t.Error("110 x 100 should use the asymptotic route")
+	}
+	near(t, "D (gonum)", r.D, stat.KolmogorovSmirnov(a, nil, b, nil), 1e-12)
+}
+
+// Source: SciPy documentation, wasserstein_distance: [0,1,3] vs [5,6,8] is
+// 5.0; [0,1] vs [0,1] with weights [3,1] and [2,2] is 0.25.
+func TestWassersteinReference(t *testing.T) {
+	near(t, "W1", Wasserstein1([]float64{0, 1, 3}, []float64{5, 6, 8}, nil, nil), 5.0, 1e-12)
+	near(t, "W1 weighted", Wasserstein1([]float64{0, 1}, []float64{0, 1}, []float64{3, 1}, []float64{2, 2}), 0.25, 1e-12)
+}
+
+// Source: SciPy documentation, jensenshannon: [1,0,0] vs [0,1,0] in base 2
+// is 1.0; identical inputs 0.0. gonum's stat.JensenShannon is the divergence
+// in nats: the square of the distance in base e.
+func TestJensenShannonReference(t *testing.T) {
+	near(t, "JS", JensenShannonDistance([]float64{1, 0, 0}, []float64{0, 1, 0}, 2), 1.0, 1e-12)
+	near(t, "JS identical", JensenShannonDistance([]float64{0.2, 0.3, 0.5}, []float64{0.2, 0.3, 0.5}, 2), 0, 1e-12)
+	p, q := []float64{0.1, 0.4, 0.5}, []float64{0.3, 0.3, 0.4}
+	d := JensenShannonDistance(p, q, math.E)
+	near(t, "JS vs gonum", d*d, stat.JensenShannon(p, q), 1e-12)
+}
+
+// Source: SciPy documentation, chi2_contingency: [[10,10,20],[20,20,20]]
+// gives 2.7777777777777777, dof 2, p=0.24935220877729619, expected
+// [[12,12,16],[18,18,24]].
+func TestChiSquareHomogeneityReference(t *testing.T) {
+	x, dof, p, exp := ChiSquareHomogeneity([][]float64{{10, 10, 20}, {20, 20, 20}})
+	near(t, "statistic", x, 2.7777777777777777, 1e-12)
+	if dof != 2 {
+		t.Errorf("dof %d", dof)
+	}
+	near(t, "p", p, 0.24935220877729619, 1e-12)
+	want := [][]float64{{12, 12, 16}, {18, 18, 24}}
+	for i := range want {
+		for j := range want[i] {
+			near(t, "expected", exp[i][j], want[i][j], 1e-12)
+		}
+	}
+	// Cross-check the p-value with gonum's chi-square distribution.
+	near(t, "p (gonum)", p, 1-distuv.ChiSquared{K: 2}.CDF(x), 1e-12)
+}
+
+// PSI equals KL(a, e) + KL(e, a): an identity derived from its definition,
+// checked with gonum's stat.KullbackLeibler (no bin empty, so no floor).
+func TestPSIIsSymmetrisedKL(t *testing.T) {
+	e := []float64{0.1, 0.2, 0.3, 0.4}
+	a := []float64{0.25, 0.25, 0.25, 0.25}
+	near(t, "PSI", PSI(e, a), stat.KullbackLeibler(a, e)+stat.KullbackLeibler(e, a), 1e-12)
+	near(t, "PSI of equal", PSI(e, e), 0, 1e-15)
+	// Counts work like shares.
+	near(t, "PSI of counts", PSI([]float64{10, 20, 30, 40}, []float64{5, 5, 5, 5}), PSI(e, a), 1e-12)
+	// An empty bin is floored, not infinite.
+	if v := PSI([]float64{0.5, 0.5, 0}, []float64{0.4, 0.4, 0.2}); math.IsInf(v, 0) || v <= 0 {
+		t.Errorf("PSI with an empty bin = %v", v)
+	}
+}
