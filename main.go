@@ -4,6 +4,7 @@
 //	plumbline manager   run the controller
 //	plumbline demo      run the local demo on an embedded control plane
 //	plumbline evaluate  measure a candidate against the live model on a golden set
+//	plumbline datacheck check a current batch of data against a reference batch
 //	plumbline version   print the version
 package main
 
@@ -26,6 +27,7 @@ import (
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
+	"plumbline.dev/plumbline/internal/datacheck"
 	"plumbline.dev/plumbline/internal/demo"
 	"plumbline.dev/plumbline/internal/evaluate"
 	"plumbline.dev/plumbline/internal/manager"
@@ -44,6 +46,7 @@ var commands = []command{
 	{"manager", "run the controller against the cluster of the current kubeconfig", runManager},
 	{"demo", "run the local demo on an embedded control plane", runDemo},
 	{"evaluate", "measure a candidate against the live model on a golden set (the gate Job's tool)", runEvaluate},
+	{"datacheck", "check a current batch of data against a reference batch: quality and drift (the check Job's tool)", runDatacheck},
 	{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
 		_, err := fmt.Fprintln(stdout, version)
 		return err
@@ -161,6 +164,14 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 func runEvaluate(_ context.Context, args []string, stdout, stderr io.Writer) error {
 	err := evaluate.Command(args, os.Getenv, stdout, stderr)
 	if errors.Is(err, evaluate.ErrUsage) {
+		return errUsage
+	}
+	return err
+}
+
+func runDatacheck(_ context.Context, args []string, stdout, stderr io.Writer) error {
+	err := datacheck.Command(args, stdout, stderr)
+	if errors.Is(err, datacheck.ErrUsage) {
 		return errUsage
 	}
 	return err

@@ -3,6 +3,7 @@ package stats
 import (
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"gonum.org/v1/gonum/stat"
@@ -52,6 +53,26 @@ func TestKSAsymptoticNearExact(t *testing.T) {
 func TestWassersteinReference(t *testing.T) {
 	near(t, "W1", Wasserstein1([]float64{0, 1, 3}, []float64{5, 6, 8}, nil, nil), 5.0, 1e-12)
 	near(t, "W1 weighted", Wasserstein1([]float64{0, 1}, []float64{0, 1}, []float64{3, 1}, []float64{2, 2}), 0.25, 1e-12)
+	near(t, "W1 sorted", Wasserstein1Sorted([]float64{0, 1, 3}, []float64{5, 6, 8}), 5.0, 1e-12)
+}
+
+// The merge needs no sort and agrees with the general form, ties included.
+func TestWassersteinSortedAgrees(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for trial := 0; trial < 50; trial++ {
+		a := make([]float64, 1+rng.IntN(60))
+		b := make([]float64, 1+rng.IntN(60))
+		for i := range a {
+			a[i] = float64(rng.IntN(12)) // ties, on purpose
+		}
+		for i := range b {
+			b[i] = float64(rng.IntN(15)) + 0.5*float64(rng.IntN(2))
+		}
+		want := Wasserstein1(a, b, nil, nil)
+		slices.Sort(a)
+		slices.Sort(b)
+		near(t, "W1 sorted vs general", Wasserstein1Sorted(a, b), want, 1e-9)
+	}
 }
 
 // Source: SciPy documentation, jensenshannon: [1,0,0] vs [0,1,0] in base 2

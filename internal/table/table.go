@@ -82,7 +82,7 @@ func (c Cell) Float() (float64, bool) {
 	case Number, Bool:
 		return c.F, true
 	case Text:
-		f, err := strconv.ParseFloat(strings.TrimSpace(c.S), 64)
+		f, err := strconv.ParseFloat(Trim(c.S), 64)
 		if err != nil || math.IsInf(f, 0) || math.IsNaN(f) {
 			return 0, false
 		}
@@ -92,7 +92,16 @@ func (c Cell) Float() (float64, bool) {
 }
 
 // IsNull reports whether the cell is empty: null, or empty text.
-func (c Cell) IsNull() bool { return c.Kind == Null || c.Kind == Text && strings.TrimSpace(c.S) == "" }
+func (c Cell) IsNull() bool { return c.Kind == Null || c.Kind == Text && Trim(c.S) == "" }
+
+// Trim is strings.TrimSpace with a fast path for the usual field that
+// neither starts nor ends with a space.
+func Trim(s string) string {
+	if len(s) > 0 && s[0] > ' ' && s[0] < 0x80 && s[len(s)-1] > ' ' && s[len(s)-1] < 0x80 {
+		return s
+	}
+	return strings.TrimSpace(s)
+}
 
 // Reader reads rows.
 type Reader interface {

@@ -296,3 +296,11 @@ func FuzzCSVAgainstStdlib(f *testing.F) {
 		}
 	})
 }
+
+func TestTrimIsTrimSpace(t *testing.T) {
+	for _, s := range []string{"", " ", "a", " a", "a ", "\ta\n", "12.5", "\u00a0x", "x\u00a0", "\u0085", "é", " é ", "x\u2003"} {
+		if Trim(s) != strings.TrimSpace(s) {
+			t.Errorf("Trim(%q) = %q, strings.TrimSpace %q", s, Trim(s), strings.TrimSpace(s))
+		}
+	}
+}
