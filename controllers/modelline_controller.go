@@ -414,10 +414,17 @@ func (r *ModelLineReconciler) linesServedBy(ctx context.Context, o client.Object
 	return reqs
 }
 
-// lineOfJob maps a Job to the line of the version that owns it.
+// lineOfJob maps a Job to the line that owns it (a check Job) or to the
+// line of the version that owns it.
 func (r *ModelLineReconciler) lineOfJob(ctx context.Context, o client.Object) []reconcile.Request {
 	owner := metav1.GetControllerOf(o)
-	if owner == nil || owner.Kind != "ModelVersion" || owner.APIVersion != v1alpha1.GroupVersion.String() {
+	if owner == nil || owner.APIVersion != v1alpha1.GroupVersion.String() {
+		return nil
+	}
+	if owner.Kind == "ModelLine" {
+		return []reconcile.Request{{NamespacedName: types.NamespacedName{Namespace: o.GetNamespace(), Name: owner.Name}}}
+	}
+	if owner.Kind != "ModelVersion" {
 		return nil
 	}
 	var v v1alpha1.ModelVersion

@@ -198,7 +198,8 @@ func triggerEventType(s v1alpha1.TriggerState) string {
 	return corev1.EventTypeNormal
 }
 
-// check is the outcome of one PromQL check.
+// check is the outcome of one check: a PromQL query, or an answer of the
+// check Job's report.
 type check struct {
 	kind, name string
 	known      bool
@@ -206,9 +207,14 @@ type check struct {
 	value      float64
 	series     string
 	err        string
+	// text says what a known check found, when a value does not.
+	text string
 }
 
 func (c check) String() string {
+	if c.known && c.text != "" {
+		return c.text
+	}
 	where := ""
 	if c.series != "" && c.series != "{}" {
 		where = " " + c.series
@@ -274,13 +280,33 @@ func (r *ModelLineReconciler) runChecks(ctx context.Context, line *v1alpha1.Mode
 			res.drift = append(res.drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
 		}
 	}
-	if f := c.FreshData; f != nil {
+	if f := c.FreshData; f != nil && f.Query != "" {
 		// The least value across series must reach atLeast.
 		th := threshold(&f.AtLeast, nil)
 		fc := r.runCheck(ctx, "fresh-data", "freshData", f.Query, th, now)
 		res.freshData, res.atLeast = &fc, f.AtLeast
 	}
 	return res
+}
+
+// spendsCheck says whether a decision used up the check Job's report, so
+// the next request runs the Job again: a start does, a report that could
+// not be used does, and so does any answer to a person's request (asking
+// again means "look again"). A schedule or trigger refused on the report
+// keeps it while it is fresh (checkReportMaxAge), so a trigger that keeps
+// firing does not run a Job at every evaluation; nor is a report spent
+// while PromQL checks that could not be judged hold the start back.
+func spendsCheck(path, outcome string, st *v1alpha1.CheckRunStatus) bool {
+	switch {
+	case st == nil:
+		return false
+	case st.DataQuality == v1alpha1.CheckUnknown, outcome == outcomeStarted:
+		return true
+	case outcome == outcomeChecksUnknown:
+		return false
+	default:
+		return path == pathManual
+	}
 }
 
 // verdict is whether to start a retrain, and why not.
@@ -368,7 +394,34 @@ func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
 // reports whether the request was settled (started or refused); false means
 // the checks could not be judged and the caller should try again later.
 func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason string, marks map[string]string) (bool, *v1alpha1.ModelVersion, error) {
-	v := decideStart(path, r.runChecks(ctx, line, path, p.now.Time))
+	cr := r.runChecks(ctx, line, path, p.now.Time)
+	v := decideStart(path, cr)
+	if c := line.Spec.Checks; c != nil && c.JobTemplate != nil && v.outcome != outcomeDataQuality {
+		// The check Job's answers join the PromQL checks' (which alone
+		// may already refuse, and then no Job runs).
+		jc, err := r.runCheckJob(ctx, line, vw, p, reason)
+		if err != nil {
+			return false, nil, err
+		}
+		if jc.pending {
+			msg := fmt.Sprintf("retrain for %s: check Job %s is running; the start waits for its report", reason, line.Status.LastCheck.Job)
+			setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionBlocked, Status: metav1.ConditionUnknown,
+				Reason: reasonCheckRunning, Message: msg}, line.Generation, p.now)
+			p.wakeAt(p.now.Add(checkRetry))
+			return false, nil, nil
+		}
+		cr.dataQuality = append(cr.dataQuality, jc.dataQuality)
+		cr.drift = append(cr.drift, jc.drift)
+		if f := c.FreshData; f != nil && f.Query == "" {
+			rows := jc.rows
+			rows.breached = rows.known && rows.value < f.AtLeast
+			cr.freshData, cr.atLeast = &rows, f.AtLeast
+		}
+		v = decideStart(path, cr)
+		if spendsCheck(path, v.outcome, line.Status.LastCheck) {
+			line.Status.LastCheck.Used = true
+		}
+	}
 	p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.outcome).Inc() })
 	if v.outcome == outcomeInsufficient {
 		// Retraining cannot help; an older or rule-based version might.
@@ -489,6 +542,13 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 // last retrain.
 func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
 	if len(firing) == 0 {
+		// A check Job run for a trigger that is still Firing answers as
+		// soon as it finishes, not at the trigger's next evaluation.
+		if tr := awaitedTrigger(line); tr != nil {
+			firing = []v1alpha1.TriggerSpec{*tr}
+		}
+	}
+	if len(firing) == 0 {
 		clearReviewWhenQuiet(line, p)
 		return nil
 	}
@@ -512,6 +572,25 @@ func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1
 	}
 	_, _, err := r.tryStart(ctx, line, vw, p, pathTrigger, reason, nil)
 	return err
+}
+
+// awaitedTrigger is the trigger a pending check run was started for, while
+// its status still says Firing.
+func awaitedTrigger(line *v1alpha1.ModelLine) *v1alpha1.TriggerSpec {
+	st := line.Status.LastCheck
+	if st == nil || st.Used || !strings.HasPrefix(st.Reason, v1alpha1.ReasonTriggerPrefix) {
+		return nil
+	}
+	name := strings.TrimPrefix(st.Reason, v1alpha1.ReasonTriggerPrefix)
+	if ts := findTrigger(line.Status.Triggers, name); ts == nil || ts.State != v1alpha1.TriggerFiring {
+		return nil
+	}
+	for i := range line.Spec.Triggers {
+		if line.Spec.Triggers[i].Name == name {
+			return &line.Spec.Triggers[i]
+		}
+	}
+	return nil
 }
 
 // lastRetrain is when the line last started a retrain, whatever asked, by

@@ -201,6 +201,8 @@ type TriggerSpec struct {
 
 // ChecksSpec are the checks run before a trigger-started retrain, in order:
 // data quality, drift, fresh data.
+//
+// +kubebuilder:validation:XValidation:rule="!has(self.freshData) || has(self.freshData.query) || has(self.jobTemplate)",message="freshData.query is required unless a jobTemplate check Job counts the rows: set freshData.query, or add jobTemplate"
 type ChecksSpec struct {
 	// dataQuality checks: any breach blocks the retrain (fix the data first).
 	// +optional
@@ -222,7 +224,11 @@ type ChecksSpec struct {
 	FreshData *FreshDataCheck `json:"freshData,omitempty"`
 
 	// jobTemplate optionally runs a check Job (plumbline datacheck) whose report
-	// feeds the same outcomes as the PromQL checks.
+	// feeds the same outcomes as the PromQL checks: its data-quality answer
+	// joins dataQuality, its drift answer joins drift, and the rows it saw
+	// count as fresh data when freshData has no query. The Job gets the
+	// window a retrain would train on (PLUMBLINE_DATA_FROM, PLUMBLINE_DATA_TO)
+	// and the live version's (PLUMBLINE_REFERENCE_FROM, PLUMBLINE_REFERENCE_TO).
 	// +optional
 	JobTemplate *batchv1.JobTemplateSpec `json:"jobTemplate,omitempty"`
 }
@@ -257,11 +263,12 @@ type QueryCheck struct {
 // FreshDataCheck requires enough new labelled rows.
 type FreshDataCheck struct {
 	// query is a PromQL expression that yields the number of new labelled rows
-	// since the last training.
-	// +required
+	// since the last training. Without it, the rows the check Job
+	// (jobTemplate) saw are counted.
+	// +optional
 	// +kubebuilder:validation:MinLength=1
 	// +kubebuilder:validation:MaxLength=4096
-	Query string `json:"query"`
+	Query string `json:"query,omitempty"`
 
 	// atLeast is the least number of rows worth training on.
 	// +required
@@ -470,6 +477,69 @@ type TriggerStatus struct {
 	Message string `json:"message,omitempty"`
 }
 
+// CheckAnswer is one answer of a check Job's report.
+// +kubebuilder:validation:Enum=OK;Failed;Detected;NotDetected;Unknown
+type CheckAnswer string
+
+const (
+	CheckOK          CheckAnswer = "OK"
+	CheckFailed      CheckAnswer = "Failed"
+	CheckDetected    CheckAnswer = "Detected"
+	CheckNotDetected CheckAnswer = "NotDetected"
+	CheckUnknown     CheckAnswer = "Unknown"
+)
+
+// CheckRunStatus is a run of the line's check Job.
+type CheckRunStatus struct {
+	// number counts the line's check runs; it names their Jobs.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	Number int32 `json:"number"`
+
+	// job is the check Job.
+	// +optional
+	// +kubebuilder:validation:MaxLength=63
+	Job string `json:"job,omitempty"`
+
+	// reason is the retrain the check was run for: Schedule, Manual or
+	// Trigger/<name>.
+	// +optional
+	// +kubebuilder:validation:MaxLength=128
+	Reason string `json:"reason,omitempty"`
+
+	// startedTime is when the Job was created.
+	// +optional
+	StartedTime *metav1.Time `json:"startedTime,omitempty"`
+
+	// finishedTime is when its report was read.
+	// +optional
+	FinishedTime *metav1.Time `json:"finishedTime,omitempty"`
+
+	// dataQuality is the report's data-quality answer: OK, Failed, or
+	// Unknown when the Job failed or its report could not be used.
+	// +optional
+	DataQuality CheckAnswer `json:"dataQuality,omitempty"`
+
+	// drift is the report's drift answer: Detected, NotDetected or Unknown.
+	// +optional
+	Drift CheckAnswer `json:"drift,omitempty"`
+
+	// rows is how many rows the current batch had.
+	// +optional
+	Rows *int64 `json:"rows,omitempty"`
+
+	// message sums up the report: the findings, the drifted features, or
+	// why the report could not be used.
+	// +optional
+	// +kubebuilder:validation:MaxLength=2048
+	Message string `json:"message,omitempty"`
+
+	// used says a decision on the retrain took this report; the next request
+	// runs the Job again.
+	// +optional
+	Used bool `json:"used,omitempty"`
+}
+
 // AlternativesStatus is an evaluation of the line's alternatives against its
 // live version on the golden set.
 type AlternativesStatus struct {
@@ -629,6 +699,11 @@ type ModelLineStatus struct {
 	// +optional
 	// +kubebuilder:validation:MaxLength=253
 	LastRollbackRequest string `json:"lastRollbackRequest,omitempty"`
+
+	// lastCheck is the line's last check Job (spec.checks.jobTemplate) and
+	// what its report said.
+	// +optional
+	LastCheck *CheckRunStatus `json:"lastCheck,omitempty"`
 
 	// alternatives is the last evaluation of the line's alternatives (the
 	// previous version, the rule-based one) against a degraded live version.

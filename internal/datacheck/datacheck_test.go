@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -532,5 +533,78 @@ func TestInferredBoundsCatchSentinelsAndUnits(t *testing.T) {
 	// minutes (2,880 and 4,320) are out, 24 hours in minutes (1,440) too.
 	if f := got["out_of_range/promised_hours"]; f.Count != 500 {
 		t.Errorf("promised_hours: %d out of range, want the 500 in minutes (%+v)", f.Count, rep.DataQuality.Findings)
+	}
+}
+
+// The command's three ways out: usage errors (exit 2), input that cannot be
+// checked (exit 1), and a run that found whatever it found (exit 0), with
+// the full report, the table and the compact report written.
+func TestCommand(t *testing.T) {
+	dir := t.TempDir()
+	ref := write(t, dir, "ref.csv", rows(header, 300, reference))
+	cur := write(t, dir, "cur.csv", rows(header, 300, reference))
+	for _, args := range [][]string{
+		{"--current", cur},
+		{"--reference", ref},
+		{"--reference", ref, "--current", cur, "--alpha", "1.5"},
+		{"--reference", ref, "--current", cur, "--max-unseen", "2"},
+		{"--reference", ref, "--current", cur, "--weights", "depot"},
+		{"--reference", ref, "--current", cur, "--bins", "1"},
+		{"--reference", ref, "--current", cur, "extra"},
+	} {
+		var stderr bytes.Buffer
+		if err := Command(args, io.Discard, &stderr); !errors.Is(err, ErrUsage) || stderr.Len() == 0 {
+			t.Errorf("%v: %v (stderr %q), want a usage error explained", args, err, stderr.String())
+		}
+	}
+	var ie *InputError
+	if err := Command([]string{"--reference", filepath.Join(dir, "nope.csv"), "--current", cur}, io.Discard, io.Discard); !errors.As(err, &ie) {
+		t.Errorf("missing reference: %v, want an input error", err)
+	}
+	badSchema := write(t, dir, "bad.yaml", "columns:\n- name: depot\n  type: text\n")
+	if err := Command([]string{"--reference", ref, "--current", cur, "--schema", badSchema}, io.Discard, io.Discard); !errors.As(err, &ie) || !strings.Contains(err.Error(), "columns[0] (depot).type") {
+		t.Errorf("bad schema: %v, want an input error naming the field", err)
+	}
+
+	out, term, schema := filepath.Join(dir, "full.json"), filepath.Join(dir, "term"), filepath.Join(dir, "schema.yaml")
+	var stdout bytes.Buffer
+	if err := Command([]string{"--reference", ref, "--current", cur, "--id", "parcel_id", "--out", out, "--termination-file", term, "--write-schema", schema}, &stdout, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	mustHave := func(what, s string, wants ...string) {
+		for _, w := range wants {
+			if !strings.Contains(s, w) {
+				t.Errorf("%s lacks %q:\n%s", what, w, s)
+			}
+		}
+	}
+	mustHave("table", stdout.String(), "data quality: ok", "drift: none: 0 of 4 features drifted", "kolmogorov-smirnov", "chi-square", "check report:")
+	full, _ := os.ReadFile(out)
+	var rep Report
+	if err := json.Unmarshal(full, &rep); err != nil || rep.Schema != ReportSchema || len(rep.Columns) != 4 {
+		t.Errorf("full report: %v %+v", err, rep)
+	}
+	compact, _ := os.ReadFile(term)
+	if _, err := checkreport.Parse(compact); err != nil {
+		t.Errorf("compact report: %v", err)
+	}
+	written, _ := os.ReadFile(schema)
+	mustHave("schema", string(written), "id: parcel_id", "name: distance_km", "type: numeric", "- Ashby")
+
+	// --write-schema alone infers and writes, with no current batch.
+	stdout.Reset()
+	only := filepath.Join(dir, "only.yaml")
+	if err := Command([]string{"--reference", ref, "--write-schema", only}, &stdout, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	mustHave("stdout", stdout.String(), "schema of 5 columns", "300 rows")
+	s, err := LoadSchema(only)
+	if err != nil {
+		t.Fatalf("the schema written alone does not load: %v", err)
+	}
+	// Without --id, the parcel id is a column, but one with a value on
+	// every row: nothing to test for drift.
+	if c := s.column("parcel_id"); c == nil || c.Type != Ignore {
+		t.Errorf("parcel_id inferred as %+v, want ignore", c)
 	}
 }

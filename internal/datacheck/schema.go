@@ -151,15 +151,18 @@ func (s *Schema) Write(path, from string) error {
 
 // inferType decides a column's type from what the reference held: numeric
 // when at least 99% of its values read as numbers, else categorical when it
-// has at most MaxCategories distinct values, else ignored (free text, ids).
+// has at most MaxCategories distinct values and repeats some, else ignored
+// (free text, ids: a value on every row has no distribution to compare).
 func inferType(nonNull, numbers int64, distinct int, overflow bool) (string, string) {
 	switch {
 	case nonNull == 0:
 		return Ignore, "always empty in the reference"
 	case float64(numbers) >= 0.99*float64(nonNull):
 		return Numeric, ""
-	case !overflow && distinct <= MaxCategories:
+	case !overflow && distinct <= MaxCategories && (int64(distinct) < nonNull || nonNull <= 20):
 		return Categorical, ""
+	case !overflow && distinct <= MaxCategories:
+		return Ignore, "a different value on every row (an id or free text)"
 	default:
 		return Ignore, fmt.Sprintf("more than %d distinct values that are not numbers (free text or ids)", MaxCategories)
 	}

@@ -78,7 +78,7 @@ func Line(spec *v1alpha1.ModelLineSpec) []Problem {
 		for i, q := range c.Drift {
 			ps = append(ps, promQL(fmt.Sprintf("spec.checks.drift[%d].query", i), q.Query)...)
 		}
-		if f := c.FreshData; f != nil {
+		if f := c.FreshData; f != nil && f.Query != "" {
 			ps = append(ps, promQL("spec.checks.freshData.query", f.Query)...)
 		}
 		if c.JobTemplate != nil {

@@ -99,6 +99,8 @@ var scenarios = map[string]scenario{
 	"sustained":   {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)},
 	"broken-feed": {auc: dropAt(hm(3, 0), 0.72), missing: step(hm(3, 30), 0.01, 0.18), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)},
 	"no-drift":    {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: constant(0.05), labelled: constant(50000)},
+	// A drop PromQL sees no drift behind; the check Job decides.
+	"check-drift": {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: constant(0.05), labelled: constant(50000)},
 	"few-labels":  {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(3000)},
 	"prom-down":   {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)},
 	// Healthy throughout: for a person's request.

@@ -170,6 +170,8 @@ func malformedCases() []malformed {
 			[]string{"spec.checks.dataQuality[0]", "set exactly one of below and above"}},
 		{"negative fresh-data minimum", lineSample, set("spec.checks.freshData.atLeast", -5.0),
 			[]string{"spec.checks.freshData.atLeast", "greater than or equal to 0"}},
+		{"fresh data with nothing to count", lineSample, set("spec.checks.freshData.query", nil),
+			[]string{"spec.checks", "freshData.query is required unless a jobTemplate check Job counts the rows"}},
 		{"negative starting deadline", lineSample, set("spec.schedule.startingDeadlineSeconds", int64(-60)),
 			[]string{"spec.schedule.startingDeadlineSeconds", "greater than or equal to 0"}},
 		{"version source unknown", importedSample, set("spec.source", "Scraped"),
