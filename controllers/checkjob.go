@@ -163,6 +163,7 @@ func (r *ModelLineReconciler) checkUnusable(line *v1alpha1.ModelLine, p *pass, s
 	st.FinishedTime = p.now.DeepCopy()
 	st.DataQuality, st.Drift = v1alpha1.CheckUnknown, v1alpha1.CheckUnknown
 	st.Message = text.Truncate(reason+": "+msg, 2048)
+	countCheck(line, p, st)
 	p.eventFor(fmt.Sprintf("Check/%d", st.Number), line, nil, corev1.EventTypeWarning, "CheckUnusable", "%s", st.Message)
 }
 
@@ -211,12 +212,18 @@ func (r *ModelLineReconciler) readCheckJob(ctx context.Context, line *v1alpha1.M
 		st.Drift = v1alpha1.CheckDetected
 	}
 	st.Message = text.Truncate(summarise(rep), 2048)
+	countCheck(line, p, st)
 	kind := corev1.EventTypeNormal
 	if st.DataQuality != v1alpha1.CheckOK {
 		kind = corev1.EventTypeWarning
 	}
 	p.eventFor(fmt.Sprintf("Check/%d", st.Number), line, nil, kind, "CheckFinished", "check Job %s: %s", job.Name, st.Message)
 	return true, nil
+}
+
+func countCheck(line *v1alpha1.ModelLine, p *pass, st *v1alpha1.CheckRunStatus) {
+	dq, drift := string(st.DataQuality), string(st.Drift)
+	p.count(func() { checkRuns.WithLabelValues(line.Namespace, line.Name, dq, drift).Inc() })
 }
 
 // summarise says what a check report found, briefly.

@@ -76,6 +76,11 @@ var (
 		Help: "Decisions on whether to start a retrain, by path (Manual, Schedule, Trigger) and outcome (Started, DataQualityIssue, DegradedWithoutDrift, InsufficientData, ChecksUnknown, InFlight, Cooldown).",
 	}, []string{"namespace", "line", "path", "outcome"})
 
+	checkRuns = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "plumbline_check_runs_total",
+		Help: "Check Jobs whose end was read, by their answers: data_quality (OK, Failed, Unknown) and drift (Detected, NotDetected, Unknown).",
+	}, []string{"namespace", "line", "data_quality", "drift"})
+
 	scheduleMissed = prometheus.NewCounterVec(prometheus.CounterOpts{
 		Name: "plumbline_schedule_missed_total",
 		Help: "Scheduled starts that never ran (missed while the controller was down, or past the starting deadline).",
@@ -115,7 +120,7 @@ var (
 func init() {
 	metrics.Registry.MustRegister(lineCondition, retrainsStarted, retrainsFinished, gateDecisions,
 		promotions, rolloutFailures, liveVersion, lastPromotion, triggerValue, triggerState,
-		triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations)
+		triggerEvaluations, retrainDecisions, checkRuns, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations)
 }
 
 // recordLineMetrics exports the gauges that describe a line as it is.
@@ -142,7 +147,7 @@ func forgetLineMetrics(namespace, name string) {
 	for _, v := range []interface {
 		DeletePartialMatch(prometheus.Labels) int
 	}{lineCondition, retrainsStarted, retrainsFinished, gateDecisions, promotions, rolloutFailures, liveVersion, lastPromotion,
-		triggerValue, triggerState, triggerEvaluations, retrainDecisions, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations} {
+		triggerValue, triggerState, triggerEvaluations, retrainDecisions, checkRuns, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations} {
 		v.DeletePartialMatch(labels)
 	}
 }

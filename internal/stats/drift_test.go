@@ -120,3 +120,14 @@ func TestPSIIsSymmetrisedKL(t *testing.T) {
 		t.Errorf("PSI with an empty bin = %v", v)
 	}
 }
+
+// The asymptotic Kolmogorov distribution at its usual critical values:
+// P(K > 1.2238) = 0.10, P(K > 1.3581) = 0.05, P(K > 1.6276) = 0.01. These are
+// the widely tabulated critical values of the Kolmogorov distribution (value
+// from memory); the series reproduces them to four places.
+func TestKolmogorovCriticalValues(t *testing.T) {
+	near(t, "K 0.10", kolmogorovSurvival(1.2238), 0.10, 1e-4)
+	near(t, "K 0.05", kolmogorovSurvival(1.3581), 0.05, 1e-4)
+	near(t, "K 0.01", kolmogorovSurvival(1.6276), 0.01, 1e-4)
+	near(t, "K small", kolmogorovSurvival(0.1), 1, 0)
+}

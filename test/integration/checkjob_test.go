@@ -165,6 +165,9 @@ func TestCheckJobRefusesBrokenData(t *testing.T) {
 	}
 	waitEvent(t, ns, lineName, "CheckFinished")
 	waitEvent(t, ns, lineName, "RetrainBlocked")
+	if n := metricSum(t, "plumbline_check_runs_total", map[string]string{"namespace": ns, "data_quality": "Failed", "drift": "NotDetected"}); n != 1 {
+		t.Errorf("check runs counted as failed: %v, want 1", n)
+	}
 	if got := getLine(t, key).Status.LastRetrainRequest; got != "check-1" {
 		t.Errorf("the refused request should be settled, last request %q", got)
 	}
