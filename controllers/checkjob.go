@@ -48,27 +48,11 @@ func checkJobName(line string, n int32) string {
 // window a retrain would train on (the current batch) and the live
 // version's window (the reference batch).
 func buildCheckJob(line *v1alpha1.ModelLine, vw *view, n int32, reason string, now time.Time) *batchv1.Job {
-	t := line.Spec.Checks.JobTemplate.DeepCopy()
-	ours := map[string]string{
+	job := renderJob(line.Spec.Checks.JobTemplate, checkJobName(line.Name, n), line, "ModelLine", map[string]string{
 		v1alpha1.LineLabel: labelValue(line.Name),
 		v1alpha1.RoleLabel: roleCheck,
 		numberLabel:        fmt.Sprint(n),
-	}
-	job := &batchv1.Job{
-		ObjectMeta: metav1.ObjectMeta{
-			Name:        checkJobName(line.Name, n),
-			Namespace:   line.Namespace,
-			Labels:      merge(t.Labels, ours),
-			Annotations: merge(t.Annotations, nil),
-			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(line,
-				v1alpha1.GroupVersion.WithKind("ModelLine"))},
-		},
-		Spec: t.Spec,
-	}
-	job.Spec.Template.Labels = merge(job.Spec.Template.Labels, ours)
-	if job.Spec.Template.Spec.RestartPolicy == "" {
-		job.Spec.Template.Spec.RestartPolicy = corev1.RestartPolicyNever
-	}
+	})
 	env := []corev1.EnvVar{
 		{Name: envLine, Value: line.Name},
 		{Name: envReason, Value: reason},

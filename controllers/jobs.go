@@ -185,20 +185,25 @@ func versionEnv(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, w dataWindow
 // jobFromTemplate copies a Job template and marks the Job as the version's:
 // name, labels (on the Job and its Pods), owner reference.
 func jobFromTemplate(tmpl *batchv1.JobTemplateSpec, line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, role string) *batchv1.Job {
-	t := tmpl.DeepCopy()
-	ours := map[string]string{
+	return renderJob(tmpl, jobName(v.Name, role), v, "ModelVersion", map[string]string{
 		v1alpha1.LineLabel:    labelValue(line.Name),
 		v1alpha1.VersionLabel: labelValue(v.Name),
 		v1alpha1.RoleLabel:    role,
-	}
+	})
+}
+
+// renderJob copies a Job template under a name, owned by owner (of the
+// given kind), with our labels on the Job and its Pods.
+func renderJob(tmpl *batchv1.JobTemplateSpec, name string, owner metav1.Object, kind string, ours map[string]string) *batchv1.Job {
+	t := tmpl.DeepCopy()
 	job := &batchv1.Job{
 		ObjectMeta: metav1.ObjectMeta{
-			Name:        jobName(v.Name, role),
-			Namespace:   v.Namespace,
+			Name:        name,
+			Namespace:   owner.GetNamespace(),
 			Labels:      merge(t.Labels, ours),
 			Annotations: merge(t.Annotations, nil),
-			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(v,
-				v1alpha1.GroupVersion.WithKind("ModelVersion"))},
+			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(owner,
+				v1alpha1.GroupVersion.WithKind(kind))},
 		},
 		Spec: t.Spec,
 	}

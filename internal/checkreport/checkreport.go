@@ -6,18 +6,17 @@
 package checkreport
 
 import (
-	"bytes"
+	"plumbline.dev/plumbline/internal/termination"
+
 	"encoding/json"
-	"errors"
 	"fmt"
-	"io"
 )
 
 // Schema identifies version 1 of the check report.
 const Schema = "plumbline.dev/check-report/v1"
 
 // MaxBytes is the most a termination message holds.
-const MaxBytes = 4096
+const MaxBytes = termination.MaxBytes
 
 // Report is the compact check report.
 type Report struct {
@@ -84,21 +83,14 @@ func refuse(reason, format string, args ...any) *Error {
 
 // Parse reads and checks a termination message.
 func Parse(raw []byte) (*Report, error) {
-	trimmed := bytes.TrimSpace(raw)
-	if len(trimmed) == 0 {
-		return nil, refuse(ReasonMissing, "the check container wrote no report to its termination message")
-	}
-	if len(raw) > MaxBytes {
-		return nil, refuse(ReasonTooLarge, "the report is %d bytes; a termination message holds at most %d", len(raw), MaxBytes)
-	}
-	dec := json.NewDecoder(bytes.NewReader(trimmed))
-	dec.DisallowUnknownFields()
 	var r Report
-	if err := dec.Decode(&r); err != nil {
-		return nil, refuse(ReasonMalformed, "not a valid check report: %v", err)
-	}
-	if _, err := dec.Token(); !errors.Is(err, io.EOF) {
-		return nil, refuse(ReasonMalformed, "data after the JSON object")
+	switch problem, msg := termination.Decode(raw, "check report", &r); problem {
+	case termination.Missing:
+		return nil, refuse(ReasonMissing, "the check container wrote no report to its termination message")
+	case termination.TooLarge:
+		return nil, refuse(ReasonTooLarge, "%s", msg)
+	case termination.Malformed:
+		return nil, refuse(ReasonMalformed, "%s", msg)
 	}
 	if r.Schema != Schema {
 		return nil, refuse(ReasonUnknownSchema, "schema %q is not %q", r.Schema, Schema)

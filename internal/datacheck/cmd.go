@@ -1,6 +1,8 @@
 package datacheck
 
 import (
+	"plumbline.dev/plumbline/internal/termination"
+
 	"errors"
 	"flag"
 	"fmt"
@@ -10,9 +12,6 @@ import (
 	"strconv"
 	"strings"
 )
-
-// DefaultTerminationFile is where a container's termination message goes.
-const DefaultTerminationFile = "/dev/termination-log"
 
 // ErrUsage marks bad flags, already explained on stderr.
 var ErrUsage = errors.New("usage")
@@ -24,7 +23,7 @@ func Command(args []string, stdout, stderr io.Writer) error {
 	fs := flag.NewFlagSet("plumbline datacheck", flag.ContinueOnError)
 	fs.SetOutput(stderr)
 	o := DefaultOptions()
-	var schemaFile, writeSchema, out, termination, weights string
+	var schemaFile, writeSchema, out, termFile, weights string
 	fs.StringVar(&o.Reference, "reference", "", "the reference batch, the data the live model learned from: CSV with a header, JSON Lines or Parquet (required)")
 	fs.StringVar(&o.Current, "current", "", "the current batch to check (required unless only --write-schema)")
 	fs.StringVar(&o.Format, "format", "", "csv, jsonl or parquet for both files (default: from each file's extension)")
@@ -32,7 +31,7 @@ func Command(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&writeSchema, "write-schema", "", "write the schema used (inferred, or given with categories filled in) here, to review and keep")
 	fs.StringVar(&o.ID, "id", "", "column of a row id: duplicate ids are a finding (default: the schema's id)")
 	fs.StringVar(&out, "out", "", "write the full JSON report here")
-	fs.StringVar(&termination, "termination-file", defaultTermination(), "write the compact check report here (default /dev/termination-log when it exists)")
+	fs.StringVar(&termFile, "termination-file", termination.Default(), "write the compact check report here (default /dev/termination-log when it exists)")
 	fs.Float64Var(&o.Alpha, "alpha", o.Alpha, "level of the drift tests after the Benjamini-Hochberg correction")
 	fs.Float64Var(&o.PSIThreshold, "psi-threshold", o.PSIThreshold, "PSI a feature must reach as well to count as drifted (common practice: 0.1 a moderate shift, 0.25 a large one)")
 	fs.Float64Var(&o.DriftShare, "drift-share", o.DriftShare, "weighted share of drifted features at which the dataset has drifted")
@@ -132,19 +131,19 @@ func Command(args []string, stdout, stderr io.Writer) error {
 	if err := WriteTable(stdout, rep); err != nil {
 		return err
 	}
-	if termination != "" {
+	if termFile != "" {
 		b, compact, err := Compact(rep)
 		if err != nil {
 			return err
 		}
-		if err := os.WriteFile(termination, b, 0o644); err != nil {
+		if err := os.WriteFile(termFile, b, 0o644); err != nil {
 			return fmt.Errorf("--termination-file: %w", err)
 		}
 		note := ""
 		if compact.Truncated {
 			note = " (truncated to fit: some findings or features are only in the full report)"
 		}
-		fmt.Fprintf(stdout, "check report: %d bytes to %s%s\n", len(b), termination, note)
+		fmt.Fprintf(stdout, "check report: %d bytes to %s%s\n", len(b), termFile, note)
 	}
 	return nil
 }
@@ -184,11 +183,4 @@ func ParseWeights(s string) (map[string]float64, error) {
 		out[name] = w
 	}
 	return out, nil
-}
-
-func defaultTermination() string {
-	if _, err := os.Stat(DefaultTerminationFile); err == nil {
-		return DefaultTerminationFile
-	}
-	return ""
 }

@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"plumbline.dev/plumbline/internal/stats"
+	"plumbline.dev/plumbline/internal/termination"
 )
 
 // Environment variables the controller sets on a gate Job, so the Job's
@@ -19,9 +20,6 @@ const (
 	EnvGateSegments   = "PLUMBLINE_GATE_SEGMENTS"
 	EnvGateConfidence = "PLUMBLINE_GATE_CONFIDENCE"
 )
-
-// DefaultTerminationFile is where a container's termination message goes.
-const DefaultTerminationFile = "/dev/termination-log"
 
 var defaultReportMetrics = map[string][]string{
 	Binary:     {"roc_auc", "accuracy", "log_loss", "recall", "precision", "f1"},
@@ -39,11 +37,11 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 	fs := flag.NewFlagSet("plumbline evaluate", flag.ContinueOnError)
 	fs.SetOutput(stderr)
 	var (
-		input, format, task, positive, out, termination, reportMetrics, reportSegments string
-		cols                                                                           Columns
-		threshold, confidence, maxRegression                                           float64
-		resamples, bootRows                                                            int
-		seed                                                                           uint64
+		input, format, task, positive, out, termFile, reportMetrics, reportSegments string
+		cols                                                                        Columns
+		threshold, confidence, maxRegression                                        float64
+		resamples, bootRows                                                         int
+		seed                                                                        uint64
 	)
 	fs.StringVar(&input, "input", "", "golden-set predictions: CSV with a header, JSON Lines or Parquet (required)")
 	fs.StringVar(&format, "format", "", "csv, jsonl or parquet (default: from the file's extension)")
@@ -62,7 +60,7 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 	fs.IntVar(&bootRows, "bootstrap-rows", 20000, "groups larger than this are bootstrapped from a seeded subsample of this size (0: never)")
 	fs.Uint64Var(&seed, "seed", 1, "seed of the bootstrap")
 	fs.StringVar(&out, "out", "", "write the full JSON report here")
-	fs.StringVar(&termination, "termination-file", defaultTermination(), "write the compact gate report here (default /dev/termination-log when it exists)")
+	fs.StringVar(&termFile, "termination-file", termination.Default(), "write the compact gate report here (default /dev/termination-log when it exists)")
 	fs.StringVar(&reportMetrics, "report-metrics", getenv(EnvGateMetrics), "comma-separated metrics for the gate report (default from "+EnvGateMetrics+", else a few per task)")
 	fs.StringVar(&reportSegments, "report-segments", envOr(getenv(EnvGateSegments), "*"), "segments for the gate report: * for all, none, or a comma-separated list (default from "+EnvGateSegments+")")
 	if err := fs.Parse(args); err != nil {
@@ -129,28 +127,21 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 	if err := WriteTable(stdout, rep); err != nil {
 		return err
 	}
-	if termination != "" {
+	if termFile != "" {
 		b, compact, err := Compact(rep, sel)
 		if err != nil {
 			return err
 		}
-		if err := os.WriteFile(termination, b, 0o644); err != nil {
+		if err := os.WriteFile(termFile, b, 0o644); err != nil {
 			return fmt.Errorf("--termination-file: %w", err)
 		}
 		note := ""
 		if compact.Truncated {
 			note = " (truncated to fit: fewer metrics or segments with --report-metrics and --report-segments keep it whole)"
 		}
-		fmt.Fprintf(stdout, "gate report: %d bytes, %d rows, to %s%s\n", len(b), len(compact.Metrics), termination, note)
+		fmt.Fprintf(stdout, "gate report: %d bytes, %d rows, to %s%s\n", len(b), len(compact.Metrics), termFile, note)
 	}
 	return nil
-}
-
-func defaultTermination() string {
-	if _, err := os.Stat(DefaultTerminationFile); err == nil {
-		return DefaultTerminationFile
-	}
-	return ""
 }
 
 func envFloat(s string, def float64) float64 {

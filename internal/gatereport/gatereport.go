@@ -9,11 +9,10 @@
 package gatereport
 
 import (
-	"bytes"
+	"plumbline.dev/plumbline/internal/termination"
+
 	"encoding/json"
-	"errors"
 	"fmt"
-	"io"
 	"math"
 )
 
@@ -21,7 +20,7 @@ import (
 const Schema = "plumbline.dev/gate-report/v1"
 
 // MaxBytes is the most a termination message holds.
-const MaxBytes = 4096
+const MaxBytes = termination.MaxBytes
 
 // Report is the compact gate report.
 type Report struct {
@@ -91,21 +90,14 @@ func refuse(reason, format string, args ...any) *Error {
 // Parse reads and checks a termination message. A nil error means every
 // number the controller may judge is present and in range.
 func Parse(raw []byte) (*Report, error) {
-	trimmed := bytes.TrimSpace(raw)
-	if len(trimmed) == 0 {
-		return nil, refuse(ReasonMissing, "the evaluation container wrote no report to its termination message")
-	}
-	if len(raw) > MaxBytes {
-		return nil, refuse(ReasonTooLarge, "the report is %d bytes; a termination message holds at most %d", len(raw), MaxBytes)
-	}
-	dec := json.NewDecoder(bytes.NewReader(trimmed))
-	dec.DisallowUnknownFields()
 	var r Report
-	if err := dec.Decode(&r); err != nil {
-		return nil, refuse(ReasonMalformed, "the report is not a valid gate report: %v", err)
-	}
-	if _, err := dec.Token(); !errors.Is(err, io.EOF) {
-		return nil, refuse(ReasonMalformed, "the report has data after its JSON object")
+	switch problem, msg := termination.Decode(raw, "gate report", &r); problem {
+	case termination.Missing:
+		return nil, refuse(ReasonMissing, "the evaluation container wrote no report to its termination message")
+	case termination.TooLarge:
+		return nil, refuse(ReasonTooLarge, "%s", msg)
+	case termination.Malformed:
+		return nil, refuse(ReasonMalformed, "%s", msg)
 	}
 	if r.Schema != Schema {
 		return nil, refuse(ReasonUnknownSchema, "schema %q is not %q", r.Schema, Schema)

@@ -95,6 +95,13 @@ func runCheckJob(t *testing.T, ns, name, reference, current string) {
 	if err := datacheck.Command(args, &stdout, &stderr); err != nil {
 		t.Fatalf("plumbline datacheck: %v\n%s", err, stderr.String())
 	}
+	finishWithReport(t, ns, name, term)
+}
+
+// finishWithReport succeeds a Job whose container wrote its report to a
+// termination file, the Pod leaving that as its message.
+func finishWithReport(t *testing.T, ns, name, term string) {
+	t.Helper()
 	msg, err := os.ReadFile(term)
 	if err != nil {
 		t.Fatal(err)

@@ -16,7 +16,6 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/evaluate"
-	"plumbline.dev/plumbline/internal/standin"
 )
 
 type prediction struct {
@@ -96,13 +95,7 @@ func runEvaluationJob(t *testing.T, ns, name, predictions string) string {
 	if err := evaluate.Command(args, func(k string) string { return env[k] }, &stdout, &stderr); err != nil {
 		t.Fatalf("plumbline evaluate: %v\n%s", err, stderr.String())
 	}
-	msg, err := os.ReadFile(term)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := standin.SucceedJob(context.Background(), k8s, ns, name, string(msg)); err != nil {
-		t.Fatal(err)
-	}
+	finishWithReport(t, ns, name, term)
 	return stdout.String()
 }
 
