@@ -263,11 +263,11 @@ func answers(st *v1alpha1.CheckRunStatus) jobChecks {
 	name := st.Job
 	unknown := st.DataQuality == v1alpha1.CheckUnknown
 	mk := func(kind string, breached bool, what string) check {
-		c := check{kind: kind, name: name, known: !unknown, breached: breached}
+		c := check{Kind: kind, Name: name, Known: !unknown, Breached: breached}
 		if unknown {
-			c.err = st.Message
+			c.Err = st.Message
 		} else {
-			c.text = fmt.Sprintf("check Job %s: %s", name, what)
+			c.Text = fmt.Sprintf("check Job %s: %s", name, what)
 		}
 		return c
 	}
@@ -275,10 +275,10 @@ func answers(st *v1alpha1.CheckRunStatus) jobChecks {
 		dataQuality: mk("data-quality", st.DataQuality == v1alpha1.CheckFailed, st.Message),
 		drift:       mk("drift", st.Drift == v1alpha1.CheckDetected, st.Message),
 	}
-	jc.rows = check{kind: "fresh-data", name: name, known: st.Rows != nil, err: st.Message}
+	jc.rows = check{Kind: "fresh-data", Name: name, Known: st.Rows != nil, Err: st.Message}
 	if st.Rows != nil {
-		jc.rows.value = float64(*st.Rows)
-		jc.rows.text = fmt.Sprintf("check Job %s saw %d new rows", name, *st.Rows)
+		jc.rows.Value = float64(*st.Rows)
+		jc.rows.Text = fmt.Sprintf("check Job %s saw %d new rows", name, *st.Rows)
 	}
 	return jc
 }

@@ -9,6 +9,7 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/checkreport"
+	"plumbline.dev/plumbline/internal/policy"
 )
 
 func TestUsableCheck(t *testing.T) {
@@ -65,33 +66,33 @@ func TestCheckAnswersDecide(t *testing.T) {
 	rows := rep.Rows
 	st := &v1alpha1.CheckRunStatus{Number: 2, Job: "late-risk-check-2", DataQuality: v1alpha1.CheckFailed, Drift: v1alpha1.CheckNotDetected, Rows: &rows, Message: summarise(rep)}
 	jc := answers(st)
-	v := decideStart(pathTrigger, checkResults{dataQuality: []check{jc.dataQuality}, drift: []check{jc.drift}})
-	if v.outcome != outcomeDataQuality || !strings.Contains(v.message, "missing postcode (3949 rows, 19.7%, e.g. current.csv:2)") {
-		t.Errorf("broken data: %s %q", v.outcome, v.message)
+	v := policy.DecideStart(pathTrigger, checkResults{DataQuality: []check{jc.dataQuality}, Drift: []check{jc.drift}})
+	if v.Outcome != outcomeDataQuality || !strings.Contains(v.Message, "missing postcode (3949 rows, 19.7%, e.g. current.csv:2)") {
+		t.Errorf("broken data: %s %q", v.Outcome, v.Message)
 	}
 	st.DataQuality = v1alpha1.CheckOK
 	st.Message = "20000 rows against 20000 in the reference; data quality ok; no drift (weighted share 0, threshold 0.25)"
 	jc = answers(st)
-	v = decideStart(pathTrigger, checkResults{dataQuality: []check{jc.dataQuality}, drift: []check{jc.drift}})
-	if v.outcome != outcomeNoDrift || !strings.Contains(v.message, "check Job late-risk-check-2: 20000 rows") {
-		t.Errorf("no drift: %s %q", v.outcome, v.message)
+	v = policy.DecideStart(pathTrigger, checkResults{DataQuality: []check{jc.dataQuality}, Drift: []check{jc.drift}})
+	if v.Outcome != outcomeNoDrift || !strings.Contains(v.Message, "check Job late-risk-check-2: 20000 rows") {
+		t.Errorf("no drift: %s %q", v.Outcome, v.Message)
 	}
 	st.Drift = v1alpha1.CheckDetected
 	jc = answers(st)
-	if v := decideStart(pathTrigger, checkResults{dataQuality: []check{jc.dataQuality}, drift: []check{ok("drift", "depot-shift", 0.05), jc.drift}}); v.outcome != outcomeStarted {
-		t.Errorf("drift in the report, none in PromQL: %s %q, want a start", v.outcome, v.message)
+	if v := policy.DecideStart(pathTrigger, checkResults{DataQuality: []check{jc.dataQuality}, Drift: []check{check{Kind: "drift", Name: "depot-shift", Known: true, Value: 0.05}, jc.drift}}); v.Outcome != outcomeStarted {
+		t.Errorf("drift in the report, none in PromQL: %s %q, want a start", v.Outcome, v.Message)
 	}
 	// Rows as fresh data.
 	fresh := jc.rows
-	fresh.breached = fresh.value < 50000
-	if v := decideStart(pathSchedule, checkResults{freshData: &fresh, atLeast: 50000}); v.outcome != outcomeInsufficient || !strings.Contains(v.message, "saw 20000 new rows, below the 50000") {
-		t.Errorf("rows below atLeast: %s %q", v.outcome, v.message)
+	fresh.Breached = fresh.Value < 50000
+	if v := policy.DecideStart(pathSchedule, checkResults{FreshData: &fresh, AtLeast: 50000}); v.Outcome != outcomeInsufficient || !strings.Contains(v.Message, "saw 20000 new rows, below the 50000") {
+		t.Errorf("rows below atLeast: %s %q", v.Outcome, v.Message)
 	}
 	// An unusable report answers Unknown, and the start waits.
 	bad := &v1alpha1.CheckRunStatus{Number: 3, Job: "late-risk-check-3", DataQuality: v1alpha1.CheckUnknown, Drift: v1alpha1.CheckUnknown, Message: "CheckReportMalformed: not a valid check report"}
 	jc = answers(bad)
-	if v := decideStart(pathManual, checkResults{dataQuality: []check{jc.dataQuality}}); v.outcome != outcomeChecksUnknown || !strings.Contains(v.message, "CheckReportMalformed") {
-		t.Errorf("unusable report: %s %q", v.outcome, v.message)
+	if v := policy.DecideStart(pathManual, checkResults{DataQuality: []check{jc.dataQuality}}); v.Outcome != outcomeChecksUnknown || !strings.Contains(v.Message, "CheckReportMalformed") {
+		t.Errorf("unusable report: %s %q", v.Outcome, v.Message)
 	}
 }
 

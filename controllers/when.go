@@ -15,28 +15,33 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/policy"
 	"plumbline.dev/plumbline/internal/promq"
 	"plumbline.dev/plumbline/internal/schedule"
 	"plumbline.dev/plumbline/internal/text"
 	"plumbline.dev/plumbline/internal/trigger"
 )
 
-// The paths by which a retrain is asked for.
+// The paths by which a retrain is asked for, and the outcomes of the
+// decision whether to start one: the rules live in internal/policy, shared
+// with plumbline backtest.
 const (
-	pathManual   = "Manual"
-	pathSchedule = "Schedule"
-	pathTrigger  = "Trigger"
+	pathManual   = policy.PathManual
+	pathSchedule = policy.PathSchedule
+	pathTrigger  = policy.PathTrigger
+
+	outcomeStarted       = policy.Started
+	outcomeDataQuality   = policy.DataQualityIssue
+	outcomeNoDrift       = policy.DegradedWithoutDrift
+	outcomeInsufficient  = policy.InsufficientData
+	outcomeChecksUnknown = policy.ChecksUnknown
+	outcomeInFlight      = policy.InFlight
+	outcomeCooldown      = policy.Cooldown
 )
 
-// Outcomes of the decision whether to start a retrain.
-const (
-	outcomeStarted       = "Started"
-	outcomeDataQuality   = "DataQualityIssue"
-	outcomeNoDrift       = "DegradedWithoutDrift"
-	outcomeInsufficient  = "InsufficientData"
-	outcomeChecksUnknown = "ChecksUnknown"
-	outcomeInFlight      = "InFlight"
-	outcomeCooldown      = "Cooldown"
+type (
+	check        = policy.Check
+	checkResults = policy.Checks
 )
 
 // scheduledForAnnotation on a version names the scheduled start it answers.
@@ -198,40 +203,13 @@ func triggerEventType(s v1alpha1.TriggerState) string {
 	return corev1.EventTypeNormal
 }
 
-// check is the outcome of one check: a PromQL query, or an answer of the
-// check Job's report.
-type check struct {
-	kind, name string
-	known      bool
-	breached   bool
-	value      float64
-	series     string
-	err        string
-	// text says what a known check found, when a value does not.
-	text string
-}
-
-func (c check) String() string {
-	if c.known && c.text != "" {
-		return c.text
-	}
-	where := ""
-	if c.series != "" && c.series != "{}" {
-		where = " " + c.series
-	}
-	if !c.known {
-		return fmt.Sprintf("%s check %s could not be judged: %s", c.kind, c.name, c.err)
-	}
-	return fmt.Sprintf("%s check %s%s is %s", c.kind, c.name, where, promq.Format(c.value))
-}
-
 // runCheck asks one instant query and judges it against a threshold: any
 // series breaching breaches; no series at all cannot be judged.
 func (r *ModelLineReconciler) runCheck(ctx context.Context, kind, name, query string, th trigger.Threshold, now time.Time) check {
-	c := check{kind: kind, name: name}
+	c := check{Kind: kind, Name: name}
 	series, err := r.Prometheus.Instant(ctx, query, now)
 	if err != nil {
-		c.err = err.Error()
+		c.Err = err.Error()
 		return c
 	}
 	var first *promq.Series
@@ -244,24 +222,16 @@ func (r *ModelLineReconciler) runCheck(ctx context.Context, kind, name, query st
 			first = s
 		}
 		if th.Breached(s.Points[0].V) {
-			c.known, c.breached, c.value, c.series = true, true, s.Points[0].V, s.Labels
+			c.Known, c.Breached, c.Value, c.Series = true, true, s.Points[0].V, s.Labels
 			return c
 		}
 	}
 	if first == nil {
-		c.err = "the query returned no value"
+		c.Err = "the query returned no value"
 		return c
 	}
-	c.known, c.value, c.series = true, first.Points[0].V, first.Labels
+	c.Known, c.Value, c.Series = true, first.Points[0].V, first.Labels
 	return c
-}
-
-// checkResults are the outcomes of a line's checks before a start.
-type checkResults struct {
-	dataQuality []check
-	drift       []check
-	freshData   *check // nil when the line has no freshData check
-	atLeast     float64
 }
 
 // runChecks runs the checks a path needs: data quality always, drift only
@@ -273,18 +243,18 @@ func (r *ModelLineReconciler) runChecks(ctx context.Context, line *v1alpha1.Mode
 		return res
 	}
 	for _, q := range c.DataQuality {
-		res.dataQuality = append(res.dataQuality, r.runCheck(ctx, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
+		res.DataQuality = append(res.DataQuality, r.runCheck(ctx, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
 	}
 	if path == pathTrigger {
 		for _, q := range c.Drift {
-			res.drift = append(res.drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
+			res.Drift = append(res.Drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
 		}
 	}
 	if f := c.FreshData; f != nil && f.Query != "" {
 		// The least value across series must reach atLeast.
 		th := threshold(&f.AtLeast, nil)
 		fc := r.runCheck(ctx, "fresh-data", "freshData", f.Query, th, now)
-		res.freshData, res.atLeast = &fc, f.AtLeast
+		res.FreshData, res.AtLeast = &fc, f.AtLeast
 	}
 	return res
 }
@@ -309,68 +279,14 @@ func spendsCheck(path, outcome string, st *v1alpha1.CheckRunStatus) bool {
 	}
 }
 
-// verdict is whether to start a retrain, and why not.
-type verdict struct {
-	outcome string
-	message string
-}
-
-// decideStart judges the checks in order: any data-quality breach blocks the
-// retrain (fix the data first); for a trigger, a quality drop that no drift
-// check explains needs a person; too few fresh labelled rows are not worth
-// training on. A check that cannot be judged never leads to an action: the
-// start waits. With no drift checks configured, drift is not required.
-func decideStart(path string, cr checkResults) verdict {
-	var unknown []string
-	for _, c := range cr.dataQuality {
-		if c.known && c.breached {
-			return verdict{outcomeDataQuality, c.String() + ": retraining on broken data is refused; fix the data first"}
-		}
-		if !c.known {
-			unknown = append(unknown, c.String())
-		}
-	}
-	if len(unknown) > 0 {
-		return verdict{outcomeChecksUnknown, strings.Join(unknown, "; ")}
-	}
-	if path == pathTrigger && len(cr.drift) > 0 {
-		drifted, unknownDrift := false, []string{}
-		for _, c := range cr.drift {
-			drifted = drifted || c.known && c.breached
-			if !c.known {
-				unknownDrift = append(unknownDrift, c.String())
-			}
-		}
-		switch {
-		case !drifted && len(unknownDrift) > 0:
-			return verdict{outcomeChecksUnknown, strings.Join(unknownDrift, "; ")}
-		case !drifted:
-			var seen []string
-			for _, c := range cr.drift {
-				seen = append(seen, c.String())
-			}
-			return verdict{outcomeNoDrift, "quality dropped but no drift check found the inputs shifted (" + strings.Join(seen, "; ") + "): retraining on the same kind of data is unlikely to help; a person should look"}
-		}
-	}
-	if f := cr.freshData; f != nil {
-		switch {
-		case !f.known:
-			return verdict{outcomeChecksUnknown, f.String()}
-		case f.breached:
-			return verdict{outcomeInsufficient, fmt.Sprintf("%s, below the %s new labelled rows worth training on", f.String(), promq.Format(cr.atLeast))}
-		}
-	}
-	return verdict{outcomeStarted, "checks passed"}
-}
-
 // apply records a decision's outcome on the line's Blocked and NeedsReview
 // conditions, with an event when a condition changes.
-func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
+func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v policy.Verdict) {
 	cond := func(typ string, status metav1.ConditionStatus, why, msg string) bool {
 		return setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: why, Message: text.Truncate(msg, 2000)}, line.Generation, p.now)
 	}
-	msg := fmt.Sprintf("retrain for %s: %s", reason, v.message)
-	switch v.outcome {
+	msg := fmt.Sprintf("retrain for %s: %s", reason, v.Message)
+	switch v.Outcome {
 	case outcomeStarted:
 		cond(v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed", msg)
 		cond(v1alpha1.ConditionNeedsReview, metav1.ConditionFalse, "Retraining", msg)
@@ -384,8 +300,8 @@ func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
 		}
 	case outcomeNoDrift, outcomeInsufficient:
 		cond(v1alpha1.ConditionBlocked, metav1.ConditionFalse, "DataQualityOK", "the data-quality checks passed")
-		if cond(v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, v.outcome, msg) {
-			p.eventFor(reason, line, nil, corev1.EventTypeWarning, "NeedsReview", "%s: %s", v.outcome, msg)
+		if cond(v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, v.Outcome, msg) {
+			p.eventFor(reason, line, nil, corev1.EventTypeWarning, "NeedsReview", "%s: %s", v.Outcome, msg)
 		}
 	}
 }
@@ -395,8 +311,8 @@ func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v verdict) {
 // the checks could not be judged and the caller should try again later.
 func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason string, marks map[string]string) (bool, *v1alpha1.ModelVersion, error) {
 	cr := r.runChecks(ctx, line, path, p.now.Time)
-	v := decideStart(path, cr)
-	if c := line.Spec.Checks; c != nil && c.JobTemplate != nil && v.outcome != outcomeDataQuality {
+	v := policy.DecideStart(path, cr)
+	if c := line.Spec.Checks; c != nil && c.JobTemplate != nil && v.Outcome != outcomeDataQuality {
 		// The check Job's answers join the PromQL checks' (which alone
 		// may already refuse, and then no Job runs).
 		jc, err := r.runCheckJob(ctx, line, vw, p, reason)
@@ -410,20 +326,20 @@ func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.Model
 			p.wakeAt(p.now.Add(checkRetry))
 			return false, nil, nil
 		}
-		cr.dataQuality = append(cr.dataQuality, jc.dataQuality)
-		cr.drift = append(cr.drift, jc.drift)
+		cr.DataQuality = append(cr.DataQuality, jc.dataQuality)
+		cr.Drift = append(cr.Drift, jc.drift)
 		if f := c.FreshData; f != nil && f.Query == "" {
 			rows := jc.rows
-			rows.breached = rows.known && rows.value < f.AtLeast
-			cr.freshData, cr.atLeast = &rows, f.AtLeast
+			rows.Breached = rows.Known && rows.Value < f.AtLeast
+			cr.FreshData, cr.AtLeast = &rows, f.AtLeast
 		}
-		v = decideStart(path, cr)
-		if spendsCheck(path, v.outcome, line.Status.LastCheck) {
+		v = policy.DecideStart(path, cr)
+		if spendsCheck(path, v.Outcome, line.Status.LastCheck) {
 			line.Status.LastCheck.Used = true
 		}
 	}
-	p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.outcome).Inc() })
-	if v.outcome == outcomeInsufficient {
+	p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.Outcome).Inc() })
+	if v.Outcome == outcomeInsufficient {
 		// Retraining cannot help; an older or rule-based version might.
 		started, err := r.startAlternatives(ctx, line, vw, p, altInsufficientData)
 		if err != nil {
@@ -436,7 +352,7 @@ func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.Model
 		}
 	}
 	applyVerdict(line, p, reason, v)
-	switch v.outcome {
+	switch v.Outcome {
 	case outcomeChecksUnknown:
 		p.wakeAt(p.now.Add(checkRetry))
 		return false, nil, nil
@@ -554,19 +470,9 @@ func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1
 	}
 	tr := firing[0]
 	reason := v1alpha1.ReasonTriggerPrefix + tr.Name
-	if vw.active() != nil {
+	if outcome, ok := policy.TriggerMayStart(vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), p.now.Time); !ok {
 		p.count(func() {
-			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcomeInFlight).Inc()
-		})
-		return nil
-	}
-	cooldown := time.Hour
-	if line.Spec.CooldownSeconds != nil {
-		cooldown = seconds(*line.Spec.CooldownSeconds)
-	}
-	if last := lastRetrain(line); last != nil && p.now.Time.Before(last.Add(cooldown)) {
-		p.count(func() {
-			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcomeCooldown).Inc()
+			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcome).Inc()
 		})
 		return nil
 	}

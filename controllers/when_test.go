@@ -13,65 +13,6 @@ import (
 	"plumbline.dev/plumbline/internal/trigger"
 )
 
-func ok(kind, name string, v float64) check {
-	return check{kind: kind, name: name, known: true, value: v}
-}
-
-func breach(kind, name string, v float64) check {
-	return check{kind: kind, name: name, known: true, breached: true, value: v}
-}
-
-func unknown(kind, name string) check {
-	return check{kind: kind, name: name, err: "dial tcp: connection refused"}
-}
-
-func TestDecideStart(t *testing.T) {
-	fresh := func(c check) *check { return &c }
-	cases := []struct {
-		name    string
-		path    string
-		cr      checkResults
-		outcome string
-		text    string
-	}{
-		{"no checks", pathTrigger, checkResults{}, outcomeStarted, "checks passed"},
-		{"all pass", pathTrigger, checkResults{
-			dataQuality: []check{ok("data-quality", "address-missing", 0.01)},
-			drift:       []check{breach("drift", "depot-shift", 0.4)},
-			freshData:   fresh(ok("fresh-data", "freshData", 50000)), atLeast: 20000}, outcomeStarted, ""},
-		{"broken data", pathTrigger, checkResults{
-			dataQuality: []check{ok("data-quality", "scan-feed", 10), breach("data-quality", "address-missing", 0.18)},
-			drift:       []check{breach("drift", "depot-shift", 0.4)}}, outcomeDataQuality, "data-quality check address-missing is 0.18"},
-		{"a breach beats an unknown", pathTrigger, checkResults{
-			dataQuality: []check{unknown("data-quality", "scan-feed"), breach("data-quality", "address-missing", 0.18)}}, outcomeDataQuality, "address-missing"},
-		{"data quality unknown", pathManual, checkResults{
-			dataQuality: []check{unknown("data-quality", "scan-feed")}}, outcomeChecksUnknown, "could not be judged: dial tcp"},
-		{"no drift", pathTrigger, checkResults{
-			drift: []check{ok("drift", "depot-shift", 0.05), ok("drift", "distance-shift", 0.02)}}, outcomeNoDrift, "drift check depot-shift is 0.05; drift check distance-shift is 0.02"},
-		{"one drift is enough", pathTrigger, checkResults{
-			drift: []check{ok("drift", "depot-shift", 0.05), breach("drift", "distance-shift", 0.3)}}, outcomeStarted, ""},
-		{"drift found despite an unknown", pathTrigger, checkResults{
-			drift: []check{unknown("drift", "depot-shift"), breach("drift", "distance-shift", 0.3)}}, outcomeStarted, ""},
-		{"no drift found, one unknown", pathTrigger, checkResults{
-			drift: []check{unknown("drift", "depot-shift"), ok("drift", "distance-shift", 0.1)}}, outcomeChecksUnknown, "depot-shift"},
-		{"schedule skips drift", pathSchedule, checkResults{
-			drift: []check{ok("drift", "depot-shift", 0.05)}}, outcomeStarted, ""},
-		{"too few labels", pathTrigger, checkResults{
-			freshData: fresh(breach("fresh-data", "freshData", 3000)), atLeast: 20000}, outcomeInsufficient, "fresh-data check freshData is 3000, below the 20000"},
-		{"fresh data unknown", pathSchedule, checkResults{
-			freshData: fresh(unknown("fresh-data", "freshData")), atLeast: 20000}, outcomeChecksUnknown, "freshData could not be judged"},
-		{"data quality before fresh data", pathSchedule, checkResults{
-			dataQuality: []check{breach("data-quality", "address-missing", 0.2)},
-			freshData:   fresh(breach("fresh-data", "freshData", 3000)), atLeast: 20000}, outcomeDataQuality, ""},
-	}
-	for _, c := range cases {
-		v := decideStart(c.path, c.cr)
-		if v.outcome != c.outcome || !strings.Contains(v.message, c.text) {
-			t.Errorf("%s: %s %q, want %s containing %q", c.name, v.outcome, v.message, c.outcome, c.text)
-		}
-	}
-}
-
 func TestNextTriggerStatus(t *testing.T) {
 	now := metav1.NewTime(time.Date(2026, 11, 2, 4, 0, 0, 0, time.UTC))
 	run := time.Date(2026, 11, 2, 3, 0, 0, 0, time.UTC)
@@ -126,11 +67,11 @@ func TestEvaluationsCadence(t *testing.T) {
 }
 
 func TestRunCheckString(t *testing.T) {
-	c := check{kind: "data-quality", name: "address-missing", known: true, breached: true, value: 0.18, series: `{feature="address_confidence"}`}
+	c := check{Kind: "data-quality", Name: "address-missing", Known: true, Breached: true, Value: 0.18, Series: `{feature="address_confidence"}`}
 	if got := c.String(); got != `data-quality check address-missing {feature="address_confidence"} is 0.18` {
 		t.Errorf("got %q", got)
 	}
-	c.value = math.Inf(1)
+	c.Value = math.Inf(1)
 	if !strings.Contains(c.String(), "+Inf") {
 		t.Errorf("got %q", c.String())
 	}
