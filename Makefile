@@ -52,6 +52,18 @@ bench: controlplane prometheus ## Print the benchmarks' figures: evaluate on a m
 false-alarms: ## Print the trigger false-alarm and detection-delay table of the README (about 2 minutes).
 	go run ./hack/falsealarms
 
+.PHONY: backtest-example
+backtest-example: build ## Replay the sample line and three other policies over a synthetic Larkspur history; chart in .demo/.
+	mkdir -p .demo
+	go run ./hack/larkspur-history > .demo/history.csv
+	go run ./hack/larkspur-history --staleness > .demo/batches.csv
+	$(BIN)/plumbline backtest --history .demo/history.csv --target 0.80 \
+	  --line config/samples/larkspur_v1alpha1_modelline.yaml --line-triggers auc-drop \
+	  --schedule "0 3 1 * *" --trigger below=0.80,for=6h,every=15m --cusum k=0.004,h=0.1 \
+	  --out .demo/backtest.json --chart .demo/backtest.svg
+	$(BIN)/plumbline backtest staleness --history .demo/batches.csv --trained-at 2026-06-01T00:00:00Z \
+	  --target 0.80 --margin 0.01 --chart .demo/staleness.svg
+
 .PHONY: manifests
 manifests: $(CONTROLLER_GEN) ## Generate the CRDs and RBAC from the markers.
 	$(CONTROLLER_GEN) crd:allowDangerousTypes=true paths=./api/... output:crd:artifacts:config=config/crd/bases

@@ -5,6 +5,7 @@
 //	plumbline demo      run the local demo on an embedded control plane
 //	plumbline evaluate  measure a candidate against the live model on a golden set
 //	plumbline datacheck check a current batch of data against a reference batch
+//	plumbline backtest  replay retraining policies over a quality history
 //	plumbline version   print the version
 package main
 
@@ -27,6 +28,7 @@ import (
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
+	"plumbline.dev/plumbline/internal/backtest"
 	"plumbline.dev/plumbline/internal/datacheck"
 	"plumbline.dev/plumbline/internal/demo"
 	"plumbline.dev/plumbline/internal/evaluate"
@@ -47,6 +49,7 @@ var commands = []command{
 	{"demo", "run the local demo on an embedded control plane", runDemo},
 	{"evaluate", "measure a candidate against the live model on a golden set (the gate Job's tool)", runEvaluate},
 	{"datacheck", "check a current batch of data against a reference batch: quality and drift (the check Job's tool)", runDatacheck},
+	{"backtest", "replay retraining policies over a quality history; 'backtest staleness' fits how fast a model decays", runBacktest},
 	{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
 		_, err := fmt.Fprintln(stdout, version)
 		return err
@@ -172,6 +175,14 @@ func runEvaluate(_ context.Context, args []string, stdout, stderr io.Writer) err
 func runDatacheck(_ context.Context, args []string, stdout, stderr io.Writer) error {
 	err := datacheck.Command(args, stdout, stderr)
 	if errors.Is(err, datacheck.ErrUsage) {
+		return errUsage
+	}
+	return err
+}
+
+func runBacktest(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	err := backtest.Command(ctx, args, stdout, stderr)
+	if errors.Is(err, backtest.ErrUsage) {
 		return errUsage
 	}
 	return err

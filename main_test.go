@@ -23,6 +23,11 @@ func TestRunCommands(t *testing.T) {
 		{[]string{"manager", "--prometheus-url=prometheus:9090"}, 1, "", "want an http(s) URL"},
 		{[]string{"manager", "-h"}, 0, "", "-prometheus-url"},
 		{[]string{"demo", "-h"}, 0, "", "-assets"},
+		{[]string{"datacheck", "--current", "x.csv"}, 2, "", "--reference is required"},
+		{[]string{"datacheck", "--reference", "no-such.csv", "--current", "x.csv"}, 1, "", "--reference: open no-such.csv"},
+		{[]string{"backtest", "--history", "h.csv"}, 2, "", "give policies to compare"},
+		{[]string{"backtest", "--history", "no-such.csv", "--target", "0.8", "--schedule", "@weekly"}, 1, "", "--history"},
+		{[]string{"backtest", "staleness", "--history", "h.csv"}, 2, "", "--trained-at is required"},
 	}
 	for _, tc := range cases {
 		var out, errOut bytes.Buffer

@@ -18,10 +18,16 @@ const Lookback = 5 * time.Minute
 // answers a plain selector: at each step from start to end, the latest
 // sample at or before it, if that is no older than Lookback.
 func RangeQuery(samples []promq.Point, start, end time.Time, step time.Duration) []promq.Point {
+	return RangeQueryLookback(samples, start, end, step, Lookback)
+}
+
+// RangeQueryLookback is RangeQuery with another lookback: a history
+// recorded every 15 minutes holds each value until the next.
+func RangeQueryLookback(samples []promq.Point, start, end time.Time, step, lookback time.Duration) []promq.Point {
 	var out []promq.Point
 	for t := start; !t.After(end); t = t.Add(step) {
 		i := sort.Search(len(samples), func(i int) bool { return samples[i].T.After(t) }) - 1
-		if i >= 0 && t.Sub(samples[i].T) <= Lookback {
+		if i >= 0 && t.Sub(samples[i].T) <= lookback {
 			out = append(out, promq.Point{T: t, V: samples[i].V})
 		}
 	}
