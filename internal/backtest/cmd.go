@@ -7,11 +7,11 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"strings"
 	"time"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/outfile"
 	"plumbline.dev/plumbline/internal/promq"
 )
 
@@ -219,8 +219,8 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		return err
 	}
 	if out != "" {
-		if err := writeFile(out, func(w io.Writer) error { return WriteJSON(w, rep) }); err != nil {
-			return fmt.Errorf("--out: %w", err)
+		if err := outfile.WriteJSON(out, "--out", rep); err != nil {
+			return err
 		}
 	}
 	if err := WriteTable(stdout, rep); err != nil {
@@ -292,8 +292,8 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 		return err
 	}
 	if out != "" {
-		if err := writeFile(out, func(w io.Writer) error { return WriteJSON(w, s) }); err != nil {
-			return fmt.Errorf("--out: %w", err)
+		if err := outfile.WriteJSON(out, "--out", s); err != nil {
+			return err
 		}
 	}
 	if err := WriteStaleness(stdout, s); err != nil {
@@ -306,16 +306,4 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 		fmt.Fprintf(stdout, "chart: %s\n", chart)
 	}
 	return nil
-}
-
-func writeFile(path string, write func(io.Writer) error) error {
-	f, err := os.Create(path)
-	if err != nil {
-		return err
-	}
-	if err := write(f); err != nil {
-		f.Close()
-		return err
-	}
-	return f.Close()
 }

@@ -1,7 +1,6 @@
 package backtest
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -193,13 +192,6 @@ func dur(seconds float64) string {
 		}
 		return fmt.Sprintf("%dd%dh", days, h)
 	}
-}
-
-// WriteJSON writes the report.
-func WriteJSON(w io.Writer, v any) error {
-	enc := json.NewEncoder(w)
-	enc.SetIndent("", "  ")
-	return enc.Encode(v)
 }
 
 // WriteTable prints the report as a person reads it.

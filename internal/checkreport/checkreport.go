@@ -6,10 +6,10 @@
 package checkreport
 
 import (
-	"plumbline.dev/plumbline/internal/termination"
-
 	"encoding/json"
 	"fmt"
+
+	"plumbline.dev/plumbline/internal/termination"
 )
 
 // Schema identifies version 1 of the check report.

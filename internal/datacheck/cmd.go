@@ -1,8 +1,6 @@
 package datacheck
 
 import (
-	"plumbline.dev/plumbline/internal/termination"
-
 	"errors"
 	"flag"
 	"fmt"
@@ -11,6 +9,9 @@ import (
 	"os"
 	"strconv"
 	"strings"
+
+	"plumbline.dev/plumbline/internal/outfile"
+	"plumbline.dev/plumbline/internal/termination"
 )
 
 // ErrUsage marks bad flags, already explained on stderr.
@@ -124,8 +125,8 @@ func Command(args []string, stdout, stderr io.Writer) error {
 		}
 	}
 	if out != "" {
-		if err := writeFile(out, func(f io.Writer) error { return WriteJSON(f, rep) }); err != nil {
-			return fmt.Errorf("--out: %w", err)
+		if err := outfile.WriteJSON(out, "--out", rep); err != nil {
+			return err
 		}
 	}
 	if err := WriteTable(stdout, rep); err != nil {
@@ -146,18 +147,6 @@ func Command(args []string, stdout, stderr io.Writer) error {
 		fmt.Fprintf(stdout, "check report: %d bytes to %s%s\n", len(b), termFile, note)
 	}
 	return nil
-}
-
-func writeFile(path string, write func(io.Writer) error) error {
-	f, err := os.Create(path)
-	if err != nil {
-		return err
-	}
-	if err := write(f); err != nil {
-		f.Close()
-		return err
-	}
-	return f.Close()
 }
 
 // ParseWeights reads feature weights: name=weight, comma-separated.

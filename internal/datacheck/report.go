@@ -1,7 +1,6 @@
 package datacheck
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -12,6 +11,7 @@ import (
 	"text/tabwriter"
 
 	"plumbline.dev/plumbline/internal/checkreport"
+	"plumbline.dev/plumbline/internal/outfile"
 	"plumbline.dev/plumbline/internal/stats"
 )
 
@@ -603,11 +603,7 @@ func driftVerdict(res *result, cols []Column) DriftVerdict {
 }
 
 // WriteJSON writes the full report.
-func WriteJSON(w io.Writer, r *Report) error {
-	enc := json.NewEncoder(w)
-	enc.SetIndent("", "  ")
-	return enc.Encode(r)
-}
+func WriteJSON(w io.Writer, r *Report) error { return outfile.JSON(w, r) }
 
 // Compact is the report for the controller: the answers, the findings, and
 // the tested features, drifted first and then by PSI.

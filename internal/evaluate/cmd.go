@@ -8,6 +8,7 @@ import (
 	"os"
 	"strings"
 
+	"plumbline.dev/plumbline/internal/outfile"
 	"plumbline.dev/plumbline/internal/stats"
 	"plumbline.dev/plumbline/internal/termination"
 )
@@ -112,16 +113,8 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 	groups := Evaluate(ds, s)
 	rep := Build(input, ds, s, groups, MustPassFailures(ds, s))
 	if out != "" {
-		f, err := os.Create(out)
-		if err != nil {
-			return fmt.Errorf("--out: %w", err)
-		}
-		if err := WriteJSON(f, rep); err != nil {
-			f.Close()
-			return fmt.Errorf("--out: %w", err)
-		}
-		if err := f.Close(); err != nil {
-			return fmt.Errorf("--out: %w", err)
+		if err := outfile.WriteJSON(out, "--out", rep); err != nil {
+			return err
 		}
 	}
 	if err := WriteTable(stdout, rep); err != nil {

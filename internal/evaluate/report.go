@@ -1,7 +1,6 @@
 package evaluate
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -12,6 +11,7 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/gatereport"
+	"plumbline.dev/plumbline/internal/outfile"
 )
 
 // ReportSchema identifies version 1 of the full evaluation report.
@@ -273,11 +273,7 @@ func Compact(r Report, sel Selection) ([]byte, *gatereport.Report, error) {
 }
 
 // WriteJSON writes the full report, indented.
-func WriteJSON(w io.Writer, r Report) error {
-	enc := json.NewEncoder(w)
-	enc.SetIndent("", "  ")
-	return enc.Encode(r)
-}
+func WriteJSON(w io.Writer, r Report) error { return outfile.JSON(w, r) }
 
 func fmtNum(p *float64) string {
 	if p == nil {

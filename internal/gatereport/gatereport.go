@@ -9,11 +9,11 @@
 package gatereport
 
 import (
-	"plumbline.dev/plumbline/internal/termination"
-
 	"encoding/json"
 	"fmt"
 	"math"
+
+	"plumbline.dev/plumbline/internal/termination"
 )
 
 // Schema identifies version 1 of the gate report.
