@@ -19,12 +19,12 @@ help: ## List the targets.
 ##@ The two commands of the README
 
 .PHONY: demo
-demo: build controlplane prometheus ## Run the local demo on an embedded control plane (builds what it needs once).
-	KUBEBUILDER_ASSETS=$(K8S_BIN) $(BIN)/plumbline demo --crds config/crd/bases --samples config/samples
+demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a simulated cluster on loopback (builds what it needs once).
+	$(BIN)/plumbline demo --assets $(K8S_BIN) --crds config/crd/bases
 
 .PHONY: test
-test: controlplane prometheus ## Run every test tier that can run here (unit, API server, Prometheus).
-	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 go test -count=1 $(GO_PACKAGES)
+test: controlplane simcluster prometheus ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster).
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 go test -count=1 $(GO_PACKAGES)
 
 ##@ Development
 
@@ -111,6 +111,10 @@ run: build ## Run the controller against the cluster of the current kubeconfig.
 .PHONY: controlplane
 controlplane: ## Build kube-apiserver and etcd from the Go module proxy into bin/k8s (once).
 	hack/build-controlplane.sh etcd kube-apiserver
+
+.PHONY: simcluster
+simcluster: controlplane ## Build kube-controller-manager, kube-scheduler and kwok into bin/k8s (once) for the simulated cluster.
+	hack/build-controlplane.sh kube-controller-manager kube-scheduler kwok
 
 ##@ Deployment
 
