@@ -470,10 +470,18 @@ func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1
 	}
 	tr := firing[0]
 	reason := v1alpha1.ReasonTriggerPrefix + tr.Name
-	if outcome, ok := policy.TriggerMayStart(vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), p.now.Time); !ok {
+	var liveSince *time.Time
+	if t := line.Status.LastPromotionTime; t != nil {
+		liveSince = &t.Time
+	}
+	window := seconds(tr.ForSeconds)
+	if outcome, ok := policy.TriggerMayStart(vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), liveSince, window, p.now.Time); !ok {
 		p.count(func() {
 			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcome).Inc()
 		})
+		if outcome == policy.LiveTooRecent {
+			p.wakeAt(liveSince.Add(window))
+		}
 		return nil
 	}
 	_, _, err := r.tryStart(ctx, line, vw, p, pathTrigger, reason, nil)

@@ -178,6 +178,8 @@ type replayer struct {
 	res      *Result
 	inFlight *Retrain
 	last     *time.Time // the last retrain's start, whatever started it
+	// liveSince is when the last retrain took effect (its promotion).
+	liveSince *time.Time
 }
 
 // Replay runs a policy over the history. level is the quality a retrain
@@ -258,7 +260,7 @@ func (r *replayer) run() error {
 			if res.State != v1alpha1.TriggerFiring {
 				continue
 			}
-			r.gateAndStart(now, cooldown, v1alpha1.ReasonTriggerPrefix+t.Name)
+			r.gateAndStart(now, cooldown, w.For, v1alpha1.ReasonTriggerPrefix+t.Name)
 			break // the first firing trigger, as the controller takes it
 		}
 		// CUSUM on each point up to now.
@@ -268,7 +270,7 @@ func (r *replayer) run() error {
 			}
 			up, down := cusum.Add(r.sim[nextPoint].V)
 			if r.o.LowerIsBetter && up || !r.o.LowerIsBetter && down {
-				if r.gateAndStart(now, cooldown, "CUSUM") {
+				if r.gateAndStart(now, cooldown, 0, "CUSUM") {
 					cusum.Reset()
 				}
 			}
@@ -281,9 +283,10 @@ func (r *replayer) run() error {
 }
 
 // gateAndStart is a trigger's way to a start: nothing in flight, the
-// cooldown over, then the checks.
-func (r *replayer) gateAndStart(now time.Time, cooldown time.Duration, reason string) bool {
-	if outcome, ok := policy.TriggerMayStart(r.inFlight != nil, r.last, cooldown, now); !ok {
+// cooldown over, a full window since the last retrain took effect, then
+// the checks.
+func (r *replayer) gateAndStart(now time.Time, cooldown, window time.Duration, reason string) bool {
+	if outcome, ok := policy.TriggerMayStart(r.inFlight != nil, r.last, cooldown, r.liveSince, window, now); !ok {
 		r.res.Decisions[outcome]++
 		return false
 	}
@@ -330,6 +333,7 @@ func (r *replayer) labelledAt(t time.Time) float64 {
 // level (against the history's mean over the hour before), and moves as
 // the history moved after that.
 func (r *replayer) takeEffect(at time.Time) {
+	r.liveSince = &at
 	sum, n := 0.0, 0
 	lastBefore := math.NaN()
 	for _, p := range r.h.Points {

@@ -30,6 +30,7 @@ const (
 	ChecksUnknown        = "ChecksUnknown"
 	InFlight             = "InFlight"
 	Cooldown             = "Cooldown"
+	LiveTooRecent        = "LiveTooRecent"
 )
 
 // DefaultCooldown is the cooldown when a line sets none.
@@ -126,13 +127,19 @@ func DecideStart(path string, cr Checks) Verdict {
 
 // TriggerMayStart says whether a firing trigger may start a retrain now:
 // not while a version is in flight (InFlight), nor within the cooldown of
-// the last retrain, whatever started it (Cooldown).
-func TriggerMayStart(inFlight bool, lastRetrain *time.Time, cooldown time.Duration, now time.Time) (string, bool) {
+// the last retrain, whatever started it (Cooldown), nor while the trigger's
+// window still reaches back before the live version went live (a promotion
+// or a rollback at liveSince): such a window judges the version that was
+// replaced, so the trigger waits for a full window of the live one
+// (LiveTooRecent).
+func TriggerMayStart(inFlight bool, lastRetrain *time.Time, cooldown time.Duration, liveSince *time.Time, window time.Duration, now time.Time) (string, bool) {
 	switch {
 	case inFlight:
 		return InFlight, false
 	case lastRetrain != nil && now.Before(lastRetrain.Add(cooldown)):
 		return Cooldown, false
+	case liveSince != nil && now.Before(liveSince.Add(window)):
+		return LiveTooRecent, false
 	}
 	return "", true
 }

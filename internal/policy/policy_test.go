@@ -68,21 +68,28 @@ func TestDecideStart(t *testing.T) {
 func TestTriggerMayStart(t *testing.T) {
 	now := time.Date(2026, 11, 2, 4, 0, 0, 0, time.UTC)
 	last := now.Add(-30 * time.Minute)
+	live := now.Add(-10 * time.Minute)
 	cases := []struct {
 		inFlight bool
 		last     *time.Time
 		cooldown time.Duration
+		live     *time.Time
+		window   time.Duration
 		outcome  string
 		ok       bool
 	}{
-		{false, nil, time.Hour, "", true},
-		{true, nil, time.Hour, InFlight, false},
-		{false, &last, time.Hour, Cooldown, false},
-		{false, &last, 30 * time.Minute, "", true}, // the cooldown ends at 04:00 exactly
-		{true, &last, time.Hour, InFlight, false},
+		{false, nil, time.Hour, nil, time.Hour, "", true},
+		{true, nil, time.Hour, nil, time.Hour, InFlight, false},
+		{false, &last, time.Hour, nil, time.Hour, Cooldown, false},
+		{false, &last, 30 * time.Minute, nil, time.Hour, "", true}, // the cooldown ends at 04:00 exactly
+		{true, &last, time.Hour, nil, time.Hour, InFlight, false},
+		// Live for 10 minutes: a 30-minute window still holds the replaced
+		// version's data; a 10-minute one is all the live version's.
+		{false, &last, 30 * time.Minute, &live, 30 * time.Minute, LiveTooRecent, false},
+		{false, &last, 30 * time.Minute, &live, 10 * time.Minute, "", true},
 	}
 	for i, c := range cases {
-		outcome, ok := TriggerMayStart(c.inFlight, c.last, c.cooldown, now)
+		outcome, ok := TriggerMayStart(c.inFlight, c.last, c.cooldown, c.live, c.window, now)
 		if outcome != c.outcome || ok != c.ok {
 			t.Errorf("case %d: %q %v, want %q %v", i, outcome, ok, c.outcome, c.ok)
 		}
