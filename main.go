@@ -2,7 +2,7 @@
 // Kubernetes. One binary holds the controller and the tools around it:
 //
 //	plumbline manager   run the controller
-//	plumbline demo      run the local demo on an embedded control plane
+//	plumbline demo      run the Larkspur demo on a simulated cluster on loopback
 //	plumbline evaluate  measure a candidate against the live model on a golden set
 //	plumbline datacheck check a current batch of data against a reference batch
 //	plumbline backtest  replay retraining policies over a quality history
@@ -46,7 +46,7 @@ type command struct {
 
 var commands = []command{
 	{"manager", "run the controller against the cluster of the current kubeconfig", runManager},
-	{"demo", "run the local demo on an embedded control plane", runDemo},
+	{"demo", "run the Larkspur demo on a simulated cluster on loopback ('demo train' and 'demo score' are its Jobs' programs)", runDemo},
 	{"evaluate", "measure a candidate against the live model on a golden set (the gate Job's tool)", runEvaluate},
 	{"datacheck", "check a current batch of data against a reference batch: quality and drift (the check Job's tool)", runDatacheck},
 	{"backtest", "replay retraining policies over a quality history; 'backtest staleness' fits how fast a model decays", runBacktest},
@@ -189,14 +189,31 @@ func runBacktest(ctx context.Context, args []string, stdout, stderr io.Writer) e
 }
 
 func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	if len(args) > 0 {
+		// The programs the demo's Jobs run (see internal/demo/jobtools.go).
+		switch args[0] {
+		case "train":
+			return demoTool(demo.Train(args[1:], stdout, stderr))
+		case "score":
+			return demoTool(demo.Score(args[1:], stdout, stderr))
+		}
+	}
 	fs := flag.NewFlagSet("plumbline demo", flag.ContinueOnError)
 	var o demo.Options
 	fs.StringVar(&o.CRDDir, "crds", "config/crd/bases", "directory of the CRD manifests to install")
-	fs.StringVar(&o.SamplesDir, "samples", "config/samples", "directory of the sample manifests to apply")
-	fs.StringVar(&o.AssetsDir, "assets", os.Getenv("KUBEBUILDER_ASSETS"), "directory holding kube-apiserver and etcd (make controlplane builds them into bin/k8s)")
-	fs.StringVar(&o.WorkDir, "work-dir", ".demo", "directory for the demo's kubeconfig")
+	fs.StringVar(&o.AssetsDir, "assets", "bin/k8s", "directory holding etcd, kube-apiserver, kube-controller-manager, kube-scheduler and kwok (make simcluster builds them)")
+	fs.StringVar(&o.WorkDir, "work-dir", ".demo/run", "directory for the demo's kubeconfig, logs, models and pods (cleared first)")
+	fs.DurationVar(&o.StepTimeout, "step-timeout", 3*time.Minute, "how long to wait for each step of the story")
 	if err := parseFlags(fs, args, stderr); err != nil {
 		return err
 	}
-	return demo.Run(ctx, o, stdout)
+	_, err := demo.Run(ctx, o, stdout)
+	return err
+}
+
+func demoTool(err error) error {
+	if errors.Is(err, demo.ErrUsage) {
+		return errUsage
+	}
+	return err
 }

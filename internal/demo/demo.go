@@ -1,149 +1,213 @@
-// Package demo plays the Larkspur Parcels story on a local control plane: a
-// real kube-apiserver and etcd on loopback with plumbline's CRDs, and the
-// plumbline manager running in-process. It prints a timeline read from the
+// Package demo plays the Larkspur Parcels story on a simulated cluster on
+// loopback: a real kube-apiserver, etcd, kube-controller-manager and
+// kube-scheduler with kwok's simulated nodes (internal/simcluster), a real
+// Prometheus, and the plumbline manager running in-process. Training and
+// evaluation run for real: the demo's executor runs the Jobs' containers as
+// local processes of the plumbline binary (`plumbline demo train` fits a
+// logistic regression on synthetic parcels, `plumbline evaluate` gates it),
+// and a serving simulator scores synthetic traffic with whatever model the
+// scorer Deployment's pods serve. It prints a timeline read from the
 // resources' conditions and events, ends with a summary, and leaves nothing
 // running.
 //
-// Larkspur Parcels is a fictional courier; every name and number is invented.
+// Larkspur Parcels is a fictional courier; every name and number is invented
+// and every parcel synthetic. The executor and the serving simulator exist
+// for the demo only: in a cluster the kubelet runs the Jobs and the team's
+// own monitoring feeds Prometheus.
 package demo
 
 import (
+	"bytes"
 	"context"
+	_ "embed"
 	"errors"
 	"fmt"
 	"io"
-	"net"
-	"net/http"
 	"os"
 	"path/filepath"
 	"sort"
 	"strings"
-	"text/tabwriter"
+	"text/template"
 	"time"
 
-	appsv1 "k8s.io/api/apps/v1"
 	eventsv1 "k8s.io/api/events/v1"
 	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
 	"k8s.io/apimachinery/pkg/types"
 	utilyaml "k8s.io/apimachinery/pkg/util/yaml"
-	clocktesting "k8s.io/utils/clock/testing"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
-	ctrlmetrics "sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/clock"
-	"plumbline.dev/plumbline/internal/controlplane"
 	"plumbline.dev/plumbline/internal/manager"
 	"plumbline.dev/plumbline/internal/promserver"
-	"plumbline.dev/plumbline/internal/standin"
+	"plumbline.dev/plumbline/internal/simcluster"
 )
+
+//go:embed larkspur.yaml
+var manifests string
 
 // Options say where the demo finds what it needs.
 type Options struct {
 	// CRDDir holds the CRD manifests.
 	CRDDir string
-	// SamplesDir holds the Larkspur sample manifests.
-	SamplesDir string
-	// AssetsDir holds kube-apiserver and etcd.
+	// AssetsDir holds the simulated cluster's binaries.
 	AssetsDir string
-	// WorkDir receives the kubeconfig and the manager's log.
+	// WorkDir receives the kubeconfig, the logs, the models and the pods'
+	// working directories.
 	WorkDir string
-	// StepTimeout bounds each wait for the controller; zero means 60s.
+	// Binary is the plumbline binary the Jobs run; empty means this one.
+	Binary string
+	// Short skips the opening steps about mistakes in a spec and the pauses
+	// that let a watcher read along (the CI test).
+	Short bool
+	// StepTimeout bounds each wait; zero means 3 minutes.
 	StepTimeout time.Duration
 }
 
-const namespace = "larkspur"
+// Result is what happened, for the CI test to judge.
+type Result struct {
+	// Blocked: a retrain was refused for a data-quality breach.
+	Blocked bool
+	// Promoted are the versions that went live after a completed rollout,
+	// in order.
+	Promoted []string
+	// RolledBack are the versions the guard rolled back.
+	RolledBack []string
+	// Live is the line's live version at the end.
+	Live string
+	// Jobs counts the Jobs per version and role ("late-risk-v1/train").
+	Jobs map[string]int
+	// PodRuns counts the pods the executor ran per Job.
+	PodRuns map[string]int
+	// ServedBy counts the parcels each version scored.
+	ServedBy map[string]int
+}
+
+const (
+	namespace = "larkspur"
+	lineName  = "late-risk"
+	scorer    = "late-risk-scorer"
+)
 
 // Run plays the demo. It returns nil when every step went as told.
-func Run(ctx context.Context, o Options, out io.Writer) error {
+func Run(ctx context.Context, o Options, out io.Writer) (*Result, error) {
 	if o.StepTimeout == 0 {
-		o.StepTimeout = 60 * time.Second
+		o.StepTimeout = 3 * time.Minute
 	}
-	d := &player{out: out, timeout: o.StepTimeout, seen: map[types.UID]bool{}, clock: clocktesting.NewFakePassiveClock(storyStart)}
+	if o.Binary == "" {
+		exe, err := os.Executable()
+		if err != nil {
+			return nil, fmt.Errorf("find the plumbline binary: %w", err)
+		}
+		o.Binary = exe
+	}
 	work, err := filepath.Abs(o.WorkDir)
 	if err != nil {
-		return fmt.Errorf("work directory %q: %w", o.WorkDir, err)
+		return nil, fmt.Errorf("work directory %q: %w", o.WorkDir, err)
 	}
-	d.work = work
+	if err := os.RemoveAll(work); err != nil {
+		return nil, fmt.Errorf("clear %s: %w", work, err)
+	}
 	if err := os.MkdirAll(work, 0o755); err != nil {
-		return fmt.Errorf("create work directory: %w", err)
+		return nil, fmt.Errorf("create work directory: %w", err)
 	}
+	d := &player{ctx: ctx, out: out, timeout: o.StepTimeout, short: o.Short, start: time.Now(), seen: map[types.UID]bool{},
+		work: work, worldPath: filepath.Join(work, "world.json"), models: filepath.Join(work, "models"), result: &Result{}}
 
-	d.say("plumbline demo: Larkspur Parcels, a fictional courier. Every name and number here is synthetic.")
-	d.say("Starting a control plane on loopback (etcd and kube-apiserver built from source) ...")
-	env, err := controlplane.Start(controlplane.Options{AssetsDir: o.AssetsDir, CRDDir: o.CRDDir, KubeconfigPath: filepath.Join(work, "kubeconfig")})
+	d.say("plumbline demo: Larkspur Parcels, a fictional courier. Every name, number and parcel here is synthetic.")
+	d.say("Starting a simulated cluster on loopback: etcd, kube-apiserver, kube-controller-manager and")
+	d.say("kube-scheduler built from source, and kwok's simulated nodes (they run no containers) ...")
+	cluster, err := simcluster.Start(ctx, simcluster.Options{AssetsDir: o.AssetsDir, CRDDir: o.CRDDir, WorkDir: filepath.Join(work, "cluster")})
 	if err != nil {
-		return err
+		return nil, err
 	}
 	defer func() {
-		d.say("Stopping the manager and the control plane.")
-		if err := env.Stop(); err != nil {
+		d.say("Stopping the manager, Prometheus and the cluster.")
+		if err := cluster.Stop(); err != nil {
 			fmt.Fprintf(out, "demo: %v\n", err)
 		}
 	}()
-	promDir := filepath.Join(work, "prometheus")
-	if err := os.RemoveAll(promDir); err != nil {
-		return fmt.Errorf("clear %s: %w", promDir, err)
-	}
-	d.say("Starting Prometheus with eleven days of synthetic Larkspur monitoring history ...")
-	prom, err := promserver.Start(promDir, history())
+	scheme, err := manager.Scheme()
 	if err != nil {
-		return err
+		return nil, err
+	}
+	if d.c, err = client.New(cluster.Config, client.Options{Scheme: scheme}); err != nil {
+		return nil, fmt.Errorf("create client: %w", err)
+	}
+	d.say("Cluster up with the plumbline CRDs installed. To watch along in another terminal:")
+	fmt.Fprintf(out, "\n    export KUBECONFIG=%s\n    kubectl get modellines,modelversions,jobs,pods -n %s -w\n\n", cluster.KubeconfigPath, namespace)
+
+	if err := d.prepareWorld(); err != nil {
+		return nil, err
+	}
+	// Everything below runs until the story ends; stop it before the
+	// cluster (the deferred calls run last-registered first).
+	rctx, stopRunning := context.WithCancel(ctx)
+	var running []chan struct{}
+	defer func() {
+		stopRunning()
+		for _, ch := range running {
+			<-ch
+		}
+	}()
+	goRun := func(f func(context.Context)) {
+		ch := make(chan struct{})
+		running = append(running, ch)
+		go func() { defer close(ch); f(rctx) }()
+	}
+
+	d.sim = newServingSim(d.c, namespace, d.phaseNow, d.reference, d.world.Seed)
+	simAddr, err := d.sim.serve(rctx)
+	if err != nil {
+		return nil, err
+	}
+	goRun(d.sim.run)
+	prom, err := promserver.StartScraping(filepath.Join(work, "prometheus"), time.Second, simAddr)
+	if err != nil {
+		return nil, err
 	}
 	defer prom.Stop()
-	d.say("Control plane up, CRDs installed, Prometheus at " + prom.URL + ". To watch along in another terminal:")
-	fmt.Fprintf(out, "\n    export KUBECONFIG=%s\n    kubectl get modellines,modelversions -n %s -w\n\n", env.KubeconfigPath, namespace)
+	d.say(fmt.Sprintf("Serving simulator (demo only) exports Larkspur's monitoring at http://%s/metrics; Prometheus %s scrapes it every second.", simAddr, prom.URL))
 
 	logPath := filepath.Join(work, "manager.log")
 	logFile, err := os.Create(logPath)
 	if err != nil {
-		return fmt.Errorf("create manager log: %w", err)
+		return nil, fmt.Errorf("create manager log: %w", err)
 	}
 	defer logFile.Close()
 	ctrl.SetLogger(zap.New(zap.WriteTo(logFile)))
-
 	metricsAddr, err := freeLoopbackAddr()
 	if err != nil {
-		return err
+		return nil, err
 	}
-	mctx, stopManager := context.WithCancel(ctx)
-	mgr, err := manager.New(mctx, env.Config, manager.Options{MetricsAddr: metricsAddr, ProbeAddr: "0",
-		PrometheusURL: prom.URL, Clock: clock.Manual{PassiveClock: d.clock}})
+	mgr, err := manager.New(rctx, cluster.Config, manager.Options{MetricsAddr: metricsAddr, ProbeAddr: "0",
+		PrometheusURL: prom.URL, AllowSecondManager: true})
 	if err != nil {
-		stopManager()
-		return err
+		return nil, err
 	}
 	mgrDone := make(chan error, 1)
-	go func() { mgrDone <- mgr.Start(mctx) }()
-	defer func() {
-		stopManager()
-		if err := <-mgrDone; err != nil {
-			fmt.Fprintf(out, "demo: manager: %v\n", err)
-		}
-	}()
-	d.say(fmt.Sprintf("Manager running (log: %s, metrics: http://%s/metrics).", logPath, metricsAddr))
+	goRun(func(ctx context.Context) { mgrDone <- mgr.Start(ctx) })
+	d.say(fmt.Sprintf("plumbline manager running on the real clock (log: %s, metrics: http://%s/metrics).", logPath, metricsAddr))
 
-	scheme, err := manager.Scheme()
-	if err != nil {
-		return err
-	}
-	d.c, err = client.New(env.Config, client.Options{Scheme: scheme})
-	if err != nil {
-		return fmt.Errorf("create client: %w", err)
-	}
-	d.ctx = ctx
+	d.exec = newExecutor(d.c, namespace, o.Binary, filepath.Join(work, "pods"), d.say)
+	goRun(d.exec.run)
+	d.say("Executor (demo only) runs the Job pods' containers as local plumbline processes; logs under " + filepath.Join(work, "pods") + ".")
 
-	if err := d.story(o.SamplesDir); err != nil {
-		return err
+	if err := d.story(); err != nil {
+		return d.result, err
 	}
 	if err := d.summary(metricsAddr); err != nil {
-		return err
+		return d.result, err
 	}
-	return nil
+	select {
+	case err := <-mgrDone:
+		return d.result, fmt.Errorf("the manager stopped during the demo: %w", err)
+	default:
+	}
+	return d.result, nil
 }
 
 // player keeps the demo's state and prints its timeline.
@@ -152,27 +216,65 @@ type player struct {
 	c       client.Client
 	out     io.Writer
 	timeout time.Duration
-	// clock is the controller's clock; the demo moves it through the story,
-	// and the timeline shows it.
-	clock *clocktesting.FakePassiveClock
-	// work holds the demo's files; seed varies the synthetic golden sets.
-	work string
-	seed uint64
+	short   bool
+	start   time.Time
+
+	work, worldPath, models string
+	world                   *World
+	reference               []Parcel
+	sim                     *servingSim
+	exec                    *executor
+	result                  *Result
 	// seen are the events already printed.
 	seen map[types.UID]bool
 }
 
 func (d *player) say(msg string) {
-	fmt.Fprintf(d.out, "[%s] %s\n", d.clock.Now().Format("Mon 15:04"), msg)
+	el := time.Since(d.start).Round(time.Second)
+	fmt.Fprintf(d.out, "[%02d:%02d] %s\n", int(el.Minutes()), int(el.Seconds())%60, msg)
 }
 
 func (d *player) step(n int, title string) {
 	fmt.Fprintf(d.out, "\n== %d. %s\n", n, title)
 }
 
-// story applies the samples and walks through what the controller says.
-func (d *player) story(samples string) error {
-	objs, err := readDir(samples)
+// prepareWorld writes the world's first phase, the reference parcels the
+// monitoring compares against, the model Larkspur trained before adopting
+// plumbline (the Imported version) and its old rules (the fallback).
+func (d *player) prepareWorld() error {
+	now := time.Now()
+	d.world = &World{Seed: uint64(now.UnixNano()), Phases: []Phase{{At: now.Add(-time.Minute), Note: "ordinary weeks at three depots"}}}
+	if err := d.world.Save(d.worldPath); err != nil {
+		return err
+	}
+	d.reference = d.world.Sample(now.Add(-time.Minute), now, 5000, 1)
+	m, err := TrainModel(d.world.Sample(now.Add(-time.Minute), now, 10000, 2))
+	if err != nil {
+		return err
+	}
+	if err := WriteArtifact(d.uri("late-risk-v0"), m); err != nil {
+		return err
+	}
+	return WriteArtifact(d.uri("late-risk-rules"), &Model{Schema: ArtifactSchema, Kind: "rules"})
+}
+
+func (d *player) uri(version string) string {
+	return "file://" + filepath.Join(d.models, version+".json")
+}
+
+func (d *player) phaseNow() Phase { return d.world.PhaseAt(time.Now()) }
+
+// changeWorld starts a new phase now.
+func (d *player) changeWorld(p Phase) error {
+	p.At = time.Now()
+	d.world.Phases = append(d.world.Phases, p)
+	d.say("WORLD: " + p.Note)
+	return d.world.Save(d.worldPath)
+}
+
+// story applies the manifests and walks through what the controller says.
+func (d *player) story() error {
+	objs, err := d.objects()
 	if err != nil {
 		return err
 	}
@@ -185,323 +287,210 @@ func (d *player) story(samples string) error {
 		}
 		return l
 	}
-	lineKey := types.NamespacedName{Namespace: namespace, Name: "late-risk"}
+	lineKey := types.NamespacedName{Namespace: namespace, Name: lineName}
 
-	d.step(1, "Larkspur describes its late-delivery model as a ModelLine, before the scorer is deployed")
-	for _, o := range append(byKind("Namespace"), byKind("ModelLine")...) {
+	d.step(1, "Larkspur's scorer runs its old rules; the ModelLine and the versions are applied")
+	fmt.Fprintln(d.out, "   Time is compressed: trigger and guard windows are 20 seconds (hours, in the")
+	fmt.Fprintln(d.out, "   story). Quality is the ROC AUC of the served scores over the last 2,000 parcels.")
+	for _, o := range append(byKind("Namespace"), byKind("Deployment")...) {
 		if err := d.create(o); err != nil {
 			return err
 		}
 	}
-	if err := d.waitReady(lineKey, metav1.ConditionFalse, v1alpha1.ReasonServingNotFound); err != nil {
-		return err
+	if !d.short {
+		bad := byKind("ModelLine")[0].DeepCopy()
+		bad.SetName("late-risk-typo")
+		if err := setTrigger(bad, "forSeconds", int64(5)); err != nil {
+			return err
+		}
+		if err := d.c.Create(d.ctx, bad); err == nil {
+			return errors.New("the API server accepted a trigger with forSeconds < everySeconds; its CEL rule is missing")
+		} else {
+			d.say("A typo first, a trigger window shorter than its period; kubectl apply would print: " + firstLine(err.Error()))
+		}
 	}
-
-	d.step(2, "A mistake the API server refuses at once: a trigger window shorter than its period")
-	bad := byKind("ModelLine")[0].DeepCopy()
-	bad.SetName("late-risk-typo")
-	if err := setTrigger(bad, "forSeconds", int64(60)); err != nil {
-		return err
-	}
-	switch err := d.c.Create(d.ctx, bad); {
-	case err == nil:
-		return errors.New("the API server accepted a trigger with forSeconds < everySeconds; its CEL rule is missing")
-	default:
-		d.say("kubectl apply would print: " + firstLine(err.Error()))
-	}
-
-	d.step(3, "A mistake only the controller can see: a cron typo (\"Mon-Funday\") in the schedule")
-	if err := d.setCron(lineKey, "30 2 * * Mon-Funday"); err != nil {
-		return err
-	}
-	if err := d.waitReady(lineKey, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec); err != nil {
-		return err
-	}
-	d.say("The controller does not retry an invalid spec in a loop: it waits for the next edit.")
-
-	d.step(4, "The scorer Deployment and the versions arrive, and the schedule is fixed")
-	for _, o := range append(byKind("Deployment"), byKind("ModelVersion")...) {
+	for _, o := range append(byKind("ModelLine"), byKind("ModelVersion")...) {
 		if err := d.create(o); err != nil {
 			return err
 		}
 	}
-	if err := d.setCron(lineKey, "30 2 * * 1"); err != nil {
-		return err
-	}
-	d.say(`fixed spec.schedule.cron to "30 2 * * 1" (Mondays at 02:30, Europe/London)`)
 	if err := d.waitReady(lineKey, metav1.ConditionTrue, v1alpha1.ReasonSpecValid); err != nil {
 		return err
 	}
-	if err := d.waitAdopted(lineKey, len(byKind("ModelVersion"))); err != nil {
-		return err
-	}
-	return d.lifecycle(lineKey)
-}
 
-// lifecycle takes the line through its first promotion, a drop in quality
-// that fires a trigger (first refused on broken data, then retrained and
-// promoted), and a person's retrain that the gate rejects.
-func (d *player) lifecycle(lineKey types.NamespacedName) error {
-	fmt.Fprintln(d.out, "\n   This control plane runs no kubelet and no Job or Deployment controller, so the demo")
-	fmt.Fprintln(d.out, "   plays their part: it finishes Jobs and rollouts the way they would. It also moves the")
-	fmt.Fprintln(d.out, "   controller's clock through the story, and Prometheus answers from the backfilled history.")
-
-	d.step(5, "The imported model becomes the first live version")
-	if err := d.waitPhase("late-risk-v0", v1alpha1.PhasePromoting); err != nil {
+	d.step(2, "The imported model becomes the first live version through a real Deployment rollout")
+	if err := d.waitLive("late-risk-v0"); err != nil {
 		return err
 	}
-	if err := d.act("the scorer Deployment finishes its rollout", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v0", d.timeout)); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v0", v1alpha1.PhaseLive); err != nil {
+	if err := d.pause(12*time.Second, "ordinary traffic: the live model holds its quality"); err != nil {
 		return err
 	}
 
-	d.step(6, "Tuesday 02:00 the new Fenwick depot opens: quality falls, and the address feed breaks for a while")
-	fmt.Fprintln(d.out, "   (the clock moves in quarter-hour steps; triggers and guard are judged on Prometheus at each)")
-	started, err := d.fastForward(lineKey, storyStart.Add(30*time.Minute), time.Date(2026, 11, 3, 12, 0, 0, 0, time.UTC), func() (bool, error) {
-		var v v1alpha1.ModelVersion
-		err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-v1"}, &v)
-		return err == nil, client.IgnoreNotFound(err)
-	})
-	if err != nil {
+	d.step(3, "The new Fenwick depot opens, and the same day the address feed breaks")
+	if err := d.changeWorld(Phase{Fenwick: true, FeedBroken: true,
+		Note: "the Fenwick depot opens (40% of parcels, rural routes) and the address feed loses 30% of addresses"}); err != nil {
 		return err
 	}
-	if !started {
-		return fmt.Errorf("the auc-drop trigger started no retrain by Tuesday noon")
-	}
-	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseTraining); err != nil {
-		return err
-	}
-	d.clock.SetTime(time.Date(2026, 11, 3, 12, 40, 0, 0, time.UTC))
-	if err := d.act("training Job late-risk-v1-train completes", standin.SucceedJob(d.ctx, d.c, namespace, "late-risk-v1-train", "")); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseEvaluating); err != nil {
-		return err
-	}
-	d.clock.SetTime(time.Date(2026, 11, 3, 13, 10, 0, 0, time.UTC))
-	if err := d.evaluateGate("late-risk-v1", "the candidate is better everywhere", false); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v1", v1alpha1.PhasePromoting); err != nil {
-		return err
-	}
-	d.clock.SetTime(time.Date(2026, 11, 3, 13, 20, 0, 0, time.UTC))
-	if err := d.act("the scorer Deployment rolls out late-risk-v1", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v1", d.timeout)); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseLive); err != nil {
-		return err
-	}
-
-	d.step(7, "Wednesday morning: an engineer asks for a retrain; the gate rejects it")
-	if _, err := d.fastForward(lineKey, time.Date(2026, 11, 4, 10, 0, 0, 0, time.UTC), time.Date(2026, 11, 4, 10, 0, 0, 0, time.UTC), nil); err != nil {
-		return err
-	}
-	if err := d.retrain(lineKey, "weekly-review-45", "late-risk-v2", time.Date(2026, 11, 4, 10, 40, 0, 0, time.UTC),
-		"the candidate misses late parcels at the harbour depot", true); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v2", v1alpha1.PhaseRejected); err != nil {
-		return err
-	}
-
-	d.step(8, "Wednesday noon: another candidate passes the gate, goes live, and does badly in production")
-	if err := d.retrain(lineKey, "weekly-review-45b", "late-risk-v3", time.Date(2026, 11, 4, 11, 50, 0, 0, time.UTC),
-		"the candidate is better everywhere", false); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v3", v1alpha1.PhasePromoting); err != nil {
-		return err
-	}
-	d.clock.SetTime(time.Date(2026, 11, 4, 12, 0, 0, 0, time.UTC))
-	if err := d.act("the scorer Deployment rolls out late-risk-v3", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v3", d.timeout)); err != nil {
-		return err
-	}
-	if err := d.waitPhase("late-risk-v3", v1alpha1.PhaseLive); err != nil {
-		return err
-	}
-	fmt.Fprintln(d.out, "   (the guard watches the hourly ROC AUC: below 0.76 for 30 minutes within 12 hours of the promotion rolls back)")
-	rolling, err := d.fastForward(lineKey, time.Date(2026, 11, 4, 12, 15, 0, 0, time.UTC), time.Date(2026, 11, 4, 14, 0, 0, 0, time.UTC), func() (bool, error) {
-		var v v1alpha1.ModelVersion
-		if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-v1"}, &v); err != nil {
+	if err := d.wait("a retrain refused on broken data", func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
 			return false, err
 		}
-		return v.Status.Phase == v1alpha1.PhasePromoting, nil
-	})
+		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionBlocked)
+		if c == nil || c.Status != metav1.ConditionTrue || c.Reason != "DataQualityIssue" {
+			return false, nil
+		}
+		d.result.Blocked = true
+		d.say("ModelLine late-risk is Blocked (DataQualityIssue): " + c.Message)
+		return true, nil
+	}); err != nil {
+		return err
+	}
+	if err := d.pause(10*time.Second, "no retrain while the feed is broken, though the trigger keeps firing"); err != nil {
+		return err
+	}
+
+	d.step(4, "The address feed is fixed: the trigger still fires, the checks pass, a retrain runs")
+	if err := d.changeWorld(Phase{Fenwick: true, Note: "the address feed is fixed"}); err != nil {
+		return err
+	}
+	if err := d.waitLive("late-risk-v1"); err != nil {
+		return err
+	}
+	if err := d.pause(8*time.Second, "the retrained model knows Fenwick: quality recovers"); err != nil {
+		return err
+	}
+	if err := d.probationEnds(lineKey); err != nil {
+		return err
+	}
+
+	d.step(5, "The pre-holiday peak: heavy parcels everywhere; quality falls again and a retrain learns the peak")
+	if err := d.changeWorld(Phase{Fenwick: true, Peak: true, Note: "the pre-holiday peak starts: heavy parcels, vans fill up, town routes jam"}); err != nil {
+		return err
+	}
+	peakVersion, err := d.waitNewLive(lineKey, "late-risk-v1")
 	if err != nil {
 		return err
 	}
-	if !rolling {
-		return fmt.Errorf("the guard did not roll late-risk-v3 back")
-	}
-	if err := d.act("the scorer Deployment rolls back to late-risk-v1", standin.RollOutVersion(d.ctx, d.c, namespace, scorer, "late-risk-v1", d.timeout)); err != nil {
+
+	d.step(6, "The peak ends the day "+peakVersion+" goes live: it regresses in production and the guard rolls it back")
+	if err := d.changeWorld(Phase{Fenwick: true, Note: "the peak ends: ordinary traffic again"}); err != nil {
 		return err
 	}
-	if err := d.waitPhase("late-risk-v1", v1alpha1.PhaseLive); err != nil {
-		return err
-	}
-	// The line's own status follows its versions'.
-	return d.wait("the line to say it fell back", func() (bool, error) {
+	if err := d.wait("the guard to roll "+peakVersion+" back to late-risk-v1", func() (bool, error) {
 		var line v1alpha1.ModelLine
 		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
 			return false, err
 		}
 		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionFallbackActive)
-		return c != nil && c.Status == metav1.ConditionTrue && line.Status.LiveVersion == "late-risk-v1", nil
-	})
-}
-
-// retrain asks for a retrain with a token and plays its training and
-// evaluation, the Jobs finishing at the given time; the evaluation runs
-// plumbline evaluate on a synthetic golden set.
-func (d *player) retrain(key types.NamespacedName, token, version string, at time.Time, what string, harbourDrop bool) error {
-	if err := d.annotate(key, token); err != nil {
-		return err
-	}
-	if err := d.waitPhase(version, v1alpha1.PhaseTraining); err != nil {
-		return err
-	}
-	d.clock.SetTime(at)
-	if err := d.act("training Job "+version+"-train completes", standin.SucceedJob(d.ctx, d.c, namespace, version+"-train", "")); err != nil {
-		return err
-	}
-	if err := d.waitPhase(version, v1alpha1.PhaseEvaluating); err != nil {
-		return err
-	}
-	d.clock.SetTime(at.Add(5 * time.Minute))
-	return d.evaluateGate(version, what, harbourDrop)
-}
-
-// evaluateGate plays the version's evaluation Job: the scorer's predictions
-// on the golden set are synthetic; plumbline evaluate, the Job's last
-// container, runs for real on them.
-func (d *player) evaluateGate(version, what string, harbourDrop bool) error {
-	predictions := filepath.Join(d.work, version+"-predictions.parquet")
-	d.seed++
-	if err := writePredictions(predictions, d.seed, harbourDrop); err != nil {
-		return fmt.Errorf("write synthetic predictions: %w", err)
-	}
-	var table string
-	err := standin.RunLastContainer(d.ctx, d.c, namespace, version+"-gate", func(args []string, env map[string]string) (string, error) {
-		msg, out, err := evaluateWith(d.work, predictions, args, env)
-		table = out
-		return msg, err
-	})
-	if err != nil {
-		return err
-	}
-	d.say(fmt.Sprintf("(stand-in) evaluation Job %s-gate ran plumbline evaluate on a synthetic golden set (%s):", version, what))
-	for _, l := range strings.Split(strings.TrimSpace(table), "\n") {
-		if strings.Contains(l, "roc_auc") || strings.Contains(l, "recall") || strings.Contains(l, "log_loss") || strings.HasPrefix(l, "SEGMENT") || strings.HasPrefix(l, "must-pass") {
-			fmt.Fprintln(d.out, "      "+l)
+		if c == nil || c.Status != metav1.ConditionTrue || line.Status.LiveVersion != "late-risk-v1" {
+			return false, nil
 		}
-	}
-	return nil
-}
-
-// fastForward moves the controller's clock from one time to another in
-// quarter-hour steps, waking the line at each and waiting until it has
-// judged its triggers and guard there; it stops early when done says so.
-func (d *player) fastForward(key types.NamespacedName, from, to time.Time, done func() (bool, error)) (bool, error) {
-	for t := from; !t.After(to); t = t.Add(15 * time.Minute) {
-		before := evaluations(key)
-		d.clock.SetTime(t)
-		patch := fmt.Sprintf(`{"metadata":{"annotations":{"demo.plumbline.dev/clock":%q}}}`, t.Format(time.RFC3339))
-		line := &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: key.Namespace, Name: key.Name}}
-		if err := d.c.Patch(d.ctx, line, client.RawPatch(types.MergePatchType, []byte(patch))); err != nil {
-			return false, fmt.Errorf("wake the line: %w", err)
-		}
-		err := d.wait("the triggers to be judged at "+t.Format("Mon 15:04"), func() (bool, error) {
-			return evaluations(key) > before, nil
-		})
-		if err != nil {
+		var v v1alpha1.ModelVersion
+		if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-v1"}, &v); err != nil {
 			return false, err
 		}
-		if done != nil {
-			ok, err := done()
-			if err != nil || ok {
-				return ok, err
-			}
+		if v.Status.Phase != v1alpha1.PhaseLive {
+			return false, nil
 		}
-	}
-	return false, d.printEvents()
-}
-
-// evaluations counts the line's trigger and guard evaluations, from the
-// manager's metrics (the manager runs in this process).
-func evaluations(key types.NamespacedName) float64 {
-	families, err := ctrlmetrics.Registry.Gather()
-	if err != nil {
-		return 0
-	}
-	sum := 0.0
-	for _, f := range families {
-		if f.GetName() != "plumbline_trigger_evaluations_total" && f.GetName() != "plumbline_guard_evaluations_total" {
-			continue
-		}
-		for _, m := range f.GetMetric() {
-			ns, line := "", ""
-			for _, l := range m.GetLabel() {
-				switch l.GetName() {
-				case "namespace":
-					ns = l.GetValue()
-				case "line":
-					line = l.GetValue()
-				}
-			}
-			if ns == key.Namespace && line == key.Name {
-				sum += m.GetCounter().GetValue()
-			}
-		}
-	}
-	return sum
-}
-
-const scorer = "late-risk-scorer"
-
-func (d *player) act(what string, err error) error {
-	if err != nil {
+		d.result.RolledBack = append(d.result.RolledBack, peakVersion)
+		d.result.Promoted = append(d.result.Promoted, "late-risk-v1")
+		d.say(fmt.Sprintf("ModelLine late-risk: FallbackActive=True (%s), live version %s again after a completed rollout", c.Reason, line.Status.LiveVersion))
+		return true, nil
+	}); err != nil {
 		return err
 	}
-	d.say("(stand-in) " + what)
-	return nil
+	return d.pause(8*time.Second, "quality is back with late-risk-v1")
 }
 
-func (d *player) annotate(key types.NamespacedName, token string) error {
-	patch := fmt.Sprintf(`{"metadata":{"annotations":{%q:%q}}}`, v1alpha1.RetrainRequestAnnotation, token)
-	line := &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: key.Namespace, Name: key.Name}}
-	if err := d.c.Patch(d.ctx, line, client.RawPatch(types.MergePatchType, []byte(patch))); err != nil {
-		return fmt.Errorf("annotate line: %w", err)
+// objects renders the demo's manifests for this run's files.
+func (d *player) objects() ([]*unstructured.Unstructured, error) {
+	tmpl, err := template.New("larkspur").Delims("[[", "]]").Parse(manifests)
+	if err != nil {
+		return nil, fmt.Errorf("demo manifests: %w", err)
 	}
-	d.say(fmt.Sprintf("kubectl annotate modelline %s %s=%s", key.Name, v1alpha1.RetrainRequestAnnotation, token))
+	var buf bytes.Buffer
+	if err := tmpl.Execute(&buf, map[string]string{"Models": d.models, "World": d.worldPath}); err != nil {
+		return nil, fmt.Errorf("demo manifests: %w", err)
+	}
+	dec := utilyaml.NewYAMLOrJSONDecoder(&buf, 4096)
+	var objs []*unstructured.Unstructured
+	for {
+		var m map[string]any
+		if err := dec.Decode(&m); err != nil {
+			if errors.Is(err, io.EOF) {
+				return objs, nil
+			}
+			return nil, fmt.Errorf("demo manifests: %w", err)
+		}
+		if len(m) > 0 {
+			objs = append(objs, &unstructured.Unstructured{Object: m})
+		}
+	}
+}
+
+// pause lets the story breathe so a watcher can read along; the CI test
+// skips it.
+func (d *player) pause(p time.Duration, what string) error {
+	if d.short {
+		p /= 3
+	}
+	end := time.Now().Add(p)
+	if err := d.wait(what, func() (bool, error) { return time.Now().After(end), nil }); err != nil {
+		return err
+	}
+	d.say(fmt.Sprintf("%s (ROC AUC over the last 2,000 parcels: %.3f)", what, d.sim.currentAUC()))
 	return nil
 }
 
-// waitPhase prints events until a version reaches a phase.
-func (d *player) waitPhase(name string, phase v1alpha1.VersionPhase) error {
-	return d.wait(fmt.Sprintf("version %s to be %s", name, phase), func() (bool, error) {
+// probationEnds waits until the live version's probation is over: from
+// then on the guard only reports a regression (Degraded) and never rolls
+// back by itself.
+func (d *player) probationEnds(key types.NamespacedName) error {
+	var line v1alpha1.ModelLine
+	if err := d.c.Get(d.ctx, key, &line); err != nil {
+		return fmt.Errorf("get line: %w", err)
+	}
+	if line.Spec.Guard == nil || line.Status.LastPromotionTime == nil {
+		return nil
+	}
+	end := line.Status.LastPromotionTime.Add(time.Duration(line.Spec.Guard.ProbationSeconds) * time.Second)
+	d.say(fmt.Sprintf("waiting for %s's probation (spec.guard.probationSeconds: %ds) to end at %s",
+		line.Status.LiveVersion, line.Spec.Guard.ProbationSeconds, end.Format("15:04:05")))
+	return d.wait("the probation to end", func() (bool, error) { return time.Now().After(end.Add(time.Second)), nil })
+}
+
+// waitNewLive waits until the line's live version is another than old,
+// and returns it. (A candidate may be rejected by the gate first; the
+// trigger then retrains again after the cooldown.)
+func (d *player) waitNewLive(key types.NamespacedName, old string) (string, error) {
+	var live string
+	if err := d.wait("a version newer than "+old+" to go live", func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, key, &line); err != nil {
+			return false, err
+		}
+		live = line.Status.LiveVersion
+		return live != "" && live != old, nil
+	}); err != nil {
+		return "", err
+	}
+	return live, d.waitLive(live)
+}
+
+// waitLive waits until a version is Live after a completed rollout.
+func (d *player) waitLive(name string) error {
+	if err := d.wait(fmt.Sprintf("version %s to be Live", name), func() (bool, error) {
 		var v v1alpha1.ModelVersion
 		if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: name}, &v); err != nil {
 			return false, client.IgnoreNotFound(err)
 		}
-		if v.Status.Phase != phase {
-			return false, nil
-		}
-		d.say(fmt.Sprintf("ModelVersion %s is now %s: %s", name, phase, v.Status.Message))
-		return true, nil
-	})
-}
-
-// setCron edits the line's schedule with a merge patch, as kubectl edit
-// would, so it does not race the controller's status writes.
-func (d *player) setCron(key types.NamespacedName, cron string) error {
-	patch := fmt.Sprintf(`{"spec":{"schedule":{"cron":%q}}}`, cron)
-	line := &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: key.Namespace, Name: key.Name}}
-	if err := d.c.Patch(d.ctx, line, client.RawPatch(types.MergePatchType, []byte(patch))); err != nil {
-		return fmt.Errorf("edit spec.schedule.cron: %w", err)
+		return v.Status.Phase == v1alpha1.PhaseLive, nil
+	}); err != nil {
+		return err
 	}
+	d.result.Promoted = append(d.result.Promoted, name)
+	d.say(fmt.Sprintf("ModelVersion %s is Live: the scorer Deployment finished rolling it out", name))
 	return nil
 }
 
@@ -524,28 +513,7 @@ func (d *player) waitReady(key types.NamespacedName, status metav1.ConditionStat
 		if c == nil || c.Status != status || c.Reason != reason {
 			return false, nil
 		}
-		d.say(fmt.Sprintf("ModelLine %s is now Ready=%s (%s)", key.Name, c.Status, c.Reason))
-		return true, nil
-	})
-}
-
-// waitAdopted waits until n versions belong to the line.
-func (d *player) waitAdopted(key types.NamespacedName, n int) error {
-	return d.wait(fmt.Sprintf("%d versions to be adopted by %s", n, key.Name), func() (bool, error) {
-		var vs v1alpha1.ModelVersionList
-		if err := d.c.List(d.ctx, &vs, client.InNamespace(key.Namespace)); err != nil {
-			return false, err
-		}
-		adopted := 0
-		for _, v := range vs.Items {
-			if ref := metav1.GetControllerOf(&v); ref != nil && ref.Name == key.Name && v.Status.Phase != "" {
-				adopted++
-			}
-		}
-		if adopted < n {
-			return false, nil
-		}
-		d.say(fmt.Sprintf("%d versions belong to line %s (deleting the line deletes them)", adopted, key.Name))
+		d.say(fmt.Sprintf("ModelLine %s is Ready=%s (%s)", key.Name, c.Status, c.Reason))
 		return true, nil
 	})
 }
@@ -571,9 +539,34 @@ func (d *player) wait(what string, done func() (bool, error)) error {
 		select {
 		case <-d.ctx.Done():
 			return fmt.Errorf("interrupted while waiting for %s", what)
-		case <-time.After(200 * time.Millisecond):
+		case <-time.After(250 * time.Millisecond):
 		}
 	}
+}
+
+// shown says whether the timeline shows an event: everything plumbline says
+// about its resources, and the Job and Deployment controllers' words about
+// the demo's Jobs and the scorer's rollouts.
+func shown(e *eventsv1.Event) bool {
+	switch e.Regarding.Kind {
+	case "ModelLine", "ModelVersion":
+		return true
+	case "Job":
+		return e.Reason == "Completed" || e.Reason == "BackoffLimitExceeded" || e.Reason == "DeadlineExceeded"
+	case "Deployment":
+		return e.Reason == "ScalingReplicaSet"
+	}
+	return false
+}
+
+func eventTime(e *eventsv1.Event) time.Time {
+	switch {
+	case !e.EventTime.IsZero():
+		return e.EventTime.Time
+	case !e.DeprecatedLastTimestamp.IsZero():
+		return e.DeprecatedLastTimestamp.Time
+	}
+	return e.CreationTimestamp.Time
 }
 
 // printEvents prints the namespace's events not printed yet, oldest first.
@@ -582,167 +575,47 @@ func (d *player) printEvents() error {
 	if err := d.c.List(d.ctx, &list, client.InNamespace(namespace)); err != nil {
 		return fmt.Errorf("list events: %w", err)
 	}
-	sort.Slice(list.Items, func(i, j int) bool {
-		return list.Items[i].EventTime.Before(&list.Items[j].EventTime)
-	})
-	for _, e := range list.Items {
+	sort.SliceStable(list.Items, func(i, j int) bool { return eventTime(&list.Items[i]).Before(eventTime(&list.Items[j])) })
+	for i := range list.Items {
+		e := &list.Items[i]
 		if d.seen[e.UID] {
 			continue
 		}
 		d.seen[e.UID] = true
-		d.say(fmt.Sprintf("event %s %s %s/%s: %s", e.Type, e.Reason, e.Regarding.Kind, e.Regarding.Name, e.Note))
-	}
-	return nil
-}
-
-// summary prints the lines and versions as kubectl would, and the line's
-// condition metrics as Prometheus would scrape them.
-func (d *player) summary(metricsAddr string) error {
-	if err := d.printEvents(); err != nil {
-		return err
-	}
-	fmt.Fprintf(d.out, "\n== Summary\n\n")
-	var lines v1alpha1.ModelLineList
-	if err := d.c.List(d.ctx, &lines, client.InNamespace(namespace)); err != nil {
-		return fmt.Errorf("list lines: %w", err)
-	}
-	tw := tabwriter.NewWriter(d.out, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "MODELLINE\tREADY\tLIVE\tPREVIOUS\tFALLBACK\tLAST RETRAIN OUTCOME")
-	for _, l := range lines.Items {
-		cond := func(typ string, reason bool) string {
-			c := meta.FindStatusCondition(l.Status.Conditions, typ)
-			switch {
-			case c == nil:
-				return "-"
-			case reason:
-				return c.Reason
-			}
-			return string(c.Status)
-		}
-		fallback := cond(v1alpha1.ConditionFallbackActive, false)
-		if fallback == "True" {
-			fallback += " (" + cond(v1alpha1.ConditionFallbackActive, true) + ")"
-		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, cond(v1alpha1.ConditionReady, false), orDash(l.Status.LiveVersion),
-			orDash(l.Status.PreviousVersion), fallback, cond(v1alpha1.ConditionRetraining, true))
-	}
-	fmt.Fprintln(tw)
-	var versions v1alpha1.ModelVersionList
-	if err := d.c.List(d.ctx, &versions, client.InNamespace(namespace)); err != nil {
-		return fmt.Errorf("list versions: %w", err)
-	}
-	fmt.Fprintln(tw, "MODELVERSION\tSOURCE\tREASON\tPHASE\tGATE\tARTIFACT")
-	for _, v := range versions.Items {
-		verdict := "-"
-		if v.Status.Gate != nil {
-			verdict = string(v.Status.Gate.Verdict)
-		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\n", v.Name, v.Spec.Source, orDash(v.Spec.Reason), v.Status.Phase, verdict, v.Spec.ArtifactURI)
-	}
-	if err := tw.Flush(); err != nil {
-		return err
-	}
-	var dep appsv1.Deployment
-	if err := d.c.Get(d.ctx, types.NamespacedName{Namespace: namespace, Name: "late-risk-scorer"}, &dep); err == nil {
-		fmt.Fprintf(d.out, "\nThe scorer Deployment serves %s (%s=%s).\n", modelURI(&dep), v1alpha1.VersionAnnotation, dep.Spec.Template.Annotations[v1alpha1.VersionAnnotation])
-	}
-
-	metrics, err := scrape(d.ctx, "http://"+metricsAddr+"/metrics", "plumbline_line_condition", "plumbline_live_version_info",
-		"plumbline_gate_decisions_total", "plumbline_promotions_total", "plumbline_rollbacks_total", "plumbline_trigger_state", "plumbline_retrain_decisions_total")
-	if err != nil {
-		return err
-	}
-	fmt.Fprintf(d.out, "\nWhat Prometheus would scrape from the manager:\n%s\n", metrics)
-	fmt.Fprintln(d.out, "\nThe gate reports above were computed by plumbline evaluate from synthetic golden-set")
-	fmt.Fprintln(d.out, "predictions; training itself is played by the demo (no model is trained here).")
-	return nil
-}
-
-func modelURI(dep *appsv1.Deployment) string {
-	for _, c := range dep.Spec.Template.Spec.Containers {
-		for _, e := range c.Env {
-			if e.Name == "MODEL_URI" {
-				return e.Value
-			}
-		}
-	}
-	return "no model"
-}
-
-// scrape fetches a metrics page and keeps the demo line's series of some
-// metrics.
-func scrape(ctx context.Context, url string, metrics ...string) (string, error) {
-	req, err := http.NewRequestWithContext(ctx, http.MethodGet, url, nil)
-	if err != nil {
-		return "", err
-	}
-	resp, err := http.DefaultClient.Do(req)
-	if err != nil {
-		return "", fmt.Errorf("scrape manager metrics: %w", err)
-	}
-	defer resp.Body.Close()
-	body, err := io.ReadAll(resp.Body)
-	if err != nil {
-		return "", fmt.Errorf("read manager metrics: %w", err)
-	}
-	var keep []string
-	for _, m := range metrics {
-		found := false
-		for _, l := range strings.Split(string(body), "\n") {
-			if m == "plumbline_trigger_state" && strings.HasSuffix(l, " 0") {
-				continue // one-hot: show the state each trigger is in
-			}
-			if strings.HasPrefix(l, m+"{") && strings.Contains(l, `namespace="`+namespace+`"`) {
-				keep = append(keep, "    "+l)
-				found = true
-			}
-		}
-		if !found {
-			return "", fmt.Errorf("the manager exports no %s series", m)
-		}
-	}
-	sort.Strings(keep)
-	return strings.Join(keep, "\n"), nil
-}
-
-// readDir reads every manifest in a directory except the kustomization.
-func readDir(dir string) ([]*unstructured.Unstructured, error) {
-	entries, err := os.ReadDir(dir)
-	if err != nil {
-		return nil, fmt.Errorf("read samples: %w", err)
-	}
-	var objs []*unstructured.Unstructured
-	for _, e := range entries {
-		if e.IsDir() || !strings.HasSuffix(e.Name(), ".yaml") || e.Name() == "kustomization.yaml" {
+		if !shown(e) {
 			continue
 		}
-		f, err := os.Open(filepath.Join(dir, e.Name()))
-		if err != nil {
-			return nil, err
+		d.say(fmt.Sprintf("event %s %s %s/%s: %s", e.Type, e.Reason, e.Regarding.Kind, e.Regarding.Name, e.Note))
+		if e.Reason == "GatePassed" || e.Reason == "GateFailed" {
+			d.printGateTable(e.Regarding.Name)
 		}
-		dec := utilyaml.NewYAMLOrJSONDecoder(f, 4096)
-		for {
-			var m map[string]any
-			if err := dec.Decode(&m); err != nil {
-				if errors.Is(err, io.EOF) {
-					break
-				}
-				f.Close()
-				return nil, fmt.Errorf("%s: %w", e.Name(), err)
-			}
-			if len(m) > 0 {
-				objs = append(objs, &unstructured.Unstructured{Object: m})
-			}
-		}
-		f.Close()
 	}
-	return objs, nil
+	return nil
+}
+
+// printGateTable shows the lines of plumbline evaluate's table that the
+// gate judged, from the evaluation pod's log.
+func (d *player) printGateTable(version string) {
+	logs, _ := filepath.Glob(filepath.Join(d.exec.dir, version+"-gate-*", "evaluate.log"))
+	if len(logs) == 0 {
+		return
+	}
+	sort.Strings(logs)
+	b, err := os.ReadFile(logs[len(logs)-1])
+	if err != nil {
+		return
+	}
+	for _, l := range strings.Split(string(b), "\n") {
+		if strings.Contains(l, "roc_auc") || strings.HasPrefix(strings.TrimSpace(l), "SEGMENT") {
+			fmt.Fprintln(d.out, "        "+l)
+		}
+	}
 }
 
 func setTrigger(o *unstructured.Unstructured, field string, v any) error {
 	triggers, _, err := unstructured.NestedSlice(o.Object, "spec", "triggers")
 	if err != nil || len(triggers) == 0 {
-		return fmt.Errorf("sample line has no triggers")
+		return fmt.Errorf("demo line has no triggers")
 	}
 	triggers[0].(map[string]any)[field] = v
 	return unstructured.SetNestedSlice(o.Object, triggers, "spec", "triggers")
@@ -760,13 +633,4 @@ func firstLine(s string) string {
 		return s[:i]
 	}
 	return s
-}
-
-func freeLoopbackAddr() (string, error) {
-	l, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		return "", fmt.Errorf("find a free port: %w", err)
-	}
-	defer l.Close()
-	return l.Addr().String(), nil
 }

@@ -5,19 +5,23 @@ import (
 	"context"
 	"errors"
 	"os"
+	"os/exec"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
 
 	"plumbline.dev/plumbline/internal/controlplane"
+	"plumbline.dev/plumbline/internal/simcluster"
 )
 
-// The demo runs start to end on a real control plane and tells the story it
-// promises. It is the CI check of the README's first command.
+// The demo runs start to end on the simulated cluster and tells the story
+// it promises. It is the CI check of the README's first command, shortened
+// (no opening mistakes, shorter pauses).
 func TestDemoRuns(t *testing.T) {
 	if testing.Short() {
-		t.Skip("needs a control plane")
+		t.Skip("needs the simulated cluster")
 	}
 	root, err := filepath.Abs("../..")
 	if err != nil {
@@ -27,55 +31,71 @@ func TestDemoRuns(t *testing.T) {
 	if assets == "" {
 		assets = filepath.Join(root, "bin", "k8s")
 	}
+	// The Jobs run the plumbline binary, as in make demo.
+	bin := filepath.Join(t.TempDir(), "plumbline")
+	build := exec.Command("go", "build", "-o", bin, ".")
+	build.Dir = root
+	if out, err := build.CombinedOutput(); err != nil {
+		t.Fatalf("build plumbline: %v\n%s", err, out)
+	}
 	var out bytes.Buffer
-	ctx, cancel := context.WithTimeout(context.Background(), 3*time.Minute)
+	ctx, cancel := context.WithTimeout(context.Background(), 12*time.Minute)
 	defer cancel()
-	err = Run(ctx, Options{
-		CRDDir:     filepath.Join(root, "config", "crd", "bases"),
-		SamplesDir: filepath.Join(root, "config", "samples"),
-		AssetsDir:  assets,
-		WorkDir:    t.TempDir(),
+	res, err := Run(ctx, Options{
+		CRDDir:    filepath.Join(root, "config", "crd", "bases"),
+		AssetsDir: assets,
+		WorkDir:   t.TempDir(),
+		Binary:    bin,
+		Short:     true,
 	}, &out)
-	if errors.Is(err, controlplane.ErrNoBinaries) && os.Getenv("PLUMBLINE_REQUIRE_ENVTEST") == "" {
+	if (errors.Is(err, simcluster.ErrNoBinaries) || errors.Is(err, controlplane.ErrNoBinaries)) && os.Getenv("PLUMBLINE_REQUIRE_SIMCLUSTER") == "" {
 		t.Skip(err)
 	}
 	if err != nil {
 		t.Fatalf("demo failed: %v\n%s", err, out.String())
 	}
+	if !res.Blocked {
+		t.Error("no retrain was refused on broken data")
+	}
+	wantPromoted := []string{"late-risk-v0", "late-risk-v1", "late-risk-v2", "late-risk-v1"}
+	if !slices.Equal(res.Promoted, wantPromoted) {
+		t.Errorf("went live after completed rollouts: %v, want %v", res.Promoted, wantPromoted)
+	}
+	if !slices.Equal(res.RolledBack, []string{"late-risk-v2"}) {
+		t.Errorf("rolled back %v, want [late-risk-v2]", res.RolledBack)
+	}
+	if res.Live != "late-risk-v1" {
+		t.Errorf("live version at the end %q, want late-risk-v1", res.Live)
+	}
+	for _, j := range []string{"late-risk-v1/train", "late-risk-v1/gate", "late-risk-v2/train", "late-risk-v2/gate"} {
+		if res.Jobs[j] != 1 {
+			t.Errorf("%d Jobs for %s, want exactly 1", res.Jobs[j], j)
+		}
+	}
+	for j, n := range res.Jobs {
+		if n > 1 {
+			t.Errorf("%d Jobs for %s: duplicates", n, j)
+		}
+	}
+	for _, j := range []string{"late-risk-v1-train", "late-risk-v1-gate", "late-risk-v2-train", "late-risk-v2-gate"} {
+		if res.PodRuns[j] < 1 {
+			t.Errorf("the executor ran no pod of Job %s", j)
+		}
+	}
+	for _, v := range []string{"late-risk-v0", "late-risk-v1", "late-risk-v2"} {
+		if res.ServedBy[v] == 0 {
+			t.Errorf("version %s scored no parcels: its rollout never served", v)
+		}
+	}
 	for _, want := range []string{
 		"fictional courier", "synthetic",
 		"export KUBECONFIG=",
-		"Ready=False (ServingNotFound)",
-		"spec.triggers[0]: Invalid value: forSeconds must be at least everySeconds",
-		"event Warning InvalidSpec ModelLine/late-risk: spec.schedule.cron:",
-		"Ready=True (SpecValid)",
-		"2 versions belong to line late-risk",
-		"ModelVersion late-risk-v0 is now Live",
-		"trigger auc-drop is Pending: below 0.78 since 2026-11-03T02:",
-		"event Warning TriggerFiring ModelLine/late-risk: trigger auc-drop is Firing",
-		"event Warning RetrainBlocked ModelLine/late-risk: retrain for Trigger/auc-drop: data-quality check address-missing is 0.22",
-		"event Normal RetrainStarted ModelLine/late-risk: Trigger/auc-drop: created version late-risk-v1",
-		"ModelVersion late-risk-v1 is now Live",
-		"trigger auc-drop is Inactive: latest value 0.83",
-		"event Normal RetrainStarted ModelLine/late-risk: Manual: created version late-risk-v2",
-		"event Normal Archived ModelVersion/late-risk-v0: replaced by late-risk-v1",
-		`event Warning GateFailed ModelLine/late-risk: version late-risk-v2 rejected, live version unchanged`,
-		`recall/segment "harbour": lower bound of the change in recall`,
-		"evaluation Job late-risk-v1-gate ran plumbline evaluate on a synthetic golden set",
-		"ModelVersion late-risk-v2 is now Rejected",
-		"event Warning Degraded ModelLine/late-risk: late-risk-v0 regressed in production",
-		"so nothing is rolled back automatically",
-		"event Warning GuardFiring ModelLine/late-risk: guard on late-risk-v3 is Firing",
-		"event Warning RollingBack ModelLine/late-risk: late-risk-v3 regressed in production",
-		"event Warning RolledBack ModelLine/late-risk: version late-risk-v1 serves again in place of late-risk-v3, which regressed",
-		"late-risk  True   late-risk-v1  late-risk-v3  True (RolledBack)",
-		"late-risk-v1     Trained    Trigger/auc-drop  Live      Passed",
-		"late-risk-v3     Trained    Manual            Archived  Passed",
-		`plumbline_rollbacks_total{line="late-risk",namespace="larkspur",target="previous"} 1`,
-		"(plumbline.dev/version=late-risk-v1)",
-		`plumbline_line_condition{condition="Ready",line="late-risk",namespace="larkspur"} 1`,
-		`plumbline_live_version_info{line="late-risk",namespace="larkspur",source="Trained",version="late-risk-v1"} 1`,
-		"Stopping the manager and the control plane.",
+		"event Normal ScalingReplicaSet Deployment/late-risk-scorer",
+		"Blocked (DataQualityIssue)",
+		"address-missing",
+		"event Normal Completed Job/late-risk-v1-train",
+		"late-risk  True   late-risk-v1",
+		"Stopping the manager, Prometheus and the cluster.",
 	} {
 		if !strings.Contains(out.String(), want) {
 			t.Errorf("demo output lacks %q", want)

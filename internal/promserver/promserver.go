@@ -50,6 +50,22 @@ type Server struct {
 // Start writes the history into a new TSDB under dir and starts a server on
 // a free loopback port.
 func Start(dir string, history []Series) (*Server, error) {
+	return start(dir, history, "global:\n  scrape_interval: 1m\n")
+}
+
+// StartScraping starts a server under dir that scrapes targets (host:port
+// of /metrics endpoints) every interval, with no history before.
+func StartScraping(dir string, interval time.Duration, targets ...string) (*Server, error) {
+	var b strings.Builder
+	fmt.Fprintf(&b, "global:\n  scrape_interval: %s\n  scrape_timeout: %s\nscrape_configs:\n  - job_name: demo\n    static_configs:\n      - targets:\n",
+		interval, interval)
+	for _, t := range targets {
+		fmt.Fprintf(&b, "          - %q\n", t)
+	}
+	return start(dir, nil, b.String())
+}
+
+func start(dir string, history []Series, config string) (*Server, error) {
 	_, err1 := exec.LookPath("prometheus")
 	_, err2 := exec.LookPath("promtool")
 	if err1 != nil || err2 != nil {
@@ -64,7 +80,7 @@ func Start(dir string, history []Series) (*Server, error) {
 			return nil, err
 		}
 	}
-	if err := os.WriteFile(filepath.Join(dir, "prometheus.yml"), []byte("global:\n  scrape_interval: 1m\n"), 0o644); err != nil {
+	if err := os.WriteFile(filepath.Join(dir, "prometheus.yml"), []byte(config), 0o644); err != nil {
 		return nil, err
 	}
 	addr, err := freePort()

@@ -100,7 +100,9 @@ func Start(ctx context.Context, o Options) (*Cluster, error) {
 		// demo does not need: pods here run no code that calls the API.
 		{"kube-controller-manager", append(auth, "--controllers=*,-serviceaccount-token")},
 		{"kube-scheduler", auth},
-		{"kwok", []string{"--kubeconfig=" + kc, "--manage-all-nodes=true", "--config=" + stagesPath}},
+		// kwok renews each node's lease, as a kubelet does, so the node
+		// lifecycle controller keeps the nodes (and their pods) Ready.
+		{"kwok", []string{"--kubeconfig=" + kc, "--manage-all-nodes=true", "--config=" + stagesPath, "--node-lease-duration-seconds=40"}},
 	}
 	for _, comp := range components {
 		if err := c.run(o, comp.name, comp.args); err != nil {

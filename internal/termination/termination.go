@@ -18,9 +18,18 @@ const DefaultFile = "/dev/termination-log"
 // MaxBytes is the most a termination message holds.
 const MaxBytes = 4096
 
-// Default is DefaultFile when it exists (in a container), else "" (at a
-// terminal, where no compact report is wanted unless asked for).
+// FileEnv names an environment variable that, when set, says where the
+// termination message goes: for a container whose terminationMessagePath is
+// not the default, and for the demo's executor.
+const FileEnv = "PLUMBLINE_TERMINATION_FILE"
+
+// Default is $PLUMBLINE_TERMINATION_FILE when set, else DefaultFile when it
+// exists (in a container), else "" (at a terminal, where no compact report
+// is wanted unless asked for).
 func Default() string {
+	if p := os.Getenv(FileEnv); p != "" {
+		return p
+	}
 	if _, err := os.Stat(DefaultFile); err == nil {
 		return DefaultFile
 	}

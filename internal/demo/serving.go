@@ -1,0 +1,276 @@
+package demo
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"net"
+	"net/http"
+	"sort"
+	"sync"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+	appsv1 "k8s.io/api/apps/v1"
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/stats"
+)
+
+// servingSim exists for the demo only. It plays Larkspur's scorer pods and
+// their monitoring: each tick it draws the parcels of the moment from the
+// world, has each scored by one of the scorer Deployment's Ready pods with
+// the model that pod serves (its MODEL_URI), learns at once whether each
+// was late (in the story, labels arrive days later), and exports what
+// Larkspur's own monitoring would: the ROC AUC over the last parcels, the
+// address feed's missing share, and the population stability index of the
+// inputs against the data the first model was trained on. A real
+// Prometheus scrapes it. In a cluster, the scorer serves real traffic and
+// the team's monitoring feeds Prometheus; none of this exists there.
+type servingSim struct {
+	c          client.Client
+	ns         string
+	deployment string
+	container  string
+	artifact   string // the env var that holds the artifact URI
+	world      func() Phase
+	rate       float64 // parcels per second
+	window     int     // parcels in the quality window
+
+	rng       *rand.Rand
+	reference []Parcel
+	weightCut []float64 // reference deciles of weight
+
+	mu     sync.Mutex
+	recent []scored
+	models map[string]*Model
+	served map[string]int // parcels per version since the start
+
+	auc, missing prometheus.Gauge
+	psi          *prometheus.GaugeVec
+	labelled     prometheus.Counter
+	scoredBy     *prometheus.CounterVec
+	registry     *prometheus.Registry
+}
+
+type scored struct {
+	score   float64
+	late    bool
+	missing bool
+	depot   string
+	weight  float64
+}
+
+func newServingSim(c client.Client, ns string, world func() Phase, reference []Parcel, seed uint64) *servingSim {
+	s := &servingSim{c: c, ns: ns, deployment: scorer, container: "scorer", artifact: "MODEL_URI", world: world,
+		rate: 300, window: 2000, rng: rand.New(rand.NewPCG(seed, 3)), reference: reference,
+		models: map[string]*Model{}, served: map[string]int{}, registry: prometheus.NewRegistry()}
+	w := make([]float64, len(reference))
+	for i, p := range reference {
+		w[i] = p.Weight
+	}
+	sort.Float64s(w)
+	for q := 1; q < 10; q++ {
+		s.weightCut = append(s.weightCut, w[q*len(w)/10])
+	}
+	s.auc = prometheus.NewGauge(prometheus.GaugeOpts{Name: "larkspur_late_risk_roc_auc",
+		Help: "ROC AUC of the served late-delivery scores over the last labelled parcels (demo simulator)."})
+	s.missing = prometheus.NewGauge(prometheus.GaugeOpts{Name: "larkspur_feature_missing_ratio",
+		Help: "Share of recent parcels whose address confidence is missing (demo simulator).", ConstLabels: prometheus.Labels{"feature": "address_confidence"}})
+	s.psi = prometheus.NewGaugeVec(prometheus.GaugeOpts{Name: "larkspur_feature_psi",
+		Help: "Population stability index of a feature, recent parcels against the reference (demo simulator)."}, []string{"feature"})
+	s.labelled = prometheus.NewCounter(prometheus.CounterOpts{Name: "larkspur_labelled_deliveries_total",
+		Help: "Parcels whose outcome is known (demo simulator)."})
+	s.scoredBy = prometheus.NewCounterVec(prometheus.CounterOpts{Name: "larkspur_scored_parcels_total",
+		Help: "Parcels scored, by the model version the pod served (demo simulator)."}, []string{"version"})
+	s.registry.MustRegister(s.auc, s.missing, s.psi, s.labelled, s.scoredBy)
+	return s
+}
+
+// serve exposes the metrics on a free loopback port and returns its address.
+func (s *servingSim) serve(ctx context.Context) (string, error) {
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		return "", fmt.Errorf("listen for the serving simulator: %w", err)
+	}
+	srv := &http.Server{Handler: promhttp.HandlerFor(s.registry, promhttp.HandlerOpts{}), ReadHeaderTimeout: 5 * time.Second}
+	go func() { _ = srv.Serve(l) }()
+	go func() {
+		<-ctx.Done()
+		_ = srv.Close()
+	}()
+	return l.Addr().String(), nil
+}
+
+// run scores traffic every tick until ctx ends.
+func (s *servingSim) run(ctx context.Context) {
+	const tick = 200 * time.Millisecond
+	for {
+		if err := s.tick(ctx, int(s.rate*tick.Seconds())); err != nil && ctx.Err() == nil {
+			s.missing.Set(math.NaN())
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-time.After(tick):
+		}
+	}
+}
+
+// pod is a Ready scorer pod and what it serves.
+type pod struct {
+	version string
+	model   *Model
+}
+
+func (s *servingSim) readyPods(ctx context.Context) ([]pod, error) {
+	var dep appsv1.Deployment
+	if err := s.c.Get(ctx, types.NamespacedName{Namespace: s.ns, Name: s.deployment}, &dep); err != nil {
+		return nil, client.IgnoreNotFound(err)
+	}
+	sel, err := metav1.LabelSelectorAsSelector(dep.Spec.Selector)
+	if err != nil {
+		return nil, err
+	}
+	var pods corev1.PodList
+	if err := s.c.List(ctx, &pods, client.InNamespace(s.ns), client.MatchingLabelsSelector{Selector: sel}); err != nil {
+		return nil, err
+	}
+	var out []pod
+	for _, p := range pods.Items {
+		if p.DeletionTimestamp != nil || !podReady(&p) {
+			continue
+		}
+		for _, c := range p.Spec.Containers {
+			if c.Name != s.container {
+				continue
+			}
+			for _, e := range c.Env {
+				if e.Name != s.artifact {
+					continue
+				}
+				m, err := s.model(e.Value)
+				if err != nil {
+					continue // a pod that cannot load its model serves nothing
+				}
+				out = append(out, pod{version: p.Annotations[v1alpha1.VersionAnnotation], model: m})
+			}
+		}
+	}
+	return out, nil
+}
+
+func podReady(p *corev1.Pod) bool {
+	for _, c := range p.Status.Conditions {
+		if c.Type == corev1.PodReady {
+			return c.Status == corev1.ConditionTrue
+		}
+	}
+	return false
+}
+
+func (s *servingSim) model(uri string) (*Model, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if m, ok := s.models[uri]; ok {
+		return m, nil
+	}
+	m, err := ReadArtifact(uri)
+	if err != nil {
+		return nil, err
+	}
+	s.models[uri] = m
+	return m, nil
+}
+
+func (s *servingSim) tick(ctx context.Context, n int) error {
+	pods, err := s.readyPods(ctx)
+	if err != nil || len(pods) == 0 {
+		return err
+	}
+	phase := s.world()
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	for i := 0; i < n; i++ {
+		p := phase.Draw(s.rng, "")
+		by := pods[s.rng.IntN(len(pods))]
+		s.recent = append(s.recent, scored{score: by.model.Score(p), late: p.Late, missing: math.IsNaN(p.Address), depot: p.Depot, weight: p.Weight})
+		s.served[by.version]++
+		s.scoredBy.WithLabelValues(by.version).Inc()
+	}
+	s.labelled.Add(float64(n))
+	if over := len(s.recent) - s.window; over > 0 {
+		s.recent = append(s.recent[:0], s.recent[over:]...)
+	}
+	s.export()
+	return nil
+}
+
+// export sets the gauges from the recent parcels.
+func (s *servingSim) export() {
+	label := make([]uint8, len(s.recent))
+	score := make([]float64, len(s.recent))
+	missing := 0
+	depots := map[string]float64{}
+	weights := make([]float64, len(s.weightCut)+1)
+	for i, r := range s.recent {
+		score[i] = r.score
+		if r.late {
+			label[i] = 1
+		}
+		if r.missing {
+			missing++
+		}
+		depots[r.depot]++
+		weights[sort.SearchFloat64s(s.weightCut, r.weight)]++
+	}
+	if v := stats.ROCAUC(label, score, stats.Order(score), nil); v.Defined() {
+		s.auc.Set(v.V)
+	}
+	s.missing.Set(float64(missing) / float64(len(s.recent)))
+	refDepots := map[string]float64{}
+	refWeights := make([]float64, len(s.weightCut)+1)
+	for _, p := range s.reference {
+		refDepots[p.Depot]++
+		refWeights[sort.SearchFloat64s(s.weightCut, p.Weight)]++
+	}
+	var e, a []float64
+	for _, d := range allDepots {
+		e = append(e, refDepots[d])
+		a = append(a, depots[d])
+	}
+	s.psi.WithLabelValues("depot").Set(stats.PSI(e, a))
+	s.psi.WithLabelValues("weight_kg").Set(stats.PSI(refWeights, weights))
+}
+
+// servedBy is how many parcels each version has scored.
+func (s *servingSim) servedBy() map[string]int {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	out := make(map[string]int, len(s.served))
+	for k, v := range s.served {
+		out[k] = v
+	}
+	return out
+}
+
+// currentAUC is the quality over the last parcels, for the timeline.
+func (s *servingSim) currentAUC() float64 {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	label := make([]uint8, len(s.recent))
+	score := make([]float64, len(s.recent))
+	for i, r := range s.recent {
+		score[i] = r.score
+		if r.late {
+			label[i] = 1
+		}
+	}
+	return stats.ROCAUC(label, score, stats.Order(score), nil).V
+}
