@@ -325,6 +325,11 @@ func (d *player) story() error {
 	if err := d.pause(12*time.Second, "ordinary traffic: the live model holds its quality"); err != nil {
 		return err
 	}
+	// In the story the imported model has served for weeks before Fenwick
+	// opens: past its probation, the guard only reports a drop.
+	if err := d.probationEnds(lineKey); err != nil {
+		return err
+	}
 
 	d.step(3, "The new Fenwick depot opens, and the same day the address feed breaks")
 	if err := d.changeWorld(Phase{Fenwick: true, FeedBroken: true,

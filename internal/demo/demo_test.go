@@ -27,10 +27,6 @@ func TestDemoRuns(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	assets := os.Getenv("KUBEBUILDER_ASSETS")
-	if assets == "" {
-		assets = filepath.Join(root, "bin", "k8s")
-	}
 	// The Jobs run the plumbline binary, as in make demo.
 	bin := filepath.Join(t.TempDir(), "plumbline")
 	build := exec.Command("go", "build", "-o", bin, ".")
@@ -43,7 +39,7 @@ func TestDemoRuns(t *testing.T) {
 	defer cancel()
 	res, err := Run(ctx, Options{
 		CRDDir:    filepath.Join(root, "config", "crd", "bases"),
-		AssetsDir: assets,
+		AssetsDir: simcluster.AssetsDir(root),
 		WorkDir:   t.TempDir(),
 		Binary:    bin,
 		Short:     true,

@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"maps"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -88,11 +89,7 @@ func (e *executor) run(ctx context.Context) {
 func (e *executor) podRuns() map[string]int {
 	e.mu.Lock()
 	defer e.mu.Unlock()
-	out := make(map[string]int, len(e.runs))
-	for k, v := range e.runs {
-		out[k] = v
-	}
-	return out
+	return maps.Clone(e.runs)
 }
 
 func (e *executor) runPod(ctx context.Context, p *corev1.Pod) {

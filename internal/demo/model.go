@@ -201,15 +201,7 @@ func WriteArtifact(uri string, m *Model) error {
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return fmt.Errorf("create model directory: %w", err)
 	}
-	b, err := json.MarshalIndent(m, "", "  ")
-	if err != nil {
-		return err
-	}
-	tmp := path + ".tmp"
-	if err := os.WriteFile(tmp, b, 0o644); err != nil {
-		return fmt.Errorf("write model: %w", err)
-	}
-	return os.Rename(tmp, path)
+	return replaceJSON(path, m)
 }
 
 // ReadArtifact loads a model from its artifact URI.

@@ -3,6 +3,7 @@ package demo
 import (
 	"context"
 	"fmt"
+	"maps"
 	"math"
 	"math/rand/v2"
 	"net"
@@ -253,11 +254,7 @@ func (s *servingSim) export() {
 func (s *servingSim) servedBy() map[string]int {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	out := make(map[string]int, len(s.served))
-	for k, v := range s.served {
-		out[k] = v
-	}
-	return out
+	return maps.Clone(s.served)
 }
 
 // currentAUC is the quality over the last parcels, for the timeline.

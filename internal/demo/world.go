@@ -9,6 +9,8 @@ import (
 	"os"
 	"path/filepath"
 	"time"
+
+	"plumbline.dev/plumbline/internal/outfile"
 )
 
 // The world of the demo: the parcels Larkspur Parcels (a fictional courier)
@@ -54,17 +56,22 @@ func (w *World) PhaseAt(t time.Time) Phase {
 	return p
 }
 
-// Save writes the world where the Job processes read it, atomically.
+// Save writes the world where the Job processes read it.
 func (w *World) Save(path string) error {
-	b, err := json.MarshalIndent(w, "", "  ")
-	if err != nil {
+	return replaceJSON(path, w)
+}
+
+// replaceJSON writes v as indented JSON to path through a temporary file,
+// so another process never reads half of it.
+func replaceJSON(path string, v any) error {
+	tmp := path + ".tmp"
+	if err := outfile.WriteJSON(tmp, filepath.Base(path), v); err != nil {
 		return err
 	}
-	tmp := path + ".tmp"
-	if err := os.WriteFile(tmp, b, 0o644); err != nil {
-		return fmt.Errorf("write world: %w", err)
+	if err := os.Rename(tmp, path); err != nil {
+		return fmt.Errorf("replace %s: %w", path, err)
 	}
-	return os.Rename(tmp, path)
+	return nil
 }
 
 // LoadWorld reads a world file.
@@ -113,7 +120,7 @@ func (p Phase) Draw(rng *rand.Rand, id string) Parcel {
 	// longer.
 	mean := 2.3
 	if x.Depot == "fenwick" {
-		mean = 3.0
+		mean = 3.3
 	}
 	x.Distance = math.Min(math.Exp(mean+0.5*rng.NormFloat64()), 120)
 	// Weight: mostly light; the peak brings many heavy parcels.

@@ -65,8 +65,8 @@ func number(t *testing.T, o *unstructured.Unstructured, path ...string) float64 
 
 // The story the demo tells holds for the synthetic world, with margins,
 // against the thresholds of the demo's own line: the live model is fine at
-// first and falls below the trigger when Fenwick opens (but not below the
-// guard), a model trained after Fenwick opened is above the trigger again
+// first and falls below the trigger when Fenwick opens (the demo waits out
+// its probation first, so the guard only reports it), a model trained after Fenwick opened is above the trigger again
 // and falls in the peak, a model trained in the peak passes the gate's
 // minimum and falls below the guard once the peak is over.
 func TestStoryModels(t *testing.T) {
@@ -85,9 +85,9 @@ func TestStoryModels(t *testing.T) {
 		}
 		return m
 	}
-	v0, v1, v2 := train(0, 60, 1), train(60, 90, 2), train(210, 240, 3) // the trainer keeps to the last 30 s
+	v0, v1, v2 := train(0, 60, 1), train(75, 105, 2), train(210, 240, 3) // the trainer keeps to the last 30 s
 	sample := func(from, to int, seed uint64) []Parcel { return w.Sample(at(from), at(to), 4000, seed) }
-	ordinary, broken, fenwick, peak, after := sample(0, 60, 10), sample(60, 90, 11), sample(90, 180, 12), sample(180, 240, 13), sample(240, 300, 14)
+	ordinary, fenwick, peak, after := sample(0, 60, 10), sample(90, 180, 12), sample(180, 240, 13), sample(240, 300, 14)
 	const margin = 0.02
 	checks := []struct {
 		what      string
@@ -97,7 +97,6 @@ func TestStoryModels(t *testing.T) {
 	}{
 		{"v0 on ordinary traffic, above the trigger", aucOf(v0, ordinary), true, trigger + margin},
 		{"v0 once Fenwick opens, below the trigger", aucOf(v0, fenwick), false, trigger - margin},
-		{"v0 with the feed broken, still above the guard", aucOf(v0, broken), true, guard + margin},
 		{"v1 (trained with Fenwick) above the trigger", aucOf(v1, fenwick), true, trigger + margin},
 		{"v1 better than v0 after Fenwick (the gate's comparison)", aucOf(v1, fenwick) - aucOf(v0, fenwick), true, margin},
 		{"v1 in the peak, below the trigger", aucOf(v1, peak), false, trigger - margin},

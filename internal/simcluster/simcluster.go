@@ -62,6 +62,15 @@ type Cluster struct {
 	logs           []*os.File
 }
 
+// AssetsDir is where the binaries are for a checkout at root:
+// $KUBEBUILDER_ASSETS when set, else root/bin/k8s (where make builds them).
+func AssetsDir(root string) string {
+	if a := os.Getenv("KUBEBUILDER_ASSETS"); a != "" {
+		return a
+	}
+	return filepath.Join(root, "bin", "k8s")
+}
+
 // ErrNoBinaries means a component is not built.
 var ErrNoBinaries = errors.New("the simulated cluster's binaries are not built")
 

@@ -28,11 +28,7 @@ func start(t *testing.T) *Cluster {
 	if err != nil {
 		t.Fatal(err)
 	}
-	assets := os.Getenv("KUBEBUILDER_ASSETS")
-	if assets == "" {
-		assets = filepath.Join(root, "bin", "k8s")
-	}
-	c, err := Start(context.Background(), Options{AssetsDir: assets, CRDDir: filepath.Join(root, "config", "crd", "bases"), WorkDir: t.TempDir()})
+	c, err := Start(context.Background(), Options{AssetsDir: AssetsDir(root), CRDDir: filepath.Join(root, "config", "crd", "bases"), WorkDir: t.TempDir()})
 	if errors.Is(err, ErrNoBinaries) && os.Getenv("PLUMBLINE_REQUIRE_SIMCLUSTER") == "" {
 		t.Skipf("%v", err)
 	}
