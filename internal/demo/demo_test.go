@@ -73,7 +73,7 @@ func TestDemoRuns(t *testing.T) {
 			t.Errorf("%d Jobs for %s: duplicates", n, j)
 		}
 	}
-	for _, j := range []string{"late-risk-v1-train", "late-risk-v1-gate", "late-risk-v2-train", "late-risk-v2-gate"} {
+	for _, j := range []string{"late-risk-check-1", "late-risk-v1-train", "late-risk-v1-gate", "late-risk-check-2", "late-risk-v2-train", "late-risk-v2-gate"} {
 		if res.PodRuns[j] < 1 {
 			t.Errorf("the executor ran no pod of Job %s", j)
 		}
@@ -90,6 +90,8 @@ func TestDemoRuns(t *testing.T) {
 		"Blocked (DataQualityIssue)",
 		"address-missing",
 		"event Normal Completed Job/late-risk-v1-train",
+		"event Normal CheckFinished ModelLine/late-risk: check Job late-risk-check-1:",
+		"data quality ok; drift detected",
 		"late-risk  True   late-risk-v1",
 		"Stopping the manager, Prometheus and the cluster.",
 	} {

@@ -6,15 +6,17 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"strconv"
 	"time"
 )
 
-// The two programs the demo's Jobs run (as `plumbline demo train` and
-// `plumbline demo score`), standing in for a team's own trainer and golden-set
-// scorer. They read what the controller injects into every Job container
-// (PLUMBLINE_DATA_FROM/TO, PLUMBLINE_ARTIFACT_URI, PLUMBLINE_CANDIDATE_URI,
+// The programs the demo's Jobs run (as `plumbline demo train`, `plumbline
+// demo score` and `plumbline demo extract`), standing in for a team's own
+// trainer, golden-set scorer and data export. They read what the controller
+// injects into Job containers (PLUMBLINE_DATA_FROM/TO,
+// PLUMBLINE_REFERENCE_FROM/TO, PLUMBLINE_ARTIFACT_URI, PLUMBLINE_CANDIDATE_URI,
 // PLUMBLINE_BASELINE_URI) and the demo's world file for the synthetic parcels.
 
 // ErrUsage marks a flag error whose message is already printed.
@@ -47,6 +49,38 @@ func envTime(name string) (time.Time, bool, error) {
 	return t, true, nil
 }
 
+// window reads a data window from two variables: an empty start is the
+// world's beginning (all history), an empty end is now; recent keeps only
+// the window's latest part.
+func window(w *World, fromVar, toVar string, recent time.Duration) (time.Time, time.Time, error) {
+	from, ok, err := envTime(fromVar)
+	if err != nil {
+		return from, from, err
+	}
+	if !ok {
+		from = w.Phases[0].At
+	}
+	to, ok, err := envTime(toVar)
+	if err != nil {
+		return from, to, err
+	}
+	if !ok {
+		to = time.Now()
+	}
+	if recent > 0 && to.Sub(from) > recent {
+		from = to.Add(-recent)
+	}
+	if !to.After(from) {
+		return from, to, fmt.Errorf("the data window %s to %s (%s, %s) is empty", from.Format(time.RFC3339), to.Format(time.RFC3339), fromVar, toVar)
+	}
+	return from, to, nil
+}
+
+// rows is how many parcels a window holds at a rate, within bounds.
+func rows(from, to time.Time, rate float64, most int) int {
+	return max(500, min(int(to.Sub(from).Seconds()*rate), most))
+}
+
 // Train is `plumbline demo train`: it draws the parcels of the data window
 // from the world and fits the late-delivery model on them.
 func Train(args []string, stdout, stderr io.Writer) error {
@@ -66,28 +100,11 @@ func Train(args []string, stdout, stderr io.Writer) error {
 	if uri == "" {
 		return errors.New("PLUMBLINE_ARTIFACT_URI is not set: the controller sets it in every training container")
 	}
-	from, ok, err := envTime("PLUMBLINE_DATA_FROM")
+	from, to, err := window(w, "PLUMBLINE_DATA_FROM", "PLUMBLINE_DATA_TO", *recent)
 	if err != nil {
 		return err
 	}
-	if !ok {
-		from = w.Phases[0].At // no earlier training: all of the history
-	}
-	to, ok, err := envTime("PLUMBLINE_DATA_TO")
-	if err != nil {
-		return err
-	}
-	if !ok {
-		to = time.Now()
-	}
-	if *recent > 0 && to.Sub(from) > *recent {
-		from = to.Add(-*recent)
-	}
-	if !to.After(from) {
-		return fmt.Errorf("the data window %s to %s is empty", from.Format(time.RFC3339), to.Format(time.RFC3339))
-	}
-	n := int(to.Sub(from).Seconds() * *rate)
-	n = max(500, min(n, *maxRows))
+	n := rows(from, to, *rate, *maxRows)
 	parcels := w.Sample(from, to, n, seedOf(os.Getenv("PLUMBLINE_VERSION")+"/train"))
 	m, err := TrainModel(parcels)
 	if err != nil {
@@ -161,5 +178,80 @@ func Score(args []string, stdout, stderr io.Writer) error {
 	}
 	fmt.Fprintf(stdout, "scored %d golden-set parcels (%s) with %s and %s; wrote %s\n", len(parcels),
 		w.PhaseAt(now).Note, candURI, os.Getenv("PLUMBLINE_BASELINE_URI"), *out)
+	return nil
+}
+
+// Extract is `plumbline demo extract`: it exports two batches of parcels
+// from the world as CSV, for plumbline datacheck: the reference (the window
+// the live version learned from, PLUMBLINE_REFERENCE_FROM/TO; empty: the
+// world's first phase, which the imported model learned from) and the
+// current batch (the window a retrain would train on, PLUMBLINE_DATA_FROM/TO).
+func Extract(args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("plumbline demo extract", flag.ContinueOnError)
+	world := fs.String("world", "world.json", "the demo's world file")
+	rate := fs.Float64("parcels-per-second", 150, "labelled parcels per second of a window (time is compressed)")
+	recent := fs.Duration("recent", 0, "keep only this much of each window's latest data (0: all of it), as the trainer does")
+	refOut := fs.String("reference", "reference.csv", "where to write the reference batch")
+	curOut := fs.String("current", "current.csv", "where to write the current batch")
+	if err := parse(fs, args, stderr); err != nil {
+		return err
+	}
+	w, err := LoadWorld(*world)
+	if err != nil {
+		return err
+	}
+	refFrom, refTo, err := window(w, "PLUMBLINE_REFERENCE_FROM", "PLUMBLINE_REFERENCE_TO", *recent)
+	if os.Getenv("PLUMBLINE_REFERENCE_TO") == "" {
+		// No window recorded (an imported version): what it learned from.
+		refFrom, refTo, err = w.Phases[0].At, w.Phases[0].At.Add(time.Minute), nil
+		if len(w.Phases) > 1 && w.Phases[1].At.Before(refTo) {
+			refTo = w.Phases[1].At
+		}
+	}
+	if err != nil {
+		return err
+	}
+	curFrom, curTo, err := window(w, "PLUMBLINE_DATA_FROM", "PLUMBLINE_DATA_TO", *recent)
+	if err != nil {
+		return err
+	}
+	for _, b := range []struct {
+		path     string
+		from, to time.Time
+		seed     string
+	}{{*refOut, refFrom, refTo, "/reference"}, {*curOut, curFrom, curTo, "/current"}} {
+		parcels := w.Sample(b.from, b.to, rows(b.from, b.to, *rate, 50000), seedOf(os.Getenv("PLUMBLINE_LINE")+b.seed+b.to.String()))
+		if err := writeBatch(b.path, parcels); err != nil {
+			return err
+		}
+		fmt.Fprintf(stdout, "wrote %d parcels from %s to %s to %s\n", len(parcels), b.from.Format(time.RFC3339), b.to.Format(time.RFC3339), b.path)
+	}
+	return nil
+}
+
+// writeBatch writes parcels' features as CSV; a missing address
+// confidence is an empty field.
+func writeBatch(path string, parcels []Parcel) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return fmt.Errorf("write batch: %w", err)
+	}
+	bw := bufio.NewWriter(f)
+	fmt.Fprintln(bw, "parcel_id,depot,distance_km,weight_kg,address_confidence")
+	for _, p := range parcels {
+		addr := ""
+		if !math.IsNaN(p.Address) {
+			addr = strconv.FormatFloat(p.Address, 'f', 4, 64)
+		}
+		fmt.Fprintf(bw, "%s,%s,%s,%s,%s\n", p.ID, p.Depot, strconv.FormatFloat(p.Distance, 'f', 3, 64),
+			strconv.FormatFloat(p.Weight, 'f', 3, 64), addr)
+	}
+	if err := bw.Flush(); err != nil {
+		f.Close()
+		return fmt.Errorf("write %s: %w", path, err)
+	}
+	if err := f.Close(); err != nil {
+		return fmt.Errorf("write %s: %w", path, err)
+	}
 	return nil
 }

@@ -84,8 +84,12 @@ func (d *player) summary(metricsAddr string) error {
 			}
 		}
 		version, role := j.Labels[v1alpha1.VersionLabel], j.Labels[v1alpha1.RoleLabel]
-		d.result.Jobs[version+"/"+role]++
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\n", j.Name, version, role, status, d.result.PodRuns[j.Name])
+		key := version + "/" + role
+		if version == "" {
+			key = j.Name // the line's own Jobs (checks) are numbered
+		}
+		d.result.Jobs[key]++
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\n", j.Name, orDash(version), role, status, d.result.PodRuns[j.Name])
 	}
 	if err := tw.Flush(); err != nil {
 		return err

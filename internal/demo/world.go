@@ -33,6 +33,10 @@ type Phase struct {
 	// Peak: the pre-holiday peak. Many more heavy parcels, and lateness is
 	// driven by weight (vans fill up) more than by distance or address.
 	Peak bool `json:"peak"`
+	// Backfilled: the addresses the feed lost in this phase were restored
+	// in the warehouse afterwards. Live traffic saw them missing; data read
+	// later (training, checks, golden sets) has them.
+	Backfilled bool `json:"backfilled,omitempty"`
 	// Note says what happened, for the timeline.
 	Note string `json:"note"`
 }
@@ -159,15 +163,20 @@ func (p Phase) lateLogit(x Parcel) float64 {
 	return z
 }
 
-// Sample draws n parcels of the world between from and to, each at a time
-// spread evenly over the span, so every phase contributes by its length.
+// Sample draws n parcels of the world between from and to as the
+// warehouse holds them, each at a time spread evenly over the span, so
+// every phase contributes by its length.
 func (w *World) Sample(from, to time.Time, n int, seed uint64) []Parcel {
 	rng := rand.New(rand.NewPCG(w.Seed, seed))
 	out := make([]Parcel, n)
 	span := to.Sub(from)
 	for i := range out {
 		t := from.Add(time.Duration(float64(span) * (float64(i) + 0.5) / float64(n)))
-		out[i] = w.PhaseAt(t).Draw(rng, fmt.Sprintf("P%d-%06d", seed%100000, i))
+		p := w.PhaseAt(t)
+		if p.Backfilled {
+			p.FeedBroken = false
+		}
+		out[i] = p.Draw(rng, fmt.Sprintf("P%d-%06d", seed%100000, i))
 	}
 	return out
 }

@@ -2,6 +2,7 @@ package demo
 
 import (
 	"bytes"
+	"encoding/json"
 	"os"
 	"path/filepath"
 	"strings"
@@ -10,6 +11,8 @@ import (
 
 	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
 
+	"plumbline.dev/plumbline/internal/checkreport"
+	"plumbline.dev/plumbline/internal/datacheck"
 	"plumbline.dev/plumbline/internal/stats"
 )
 
@@ -157,6 +160,22 @@ func TestTrainAndScore(t *testing.T) {
 		t.Errorf("predictions: header %q and %d rows, want 200", lines[0], len(lines)-1)
 	}
 
+	// The check Job's export: the reference is what the imported model
+	// learned from when no window is recorded.
+	refCSV, curCSV := filepath.Join(dir, "reference.csv"), filepath.Join(dir, "current.csv")
+	if err := Extract([]string{"--world", world, "--recent", "30s", "--reference", refCSV, "--current", curCSV}, &out, &out); err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range []string{refCSV, curCSV} {
+		b, err := os.ReadFile(f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !strings.HasPrefix(string(b), "parcel_id,depot,distance_km,weight_kg,address_confidence\n") || strings.Count(string(b), "\n") < 500 {
+			t.Errorf("%s: want a header and at least 500 parcels", f)
+		}
+	}
+
 	t.Setenv("PLUMBLINE_DATA_FROM", "yesterday")
 	if err := Train([]string{"--world", world}, &out, &out); err == nil || !strings.Contains(err.Error(), "PLUMBLINE_DATA_FROM") {
 		t.Errorf("a bad window start: %v, want an error naming PLUMBLINE_DATA_FROM", err)
@@ -164,6 +183,56 @@ func TestTrainAndScore(t *testing.T) {
 	t.Setenv("PLUMBLINE_CANDIDATE_URI", "s3://bucket/model")
 	if err := Score([]string{"--world", world, "--out", pred}, &out, &out); err == nil || !strings.Contains(err.Error(), "file://") {
 		t.Errorf("a non-file artifact: %v, want an error saying the demo stores models at file:// URIs", err)
+	}
+}
+
+// The check Job's verdicts in the story, from plumbline datacheck on the
+// exported batches: the broken feed is a data-quality failure, the same
+// data once backfilled is not, and Fenwick's parcels and the peak's are
+// drift against what the models learned from.
+func TestStoryChecks(t *testing.T) {
+	dir := t.TempDir()
+	t0 := time.Date(2026, 12, 1, 9, 0, 0, 0, time.UTC)
+	at := func(s int) time.Time { return t0.Add(time.Duration(s) * time.Second) }
+	broken := Phase{At: at(60), Fenwick: true, FeedBroken: true}
+	w := &World{Seed: 5, Phases: []Phase{{At: at(0)}, broken, {At: at(120), Fenwick: true}, {At: at(180), Fenwick: true, Peak: true}}}
+	check := func(name string, refFrom, refTo, from, to int) checkreport.Report {
+		t.Helper()
+		refCSV, curCSV := filepath.Join(dir, name+"-ref.csv"), filepath.Join(dir, name+"-cur.csv")
+		if err := writeBatch(refCSV, w.Sample(at(refFrom), at(refTo), 4500, 1)); err != nil {
+			t.Fatal(err)
+		}
+		if err := writeBatch(curCSV, w.Sample(at(from), at(to), 4500, 2)); err != nil {
+			t.Fatal(err)
+		}
+		term := filepath.Join(dir, name+".termination")
+		var out bytes.Buffer
+		if err := datacheck.Command([]string{"--reference", refCSV, "--current", curCSV, "--id", "parcel_id", "--psi-threshold", "0.25",
+			"--termination-file", term}, &out, &out); err != nil {
+			t.Fatalf("%s: %v\n%s", name, err, out.String())
+		}
+		var report checkreport.Report
+		b, err := os.ReadFile(term)
+		if err != nil || json.Unmarshal(b, &report) != nil {
+			t.Fatalf("%s: no compact report: %v %s", name, err, b)
+		}
+		return report
+	}
+	for _, c := range []struct {
+		name                         string
+		refFrom, refTo, from, to     int
+		backfilled, qualityOK, drift bool
+	}{
+		{"feed broken", 0, 60, 90, 120, false, false, true},
+		{"feed backfilled", 0, 60, 90, 120, true, true, true},
+		{"peak against Fenwick", 120, 150, 180, 210, true, true, true},
+		{"no change", 120, 150, 150, 180, true, true, false},
+	} {
+		w.Phases[1].Backfilled = c.backfilled
+		r := check(strings.ReplaceAll(c.name, " ", "-"), c.refFrom, c.refTo, c.from, c.to)
+		if r.DataQuality.OK != c.qualityOK || r.Drift.Detected != c.drift {
+			t.Errorf("%s: data quality ok %v, drift %v; want %v and %v (%+v)", c.name, r.DataQuality.OK, r.Drift.Detected, c.qualityOK, c.drift, r)
+		}
 	}
 }
 
