@@ -204,7 +204,7 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	var o demo.Options
 	fs.StringVar(&o.CRDDir, "crds", "config/crd/bases", "directory of the CRD manifests to install")
 	fs.StringVar(&o.AssetsDir, "assets", "bin/k8s", "directory holding etcd, kube-apiserver, kube-controller-manager, kube-scheduler and kwok (make simcluster builds them)")
-	fs.StringVar(&o.WorkDir, "work-dir", ".demo/run", "directory for the demo's kubeconfig, logs, models and pods (cleared first)")
+	fs.StringVar(&o.WorkDir, "work-dir", ".demo/run", "directory for the demo's kubeconfig, logs, models and pods (an earlier run's are replaced)")
 	fs.DurationVar(&o.StepTimeout, "step-timeout", 3*time.Minute, "how long to wait for each step of the story")
 	if err := parseFlags(fs, args, stderr); err != nil {
 		return err

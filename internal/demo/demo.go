@@ -109,8 +109,12 @@ func Run(ctx context.Context, o Options, out io.Writer) (*Result, error) {
 	if err != nil {
 		return nil, fmt.Errorf("work directory %q: %w", o.WorkDir, err)
 	}
-	if err := os.RemoveAll(work); err != nil {
-		return nil, fmt.Errorf("clear %s: %w", work, err)
+	// Clear what an earlier run left, and only that: the work directory
+	// may hold other files.
+	for _, f := range []string{"cluster", "prometheus", "models", "pods", "world.json", "manager.log"} {
+		if err := os.RemoveAll(filepath.Join(work, f)); err != nil {
+			return nil, fmt.Errorf("clear %s: %w", filepath.Join(work, f), err)
+		}
 	}
 	if err := os.MkdirAll(work, 0o755); err != nil {
 		return nil, fmt.Errorf("create work directory: %w", err)
