@@ -11,6 +11,8 @@ CONTROLLER_GEN_VERSION := v0.23.0
 CONTROLLER_GEN := $(BIN)/controller-gen-$(CONTROLLER_GEN_VERSION)
 KUBECTL ?= kubectl
 GO_PACKAGES := ./...
+# A Prometheus built by hack/build-prometheus.sh is found after the PATH's.
+export PATH := $(PATH):$(BIN)/prom
 
 .PHONY: help
 help: ## List the targets.
@@ -29,13 +31,15 @@ test: controlplane simcluster prometheus ## Run every test tier that can run her
 ##@ Development
 
 .PHONY: prometheus
-prometheus: ## Install Debian's prometheus package (prometheus, promtool) when missing.
+prometheus: ## Make prometheus and promtool available: on the PATH, else Debian's package (as root), else built into bin/prom.
 	@if command -v prometheus >/dev/null && command -v promtool >/dev/null; then exit 0; fi; \
+	if [ -x $(BIN)/prom/prometheus ] && [ -x $(BIN)/prom/promtool ]; then exit 0; fi; \
 	if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null; then \
 	  echo "installing Debian's prometheus package ..."; \
 	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq prometheus >/dev/null; \
 	else \
-	  echo "prometheus and promtool are needed: sudo apt-get install -y prometheus (Debian/Ubuntu)" >&2; exit 1; \
+	  echo "prometheus is not on the PATH and Debian's package needs root: building it from the Go module proxy into bin/prom"; \
+	  hack/build-prometheus.sh; \
 	fi
 
 .PHONY: test-unit

@@ -184,7 +184,7 @@ func Run(ctx context.Context, o Options, out io.Writer) (*Result, error) {
 	}
 	defer logFile.Close()
 	ctrl.SetLogger(zap.New(zap.WriteTo(logFile)))
-	metricsAddr, err := freeLoopbackAddr()
+	metricsAddr, err := promserver.FreeLoopbackAddr()
 	if err != nil {
 		return nil, err
 	}

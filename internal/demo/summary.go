@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"net"
 	"net/http"
 	"sort"
 	"strings"
@@ -149,13 +148,4 @@ func scrape(ctx context.Context, url string, metrics ...string) (string, error) 
 	}
 	sort.Strings(keep)
 	return strings.Join(keep, "\n"), nil
-}
-
-func freeLoopbackAddr() (string, error) {
-	l, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		return "", fmt.Errorf("find a free port: %w", err)
-	}
-	defer l.Close()
-	return l.Addr().String(), nil
 }

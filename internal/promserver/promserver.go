@@ -83,7 +83,7 @@ func start(dir string, history []Series, config string) (*Server, error) {
 	if err := os.WriteFile(filepath.Join(dir, "prometheus.yml"), []byte(config), 0o644); err != nil {
 		return nil, err
 	}
-	addr, err := freePort()
+	addr, err := FreeLoopbackAddr()
 	if err != nil {
 		return nil, err
 	}
@@ -230,7 +230,9 @@ func (s *Server) Restart() error {
 	return s.start()
 }
 
-func freePort() (string, error) {
+// FreeLoopbackAddr is a loopback address with a port free at the moment of
+// asking, for a server about to start.
+func FreeLoopbackAddr() (string, error) {
 	l, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
 		return "", fmt.Errorf("find a free port: %w", err)
