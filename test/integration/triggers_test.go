@@ -101,8 +101,10 @@ var scenarios = map[string]scenario{
 	"no-drift":    {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: constant(0.05), labelled: constant(50000)},
 	// A drop PromQL sees no drift behind; the check Job decides.
 	"check-drift": {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: constant(0.05), labelled: constant(50000)},
-	"few-labels":  {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(3000)},
-	"prom-down":   {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)},
+	// The same drop, with a new version going live in the middle of it.
+	"live-too-recent": {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)},
+	"few-labels":      {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(3000)},
+	"prom-down":       {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)},
 	// Healthy throughout: for a person's request.
 	"manual-checks": {auc: healthy, missing: constant(0.01), psi: constant(0.05), labelled: constant(50000)},
 	// Steady quality and no drift: only the schedule starts retrains.
@@ -336,6 +338,39 @@ func TestTriggerSustainedDropFiresOnce(t *testing.T) {
 		metricSum(t, "plumbline_retrain_decisions_total", map[string]string{"namespace": key.Namespace, "outcome": "InFlight"}) < 1 ||
 		metricSum(t, "plumbline_retrain_decisions_total", labels) < 4 {
 		t.Errorf("decision metrics do not show the started, in-flight and cooldown decisions")
+	}
+}
+
+// A version that went live less than a window ago is not judged by the
+// trigger on points from before it: the drop fires at 04:00, but v1 went
+// live at 03:30, so the trigger waits for a whole hour of v1 (04:30) before
+// it starts a retrain.
+func TestTriggerWaitsForAWholeWindowOfTheLiveVersion(t *testing.T) {
+	key := watchedLine(t, "live-too-recent", func(o *unstructured.Unstructured) {
+		mustSet(t, o, "spec.cooldownSeconds", int64(600))
+	})
+	ns := key.Namespace
+	clk.SetTime(hm(3, 10))
+	requestRetrain(t, key, "mid-drop")
+	trainAndPass(t, ns, "late-risk-v1")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhasePromoting)
+	clk.SetTime(hm(3, 30))
+	rollOutTo(t, ns, "late-risk-v1")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
+
+	stateAt(t, key, hm(4, 0), v1alpha1.TriggerFiring)
+	stateAt(t, key, hm(4, 20), v1alpha1.TriggerFiring)
+	settle()
+	if n := len(trainedVersions(t, ns)); n != 1 {
+		t.Fatalf("%d trained versions before a whole window of late-risk-v1, want 1", n)
+	}
+	if metricSum(t, "plumbline_retrain_decisions_total", map[string]string{"namespace": ns, "outcome": "LiveTooRecent"}) < 2 {
+		t.Error("the decision metric does not count LiveTooRecent")
+	}
+	stateAt(t, key, hm(4, 31), v1alpha1.TriggerFiring)
+	v := waitPhase(t, ns, "late-risk-v2", v1alpha1.PhaseTraining)
+	if v.Spec.Reason != "Trigger/auc-drop" {
+		t.Errorf("reason %q", v.Spec.Reason)
 	}
 }
 
