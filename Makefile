@@ -105,8 +105,9 @@ verify-tidy: ## Fail when go.mod or go.sum is not tidy.
 verify: verify-fmt vet verify-tidy verify-generated ## Every check CI runs besides the tests.
 
 .PHONY: build
-build: ## Build the plumbline binary into bin/.
+build: ## Build the plumbline binary into bin/, and bin/kubectl-plumbline (a link) for kubectl.
 	go build -o $(BIN)/plumbline .
+	ln -sf plumbline $(BIN)/kubectl-plumbline
 
 .PHONY: run
 run: build ## Run the controller against the cluster of the current kubeconfig.

@@ -6,6 +6,8 @@
 //	plumbline evaluate  measure a candidate against the live model on a golden set
 //	plumbline datacheck check a current batch of data against a reference batch
 //	plumbline backtest  replay retraining policies over a quality history
+//	plumbline kubectl   status, history, approve, reject, retrain, rollback
+//	                    (installed as kubectl-plumbline: kubectl plumbline ...)
 //	plumbline version   print the version
 package main
 
@@ -17,6 +19,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"path/filepath"
 	"strings"
 	"syscall"
 	"time"
@@ -29,6 +32,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
 	"plumbline.dev/plumbline/internal/backtest"
+	"plumbline.dev/plumbline/internal/ctl"
 	"plumbline.dev/plumbline/internal/datacheck"
 	"plumbline.dev/plumbline/internal/demo"
 	"plumbline.dev/plumbline/internal/evaluate"
@@ -50,6 +54,7 @@ var commands = []command{
 	{"evaluate", "measure a candidate against the live model on a golden set (the gate Job's tool)", runEvaluate},
 	{"datacheck", "check a current batch of data against a reference batch: quality and drift (the check Job's tool)", runDatacheck},
 	{"backtest", "replay retraining policies over a quality history; 'backtest staleness' fits how fast a model decays", runBacktest},
+	{"kubectl", "what a person does at a terminal: status, history, approve, reject, retrain, rollback (installed as kubectl-plumbline: kubectl plumbline ...)", runKubectl},
 	{"version", "print the version", func(_ context.Context, _ []string, stdout, _ io.Writer) error {
 		_, err := fmt.Fprintln(stdout, version)
 		return err
@@ -62,7 +67,12 @@ var errUsage = errors.New("usage")
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	code := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	args := os.Args[1:]
+	if filepath.Base(os.Args[0]) == "kubectl-plumbline" {
+		// Installed as a kubectl plugin: `kubectl plumbline ...`.
+		args = append([]string{"kubectl"}, args...)
+	}
+	code := run(ctx, args, os.Stdout, os.Stderr)
 	stop()
 	os.Exit(code)
 }
@@ -82,6 +92,9 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 			return 0
 		case errors.Is(err, errUsage):
 			return 2
+		case c.name == "kubectl":
+			fmt.Fprintf(stderr, "kubectl plumbline %s: %v\n", args[1], err)
+			return 1
 		default:
 			fmt.Fprintf(stderr, "plumbline %s: %v\n", c.name, err)
 			return 1
@@ -210,6 +223,14 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		return err
 	}
 	_, err := demo.Run(ctx, o, stdout)
+	return err
+}
+
+func runKubectl(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	err := ctl.Run(ctx, args, stdout, stderr, nil)
+	if errors.Is(err, ctl.ErrUsage) {
+		return errUsage
+	}
 	return err
 }
 

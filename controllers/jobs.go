@@ -28,7 +28,7 @@ const (
 	dataFromAnnotation        = "plumbline.dev/data-from"
 	dataToAnnotation          = "plumbline.dev/data-to"
 	baselineVersionAnnotation = "plumbline.dev/baseline-version"
-	numberLabel               = "plumbline.dev/number"
+	numberLabel               = v1alpha1.NumberLabel
 )
 
 // Environment variables the controller injects into every container.

@@ -23,6 +23,8 @@ const (
 	VersionLabel = "plumbline.dev/version"
 	// RoleLabel says what a Job is for: training, gate or check.
 	RoleLabel = "plumbline.dev/role"
+	// NumberLabel is a started version's sequence number in its line.
+	NumberLabel = "plumbline.dev/number"
 )
 
 // ModelLineSpec is the desired behaviour of one model line.

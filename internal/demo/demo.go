@@ -143,7 +143,8 @@ func Run(ctx context.Context, o Options, out io.Writer) (*Result, error) {
 		return nil, fmt.Errorf("create client: %w", err)
 	}
 	d.say("Cluster up with the plumbline CRDs installed. To watch along in another terminal:")
-	fmt.Fprintf(out, "\n    export KUBECONFIG=%s\n    kubectl get modellines,modelversions,jobs,pods -n %s -w\n\n", cluster.KubeconfigPath, namespace)
+	fmt.Fprintf(out, "\n    export KUBECONFIG=%s\n    kubectl get modellines,modelversions,jobs,pods -n %s -w\n", cluster.KubeconfigPath, namespace)
+	fmt.Fprintf(out, "    kubectl plumbline status %s -n %s    # with bin/ (kubectl-plumbline) on the PATH\n\n", lineName, namespace)
 
 	if err := d.prepareWorld(); err != nil {
 		return nil, err

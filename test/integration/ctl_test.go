@@ -1,0 +1,103 @@
+package integration
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"strings"
+	"testing"
+
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/ctl"
+)
+
+// kubectlPlumbline runs `kubectl plumbline` against the test cluster with
+// the admin kubeconfig, as a person would.
+func kubectlPlumbline(t *testing.T, ns string, args ...string) (string, error) {
+	t.Helper()
+	var out, errOut bytes.Buffer
+	args = append(args, "--kubeconfig", kubeconfigPath, "-n", ns)
+	err := ctl.Run(context.Background(), args, &out, &errOut, nil)
+	if errors.Is(err, ctl.ErrUsage) {
+		t.Fatalf("kubectl plumbline %v: usage: %s", args, errOut.String())
+	}
+	return out.String(), err
+}
+
+func mustRun(t *testing.T, ns string, args ...string) string {
+	t.Helper()
+	out, err := kubectlPlumbline(t, ns, args...)
+	if err != nil {
+		t.Fatalf("kubectl plumbline %v: %v", args, err)
+	}
+	return out
+}
+
+// A person's day with a Manual line, through kubectl plumbline: ask for a
+// retrain, read the status, approve the candidate, see the history, cancel
+// a queued retrain, roll back by hand; and the refusals that name the fix.
+func TestKubectlPlumbline(t *testing.T) {
+	ns := "kubectl-plugin"
+	key := liveLine(t, ns, func(o *unstructured.Unstructured) { mustSet(t, o, "spec.gate.approval", "Manual") })
+
+	out := mustRun(t, ns, "retrain", lineName, "--token", "first")
+	mustContain(t, "retrain output", out, "asked late-risk for a retrain (token first)")
+	if _, err := kubectlPlumbline(t, ns, "retrain", lineName, "--token", "first"); err == nil || !strings.Contains(err.Error(), "already used") {
+		t.Errorf("a reused token: %v, want a refusal", err)
+	}
+	trainAndPass(t, ns, "late-risk-v1")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseAwaitingApproval)
+	waitLineCondition(t, key, v1alpha1.ConditionAwaitingApproval, metav1.ConditionTrue, "WaitingForDecision")
+
+	out = mustRun(t, ns, "status")
+	mustContain(t, "status table", out, "LINE", "IN FLIGHT", "late-risk", initial, "late-risk-v1")
+	out = mustRun(t, ns, "status", lineName)
+	mustContain(t, "status of the line", out, "ModelLine kubectl-plugin/late-risk", "Live:       "+initial,
+		"In flight:  late-risk-v1", "AwaitingApproval", "WaitingForDecision")
+
+	if _, err := kubectlPlumbline(t, ns, "approve", initial); err == nil || !strings.Contains(err.Error(), "AwaitingApproval") {
+		t.Errorf("approving the live version: %v, want a refusal naming AwaitingApproval", err)
+	}
+	out = mustRun(t, ns, "approve", "late-risk-v1", "--note", "north depot checked")
+	mustContain(t, "approve output", out, "late-risk-v1 approved")
+	v1 := waitPhase(t, ns, "late-risk-v1", v1alpha1.PhasePromoting)
+	if v1.Spec.Decision != v1alpha1.DecisionApproved || v1.Spec.DecisionNote != "north depot checked" {
+		t.Errorf("decision %q note %q", v1.Spec.Decision, v1.Spec.DecisionNote)
+	}
+	rollOutTo(t, ns, "late-risk-v1")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
+
+	out = mustRun(t, ns, "history", lineName)
+	mustContain(t, "history", out, "VERSION", "late-risk-v1", "Live (serving)", "Passed", "Manual", initial, "Archived")
+	if strings.Index(out, "late-risk-v1") > strings.Index(out, initial+" ") {
+		t.Errorf("history is not newest first:\n%s", out)
+	}
+
+	// A retrain asked for and then cancelled before it is judged.
+	mustRun(t, ns, "retrain", lineName, "--token", "second")
+	waitPhase(t, ns, "late-risk-v2", v1alpha1.PhaseTraining)
+	mustRun(t, ns, "reject", "late-risk-v2", "--note", "asked by mistake")
+	waitPhase(t, ns, "late-risk-v2", v1alpha1.PhaseRejected)
+
+	// Back to the imported version by hand.
+	if _, err := kubectlPlumbline(t, ns, "rollback", lineName); err == nil || !strings.Contains(err.Error(), "--to is required") {
+		t.Errorf("rollback without --to: %v", err)
+	}
+	if _, err := kubectlPlumbline(t, ns, "rollback", lineName, "--to", "late-risk-v2"); err == nil || !strings.Contains(err.Error(), "archived version or the rule-based one") {
+		t.Errorf("rollback to a rejected version: %v, want a refusal", err)
+	}
+	out = mustRun(t, ns, "rollback", lineName, "--to", initial)
+	mustContain(t, "rollback output", out, "asked late-risk to serve "+initial+" again")
+	waitPhase(t, ns, initial, v1alpha1.PhasePromoting)
+	rollOutTo(t, ns, initial)
+	waitPhase(t, ns, initial, v1alpha1.PhaseLive)
+	if a, _ := served(t, ns); a != initialURI {
+		t.Errorf("Deployment serves %s after the rollback", a)
+	}
+	if _, err := kubectlPlumbline(t, ns, "status", "no-such-line"); err == nil || !strings.Contains(err.Error(), "not found") {
+		t.Errorf("status of a missing line: %v", err)
+	}
+}
