@@ -86,13 +86,7 @@ func TestGuardRollsBackToPrevious(t *testing.T) {
 	key := guardedLine(t, "guard-rollback")
 	ns := key.Namespace
 	// v1 is trained and goes live at 06:00.
-	clk.SetTime(hm(5, 40))
-	requestRetrain(t, key, "before-the-regression")
-	trainAndPass(t, ns, "late-risk-v1")
-	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhasePromoting)
-	clk.SetTime(hm(6, 0))
-	rollOutTo(t, ns, "late-risk-v1")
-	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
+	retrainLive(t, key, "before-the-regression", "late-risk-v1", hm(5, 40), hm(6, 0))
 
 	// Until 06:10 the guard only watches; production quality drops at 06:10.
 	line := guardAt(t, key, hm(6, 5))

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"testing"
+	"time"
 
 	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
@@ -23,6 +24,19 @@ func trainAndPass(t *testing.T, ns, name string) {
 	succeedJob(t, ns, name+"-train", "")
 	waitPhase(t, ns, name, v1alpha1.PhaseEvaluating)
 	succeedJob(t, ns, name+"-gate", encode(t, passingReport()))
+}
+
+// retrainLive asks for a retrain at start and takes the version through
+// training, a passing gate and a rollout that completes at live.
+func retrainLive(t *testing.T, key client.ObjectKey, token, name string, start, live time.Time) {
+	t.Helper()
+	clk.SetTime(start)
+	requestRetrain(t, key, token)
+	trainAndPass(t, key.Namespace, name)
+	waitPhase(t, key.Namespace, name, v1alpha1.PhasePromoting)
+	clk.SetTime(live)
+	rollOutTo(t, key.Namespace, name)
+	waitPhase(t, key.Namespace, name, v1alpha1.PhaseLive)
 }
 
 // With Manual approval a candidate that passed the gate waits for a person;

@@ -350,13 +350,7 @@ func TestTriggerWaitsForAWholeWindowOfTheLiveVersion(t *testing.T) {
 		mustSet(t, o, "spec.cooldownSeconds", int64(600))
 	})
 	ns := key.Namespace
-	clk.SetTime(hm(3, 10))
-	requestRetrain(t, key, "mid-drop")
-	trainAndPass(t, ns, "late-risk-v1")
-	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhasePromoting)
-	clk.SetTime(hm(3, 30))
-	rollOutTo(t, ns, "late-risk-v1")
-	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
+	retrainLive(t, key, "mid-drop", "late-risk-v1", hm(3, 10), hm(3, 30))
 
 	stateAt(t, key, hm(4, 0), v1alpha1.TriggerFiring)
 	stateAt(t, key, hm(4, 20), v1alpha1.TriggerFiring)
