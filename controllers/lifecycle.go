@@ -372,6 +372,9 @@ func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.M
 		return nil, fmt.Errorf("version name %s is taken by a version of line %q", name, v.Spec.Line)
 	}
 	line.Status.VersionCount = max(line.Status.VersionCount, n)
+	if v.Status.Number == 0 {
+		v.Status.Number = n // written with the version's first status
+	}
 	if t := line.Status.LastRetrainTime; t == nil || t.Before(&p.now) {
 		line.Status.LastRetrainTime = p.now.DeepCopy()
 	}

@@ -67,6 +67,9 @@ func TestKubectlPlumbline(t *testing.T) {
 	if v1.Spec.Decision != v1alpha1.DecisionApproved || v1.Spec.DecisionNote != "north depot checked" {
 		t.Errorf("decision %q note %q", v1.Spec.Decision, v1.Spec.DecisionNote)
 	}
+	if v1.Status.Number != 1 {
+		t.Errorf("status.number %d, want 1", v1.Status.Number)
+	}
 	rollOutTo(t, ns, "late-risk-v1")
 	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
 
