@@ -155,26 +155,18 @@ func Score(args []string, stdout, stderr io.Writer) error {
 	// days', in the story's time).
 	now := time.Now()
 	parcels := w.Sample(now.Add(-30*time.Second), now, *rows, seedOf(os.Getenv("PLUMBLINE_VERSION")+"/golden"))
-	f, err := os.Create(*out)
+	err = writeCSV(*out, "parcel_id,depot,was_late,candidate_score,baseline_score", func(w io.Writer) {
+		for _, p := range parcels {
+			late := 0
+			if p.Late {
+				late = 1
+			}
+			fmt.Fprintf(w, "%s,%s,%d,%s,%s\n", p.ID, p.Depot, late,
+				strconv.FormatFloat(cand.Score(p), 'f', 6, 64), strconv.FormatFloat(base.Score(p), 'f', 6, 64))
+		}
+	})
 	if err != nil {
 		return fmt.Errorf("--out: %w", err)
-	}
-	bw := bufio.NewWriter(f)
-	fmt.Fprintln(bw, "parcel_id,depot,was_late,candidate_score,baseline_score")
-	for _, p := range parcels {
-		late := 0
-		if p.Late {
-			late = 1
-		}
-		fmt.Fprintf(bw, "%s,%s,%d,%s,%s\n", p.ID, p.Depot, late,
-			strconv.FormatFloat(cand.Score(p), 'f', 6, 64), strconv.FormatFloat(base.Score(p), 'f', 6, 64))
-	}
-	if err := bw.Flush(); err != nil {
-		f.Close()
-		return fmt.Errorf("write %s: %w", *out, err)
-	}
-	if err := f.Close(); err != nil {
-		return fmt.Errorf("write %s: %w", *out, err)
 	}
 	fmt.Fprintf(stdout, "scored %d golden-set parcels (%s) with %s and %s; wrote %s\n", len(parcels),
 		w.PhaseAt(now).Note, candURI, os.Getenv("PLUMBLINE_BASELINE_URI"), *out)
@@ -222,7 +214,7 @@ func Extract(args []string, stdout, stderr io.Writer) error {
 	}{{*refOut, refFrom, refTo, "/reference"}, {*curOut, curFrom, curTo, "/current"}} {
 		parcels := w.Sample(b.from, b.to, rows(b.from, b.to, *rate, 50000), seedOf(os.Getenv("PLUMBLINE_LINE")+b.seed+b.to.String()))
 		if err := writeBatch(b.path, parcels); err != nil {
-			return err
+			return fmt.Errorf("export a batch: %w", err)
 		}
 		fmt.Fprintf(stdout, "wrote %d parcels from %s to %s to %s\n", len(parcels), b.from.Format(time.RFC3339), b.to.Format(time.RFC3339), b.path)
 	}
@@ -232,20 +224,28 @@ func Extract(args []string, stdout, stderr io.Writer) error {
 // writeBatch writes parcels' features as CSV; a missing address
 // confidence is an empty field.
 func writeBatch(path string, parcels []Parcel) error {
+	return writeCSV(path, "parcel_id,depot,distance_km,weight_kg,address_confidence", func(w io.Writer) {
+		for _, p := range parcels {
+			addr := ""
+			if !math.IsNaN(p.Address) {
+				addr = strconv.FormatFloat(p.Address, 'f', 4, 64)
+			}
+			fmt.Fprintf(w, "%s,%s,%s,%s,%s\n", p.ID, p.Depot, strconv.FormatFloat(p.Distance, 'f', 3, 64),
+				strconv.FormatFloat(p.Weight, 'f', 3, 64), addr)
+		}
+	})
+}
+
+// writeCSV writes a header and the rows that rows writes to a file,
+// buffered; the error of any write shows at the flush.
+func writeCSV(path, header string, rows func(w io.Writer)) error {
 	f, err := os.Create(path)
 	if err != nil {
-		return fmt.Errorf("write batch: %w", err)
+		return err
 	}
 	bw := bufio.NewWriter(f)
-	fmt.Fprintln(bw, "parcel_id,depot,distance_km,weight_kg,address_confidence")
-	for _, p := range parcels {
-		addr := ""
-		if !math.IsNaN(p.Address) {
-			addr = strconv.FormatFloat(p.Address, 'f', 4, 64)
-		}
-		fmt.Fprintf(bw, "%s,%s,%s,%s,%s\n", p.ID, p.Depot, strconv.FormatFloat(p.Distance, 'f', 3, 64),
-			strconv.FormatFloat(p.Weight, 'f', 3, 64), addr)
-	}
+	fmt.Fprintln(bw, header)
+	rows(bw)
 	if err := bw.Flush(); err != nil {
 		f.Close()
 		return fmt.Errorf("write %s: %w", path, err)

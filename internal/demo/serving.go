@@ -8,6 +8,7 @@ import (
 	"math/rand/v2"
 	"net"
 	"net/http"
+	"slices"
 	"sort"
 	"sync"
 	"time"
@@ -45,13 +46,15 @@ type servingSim struct {
 	window     int     // parcels in the quality window
 
 	rng       *rand.Rand
-	reference []Parcel
 	weightCut []float64 // reference deciles of weight
+	// The reference's histograms, which the PSI compares against.
+	refDepots, refWeights []float64
 
-	mu     sync.Mutex
-	recent []scored
-	models map[string]*Model
-	served map[string]int // parcels per version since the start
+	mu      sync.Mutex
+	recent  []scored
+	lastAUC float64 // of the recent parcels, at the last tick
+	models  map[string]*Model
+	served  map[string]int // parcels per version since the start
 
 	auc, missing prometheus.Gauge
 	psi          *prometheus.GaugeVec
@@ -70,7 +73,7 @@ type scored struct {
 
 func newServingSim(c client.Client, ns string, world func() Phase, reference []Parcel, seed uint64) *servingSim {
 	s := &servingSim{c: c, ns: ns, deployment: scorer, container: "scorer", artifact: "MODEL_URI", world: world,
-		rate: 300, window: 2000, rng: rand.New(rand.NewPCG(seed, 3)), reference: reference,
+		rate: 300, window: 2000, rng: rand.New(rand.NewPCG(seed, 3)), lastAUC: math.NaN(),
 		models: map[string]*Model{}, served: map[string]int{}, registry: prometheus.NewRegistry()}
 	w := make([]float64, len(reference))
 	for i, p := range reference {
@@ -80,6 +83,7 @@ func newServingSim(c client.Client, ns string, world func() Phase, reference []P
 	for q := 1; q < 10; q++ {
 		s.weightCut = append(s.weightCut, w[q*len(w)/10])
 	}
+	s.refDepots, s.refWeights = s.histograms(reference)
 	s.auc = prometheus.NewGauge(prometheus.GaugeOpts{Name: "larkspur_late_risk_roc_auc",
 		Help: "ROC AUC of the served late-delivery scores over the last labelled parcels (demo simulator)."})
 	s.missing = prometheus.NewGauge(prometheus.GaugeOpts{Name: "larkspur_feature_missing_ratio",
@@ -214,13 +218,26 @@ func (s *servingSim) tick(ctx context.Context, n int) error {
 	return nil
 }
 
+// histograms bins parcels by depot (in allDepots' order) and by the
+// reference's weight deciles.
+func (s *servingSim) histograms(ps []Parcel) (depots, weights []float64) {
+	depots = make([]float64, len(allDepots))
+	weights = make([]float64, len(s.weightCut)+1)
+	for _, p := range ps {
+		if i := slices.Index(allDepots, p.Depot); i >= 0 {
+			depots[i]++
+		}
+		weights[sort.SearchFloat64s(s.weightCut, p.Weight)]++
+	}
+	return depots, weights
+}
+
 // export sets the gauges from the recent parcels.
 func (s *servingSim) export() {
 	label := make([]uint8, len(s.recent))
 	score := make([]float64, len(s.recent))
+	batch := make([]Parcel, len(s.recent))
 	missing := 0
-	depots := map[string]float64{}
-	weights := make([]float64, len(s.weightCut)+1)
 	for i, r := range s.recent {
 		score[i] = r.score
 		if r.late {
@@ -229,26 +246,16 @@ func (s *servingSim) export() {
 		if r.missing {
 			missing++
 		}
-		depots[r.depot]++
-		weights[sort.SearchFloat64s(s.weightCut, r.weight)]++
+		batch[i] = Parcel{Depot: r.depot, Weight: r.weight}
 	}
 	if v := stats.ROCAUC(label, score, stats.Order(score), nil); v.Defined() {
+		s.lastAUC = v.V
 		s.auc.Set(v.V)
 	}
 	s.missing.Set(float64(missing) / float64(len(s.recent)))
-	refDepots := map[string]float64{}
-	refWeights := make([]float64, len(s.weightCut)+1)
-	for _, p := range s.reference {
-		refDepots[p.Depot]++
-		refWeights[sort.SearchFloat64s(s.weightCut, p.Weight)]++
-	}
-	var e, a []float64
-	for _, d := range allDepots {
-		e = append(e, refDepots[d])
-		a = append(a, depots[d])
-	}
-	s.psi.WithLabelValues("depot").Set(stats.PSI(e, a))
-	s.psi.WithLabelValues("weight_kg").Set(stats.PSI(refWeights, weights))
+	depots, weights := s.histograms(batch)
+	s.psi.WithLabelValues("depot").Set(stats.PSI(s.refDepots, depots))
+	s.psi.WithLabelValues("weight_kg").Set(stats.PSI(s.refWeights, weights))
 }
 
 // servedBy is how many parcels each version has scored.
@@ -262,13 +269,5 @@ func (s *servingSim) servedBy() map[string]int {
 func (s *servingSim) currentAUC() float64 {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	label := make([]uint8, len(s.recent))
-	score := make([]float64, len(s.recent))
-	for i, r := range s.recent {
-		score[i] = r.score
-		if r.late {
-			label[i] = 1
-		}
-	}
-	return stats.ROCAUC(label, score, stats.Order(score), nil).V
+	return s.lastAUC
 }

@@ -13,7 +13,6 @@ import (
 	"testing"
 	"time"
 
-	"plumbline.dev/plumbline/internal/stats"
 	"plumbline.dev/plumbline/internal/table"
 )
 
@@ -74,64 +73,6 @@ func BenchmarkMillionRows(b *testing.B) {
 	}
 	b.ReportMetric(time.Since(start).Seconds()/float64(b.N), "s/run")
 	b.ReportMetric(float64(maxRSS())/(1<<20), "peak-RSS-MiB")
-}
-
-// BenchmarkDeLong: the O(n log n) DeLong of Sun and Xu against the naive
-// O(n^2) computation of the same components, on 20,000 rows. Reports the
-// ratio of their times.
-func BenchmarkDeLong(b *testing.B) {
-	rng := rand.New(rand.NewPCG(3, 4))
-	n := 20_000
-	label := make([]uint8, n)
-	a, c := make([]float64, n), make([]float64, n)
-	for i := range label {
-		if rng.Float64() < 0.3 {
-			label[i] = 1
-		}
-		a[i] = rng.NormFloat64() + float64(label[i])
-		c[i] = 0.6*a[i] + 0.8*rng.NormFloat64()
-	}
-	b.ResetTimer()
-	start := time.Now()
-	for i := 0; i < b.N; i++ {
-		if _, ok := stats.DeLongTest(label, a, c, 0.95); !ok {
-			b.Fatal("not computed")
-		}
-	}
-	fast := time.Since(start) / time.Duration(b.N)
-	b.StopTimer()
-	start = time.Now()
-	naiveVariance(label, a, c)
-	slow := time.Since(start)
-	b.ReportMetric(float64(fast.Microseconds())/1000, "fast-ms")
-	b.ReportMetric(float64(slow.Microseconds())/1000, "naive-ms")
-	b.ReportMetric(float64(slow)/float64(fast), "naive/fast")
-}
-
-// naiveVariance computes DeLong's structural components pair by pair.
-func naiveVariance(label []uint8, a, c []float64) float64 {
-	var pos, neg []int
-	for i, l := range label {
-		if l == 1 {
-			pos = append(pos, i)
-		} else {
-			neg = append(neg, i)
-		}
-	}
-	v10 := make([]float64, len(pos))
-	for i, p := range pos {
-		for _, q := range neg {
-			for _, s := range [][]float64{a, c} {
-				switch {
-				case s[p] > s[q]:
-					v10[i]++
-				case s[p] == s[q]:
-					v10[i] += 0.5
-				}
-			}
-		}
-	}
-	return v10[0]
 }
 
 // BenchmarkCSVParse: reading the golden set's cells through the CSV reader

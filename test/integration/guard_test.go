@@ -44,16 +44,7 @@ func guardedLine(t *testing.T, name string) client.ObjectKey {
 // then returns the line.
 func guardAt(t *testing.T, key client.ObjectKey, at time.Time) *v1alpha1.ModelLine {
 	t.Helper()
-	labels := map[string]string{"namespace": key.Namespace, "line": key.Name}
-	before := metricSum(t, "plumbline_guard_evaluations_total", labels)
-	clk.SetTime(at)
-	nudge(t, key, at)
-	eventually(t, waitFor, func() error {
-		if metricSum(t, "plumbline_guard_evaluations_total", labels) <= before {
-			return fmt.Errorf("guard not judged at %s yet", at.Format("15:04"))
-		}
-		return nil
-	})
+	judgedAt(t, key, at, "plumbline_guard_evaluations_total")
 	var line *v1alpha1.ModelLine
 	eventually(t, waitFor, func() error {
 		line = getLine(t, key)

@@ -219,20 +219,27 @@ func nudge(t *testing.T, key client.ObjectKey, at time.Time) {
 	}
 }
 
+// judgedAt moves the clock to at, wakes the line and waits until the
+// counter of evaluations (of its triggers or its guard) has grown.
+func judgedAt(t *testing.T, key client.ObjectKey, at time.Time, counter string) {
+	t.Helper()
+	labels := map[string]string{"namespace": key.Namespace, "line": key.Name}
+	before := metricSum(t, counter, labels)
+	clk.SetTime(at)
+	nudge(t, key, at)
+	eventually(t, waitFor, func() error {
+		if metricSum(t, counter, labels) <= before {
+			return fmt.Errorf("%s did not grow at %s", counter, at.Format("15:04"))
+		}
+		return nil
+	})
+}
+
 // evaluateAt moves the clock to at and waits for the line's trigger to be
 // evaluated there; it returns the trigger's status.
 func evaluateAt(t *testing.T, key client.ObjectKey, at time.Time) v1alpha1.TriggerStatus {
 	t.Helper()
-	labels := map[string]string{"namespace": key.Namespace, "line": key.Name}
-	before := metricSum(t, "plumbline_trigger_evaluations_total", labels)
-	clk.SetTime(at)
-	nudge(t, key, at)
-	eventually(t, waitFor, func() error {
-		if metricSum(t, "plumbline_trigger_evaluations_total", labels) <= before {
-			return fmt.Errorf("trigger not evaluated at %s yet", at.Format("15:04"))
-		}
-		return nil
-	})
+	judgedAt(t, key, at, "plumbline_trigger_evaluations_total")
 	var st v1alpha1.TriggerStatus
 	eventually(t, waitFor, func() error {
 		line := getLine(t, key)
