@@ -48,8 +48,8 @@ test-unit: ## Run the pure-function tests only (no API server).
 
 .PHONY: bench
 bench: controlplane prometheus ## Print the benchmarks' figures: evaluate on a million rows, DeLong, CSV, datacheck on 1M x 50, the trigger fleet.
-	go test ./internal/evaluate ./internal/stats -run '^$$' -bench . -benchtime 1x
-	go test ./internal/datacheck -run '^$$' -bench . -benchtime 1x
+	go test ./internal/tools/evaluate ./internal/tools/stats -run '^$$' -bench . -benchtime 1x
+	go test ./internal/tools/datacheck -run '^$$' -bench . -benchtime 1x
 	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench . -benchtime 5x
 
 .PHONY: false-alarms

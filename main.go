@@ -31,12 +31,12 @@ import (
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
-	"plumbline.dev/plumbline/internal/backtest"
-	"plumbline.dev/plumbline/internal/ctl"
-	"plumbline.dev/plumbline/internal/datacheck"
-	"plumbline.dev/plumbline/internal/demo"
-	"plumbline.dev/plumbline/internal/evaluate"
 	"plumbline.dev/plumbline/internal/manager"
+	"plumbline.dev/plumbline/internal/tools/backtest"
+	"plumbline.dev/plumbline/internal/tools/ctl"
+	"plumbline.dev/plumbline/internal/tools/datacheck"
+	"plumbline.dev/plumbline/internal/tools/demo"
+	"plumbline.dev/plumbline/internal/tools/evaluate"
 )
 
 // version is set at build time with -ldflags "-X main.version=...".

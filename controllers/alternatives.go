@@ -14,7 +14,7 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/text"
+	"plumbline.dev/plumbline/internal/engine/text"
 )
 
 // Why alternatives are evaluated, and how it ended.

@@ -15,9 +15,9 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/checkreport"
-	"plumbline.dev/plumbline/internal/promq"
-	"plumbline.dev/plumbline/internal/text"
+	"plumbline.dev/plumbline/internal/contract/checkreport"
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/text"
 )
 
 const (

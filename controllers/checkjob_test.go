@@ -8,8 +8,8 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/checkreport"
-	"plumbline.dev/plumbline/internal/policy"
+	"plumbline.dev/plumbline/internal/contract/checkreport"
+	"plumbline.dev/plumbline/internal/engine/policy"
 )
 
 func TestUsableCheck(t *testing.T) {

@@ -12,9 +12,9 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/promq"
-	"plumbline.dev/plumbline/internal/text"
-	"plumbline.dev/plumbline/internal/trigger"
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/text"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 // guardKey prefixes the guard's entry in the evaluation memory; trigger

@@ -9,7 +9,7 @@ import (
 	"k8s.io/utils/ptr"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/trigger"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 // guardFixture: v1 live since 06:00 (replacing v0, archived), rules in

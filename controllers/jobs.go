@@ -13,7 +13,7 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/evaluate"
+	"plumbline.dev/plumbline/internal/tools/evaluate"
 )
 
 // Job roles, in the plumbline.dev/role label and the Job name's suffix.

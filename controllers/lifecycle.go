@@ -17,10 +17,10 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/gate"
-	"plumbline.dev/plumbline/internal/gatereport"
-	"plumbline.dev/plumbline/internal/speccheck"
-	"plumbline.dev/plumbline/internal/text"
+	"plumbline.dev/plumbline/internal/contract/gatereport"
+	"plumbline.dev/plumbline/internal/engine/gate"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
+	"plumbline.dev/plumbline/internal/engine/text"
 )
 
 // Version status reasons the lifecycle sets.

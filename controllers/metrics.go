@@ -6,7 +6,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/trigger"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 // lineConditionTypes are the conditions exported per line.

@@ -27,9 +27,9 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/reconcile"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/clock"
-	"plumbline.dev/plumbline/internal/promq"
-	"plumbline.dev/plumbline/internal/speccheck"
+	"plumbline.dev/plumbline/internal/engine/clock"
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
 )
 
 // Field indexes the manager keeps, so a change to a Deployment or a

@@ -10,7 +10,7 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/speccheck"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
 )
 
 func TestReadyCondition(t *testing.T) {

@@ -15,11 +15,11 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/policy"
-	"plumbline.dev/plumbline/internal/promq"
-	"plumbline.dev/plumbline/internal/schedule"
-	"plumbline.dev/plumbline/internal/text"
-	"plumbline.dev/plumbline/internal/trigger"
+	"plumbline.dev/plumbline/internal/engine/policy"
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/schedule"
+	"plumbline.dev/plumbline/internal/engine/text"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 // The paths by which a retrain is asked for, and the outcomes of the

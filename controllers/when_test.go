@@ -10,7 +10,7 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/trigger"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 func TestNextTriggerStatus(t *testing.T) {

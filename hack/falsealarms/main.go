@@ -14,7 +14,7 @@ import (
 	"text/tabwriter"
 	"time"
 
-	"plumbline.dev/plumbline/internal/trigger"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 const (

@@ -26,8 +26,8 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/controllers"
-	"plumbline.dev/plumbline/internal/clock"
-	"plumbline.dev/plumbline/internal/promq"
+	"plumbline.dev/plumbline/internal/engine/clock"
+	"plumbline.dev/plumbline/internal/engine/promq"
 )
 
 // ControllerName is the name plumbline reports events and leases under.

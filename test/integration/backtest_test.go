@@ -9,8 +9,8 @@ import (
 	"testing"
 	"time"
 
-	"plumbline.dev/plumbline/internal/backtest"
-	"plumbline.dev/plumbline/internal/promq"
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/tools/backtest"
 )
 
 // plumbline backtest reads its history from the real Prometheus, and its

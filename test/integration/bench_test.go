@@ -12,7 +12,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/clock"
+	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/manager"
 )
 

@@ -19,8 +19,8 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/datacheck"
-	"plumbline.dev/plumbline/internal/standin"
+	"plumbline.dev/plumbline/internal/testenv/standin"
+	"plumbline.dev/plumbline/internal/tools/datacheck"
 )
 
 // batches are synthetic Larkspur delivery batches for the check Job: the

@@ -11,7 +11,7 @@ import (
 	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/ctl"
+	"plumbline.dev/plumbline/internal/tools/ctl"
 )
 
 // kubectlPlumbline runs `kubectl plumbline` against the test cluster with

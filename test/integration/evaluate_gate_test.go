@@ -15,7 +15,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/evaluate"
+	"plumbline.dev/plumbline/internal/tools/evaluate"
 )
 
 type prediction struct {

@@ -9,7 +9,7 @@ import (
 	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/gatereport"
+	"plumbline.dev/plumbline/internal/contract/gatereport"
 )
 
 // Each candidate whose report fails a criterion, or whose report cannot be

@@ -19,7 +19,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/gatereport"
+	"plumbline.dev/plumbline/internal/contract/gatereport"
 )
 
 const (

@@ -10,7 +10,7 @@ import (
 	batchv1 "k8s.io/api/batch/v1"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
-	"plumbline.dev/plumbline/internal/standin"
+	"plumbline.dev/plumbline/internal/testenv/standin"
 )
 
 // The test API server runs no kubelet, no Job controller and no Deployment

@@ -26,10 +26,10 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
-	"plumbline.dev/plumbline/internal/clock"
-	"plumbline.dev/plumbline/internal/controlplane"
+	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/manager"
-	"plumbline.dev/plumbline/internal/promserver"
+	"plumbline.dev/plumbline/internal/testenv/controlplane"
+	"plumbline.dev/plumbline/internal/testenv/promserver"
 )
 
 var (

@@ -15,7 +15,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/promserver"
+	"plumbline.dev/plumbline/internal/testenv/promserver"
 )
 
 // The trigger scenarios' history, backfilled into the test Prometheus before

@@ -1,0 +1,428 @@
+package evaluate
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/parquet-go/parquet-go"
+
+	"plumbline.dev/plumbline/internal/contract/gatereport"
+)
+
+func file(t *testing.T, name, content string) string {
+	t.Helper()
+	p := filepath.Join(t.TempDir(), name)
+	if err := os.WriteFile(p, []byte(content), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+// run runs the command and returns the full report and the gate report.
+func run(t *testing.T, args []string, env map[string]string) (Report, *gatereport.Report, string) {
+	t.Helper()
+	dir := t.TempDir()
+	out, term := filepath.Join(dir, "full.json"), filepath.Join(dir, "term")
+	args = append(args, "--out", out, "--termination-file", term)
+	var stdout, stderr bytes.Buffer
+	if err := Command(args, func(k string) string { return env[k] }, &stdout, &stderr); err != nil {
+		t.Fatalf("evaluate %v: %v\n%s", args, err, stderr.String())
+	}
+	var full Report
+	b, err := os.ReadFile(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, &full); err != nil {
+		t.Fatal(err)
+	}
+	raw, err := os.ReadFile(term)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(raw) > gatereport.MaxBytes {
+		t.Fatalf("gate report of %d bytes", len(raw))
+	}
+	gr, err := gatereport.Parse(raw)
+	if err != nil {
+		t.Fatalf("the gate report does not parse: %v\n%s", err, raw)
+	}
+	return full, gr, stdout.String()
+}
+
+func metric(t *testing.T, r Report, segment, name string) MetricReport {
+	t.Helper()
+	for _, g := range r.Groups {
+		if g.Segment != segment {
+			continue
+		}
+		for _, m := range g.Metrics {
+			if m.Metric == name {
+				return m
+			}
+		}
+	}
+	t.Fatalf("no %s for segment %q", name, segment)
+	return MetricReport{}
+}
+
+func near(t *testing.T, what string, got *float64, want, tol float64) {
+	t.Helper()
+	if got == nil || math.Abs(*got-want) > tol {
+		v := "null"
+		if got != nil {
+			v = fmt.Sprint(*got)
+		}
+		t.Errorf("%s = %s, want %v", what, v, want)
+	}
+}
+
+// McNemar through the whole tool: rows built to the table of R's
+// mcnemar.test example (values reproduced in statsmodels' nonparametric
+// tests): [[101,121],[59,33]] gives b=121, c=59, chi-square with continuity
+// correction 20.67222, p=5.450095e-06.
+func TestMcNemarThroughTheTool(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("label,candidate,baseline\n")
+	add := func(n int, cand, base int) {
+		for i := 0; i < n; i++ {
+			// label 1; a model is right when it predicts 1
+			fmt.Fprintf(&b, "1,%d,%d\n", cand, base)
+		}
+	}
+	add(101, 1, 1) // both right
+	add(121, 1, 0) // only the candidate
+	add(59, 0, 1)  // only the baseline
+	add(33, 0, 0)  // neither
+	full, _, _ := run(t, []string{"--input", file(t, "m.csv", b.String()), "--label", "label", "--candidate", "candidate", "--baseline", "baseline", "--resamples", "200"}, nil)
+	acc := metric(t, full, "", "accuracy")
+	mc := acc.PairedTests.McNemar
+	if mc == nil || mc.B != 121 || mc.C != 59 || mc.Exact || math.Abs(mc.Statistic-20.67222) > 1e-5 || math.Abs(mc.PValue-5.450095e-06) > 1e-11 {
+		t.Errorf("McNemar %+v", mc)
+	}
+	if acc.Test != "mcnemar" || *acc.PValue != mc.PValue {
+		t.Errorf("accuracy's test %s p %v", acc.Test, *acc.PValue)
+	}
+	near(t, "candidate accuracy", acc.Candidate, 222.0/314, 1e-12)
+	near(t, "baseline accuracy", acc.Baseline, 160.0/314, 1e-12)
+	// Wilson intervals of each accuracy (checked against the function,
+	// which is checked against R's binom).
+	if acc.CandidateInterval == nil || acc.CandidateInterval[0] > 222.0/314 || acc.CandidateInterval[1] < 222.0/314 {
+		t.Errorf("Wilson interval %v", acc.CandidateInterval)
+	}
+}
+
+// DeLong through the tool, on the data derived by hand from DeLong, DeLong
+// and Clarke-Pearson (1988): z = 1/sqrt(77), p = 0.9093.
+func TestDeLongThroughTheTool(t *testing.T) {
+	csv := "y,a,b\n0,.2,.2\n0,.3,.4\n0,.4,.3\n1,.5,.2\n1,.2,.5\n1,.9,.4\n"
+	full, _, _ := run(t, []string{"--input", file(t, "d.csv", csv), "--label", "y", "--candidate", "a", "--baseline", "b", "--resamples", "200"}, nil)
+	auc := metric(t, full, "", "roc_auc")
+	d := auc.PairedTests.DeLong
+	if d == nil || math.Abs(d.Z-1/math.Sqrt(77)) > 1e-9 || math.Abs(d.PValue-0.9093) > 1e-4 {
+		t.Fatalf("DeLong %+v", d)
+	}
+	near(t, "AUC candidate", auc.Candidate, 13.0/18, 1e-12)
+	near(t, "delta", auc.Delta, 1.0/18, 1e-12)
+	// DeLong's interval: delta ± 1.96 sqrt(77)/18.
+	near(t, "low", auc.DeltaLow, 1.0/18-1.959963984540054*math.Sqrt(77)/18, 1e-9)
+}
+
+// Regression metrics through the tool: scikit-learn documentation's
+// r2_score and mean_squared_error examples (y=[3,-0.5,2,7],
+// pred=[2.5,0,2,8]: R2 0.9486081370449679, RMSE 0.6123724356957945).
+func TestRegressionThroughTheTool(t *testing.T) {
+	csv := "y,cand,base\n3,2.5,3\n-0.5,0,-0.5\n2,2,2\n7,8,7\n"
+	full, gr, _ := run(t, []string{"--input", file(t, "r.csv", csv), "--task", "regression", "--label", "y", "--candidate", "cand", "--baseline", "base", "--resamples", "200"}, nil)
+	near(t, "R2", metric(t, full, "", "r2").Candidate, 0.9486081370449679, 1e-12)
+	near(t, "RMSE", metric(t, full, "", "rmse").Candidate, 0.6123724356957945, 1e-12)
+	near(t, "MAE", metric(t, full, "", "mae").Candidate, 0.5, 1e-12)
+	if metric(t, full, "", "rmse").Direction != "LowerIsBetter" {
+		t.Error("rmse direction")
+	}
+	if len(gr.Metrics) != 3 || gr.Metrics[0].Metric != "mae" {
+		t.Errorf("gate report metrics %+v", gr.Metrics)
+	}
+}
+
+// Multiclass through the tool: scikit-learn documentation's f1_score
+// example (y=[0,1,2,0,1,2], pred=[0,2,1,0,0,1]: macro F1 0.2667, micro
+// 0.3333).
+func TestMulticlassThroughTheTool(t *testing.T) {
+	csv := "y,cand,base\nred,red,red\ngreen,blue,green\nblue,green,blue\nred,red,red\ngreen,red,green\nblue,green,blue\n"
+	full, _, _ := run(t, []string{"--input", file(t, "c.csv", csv), "--task", "multiclass", "--label", "y", "--candidate", "cand", "--baseline", "base", "--resamples", "200"}, nil)
+	near(t, "macro F1", metric(t, full, "", "f1_macro").Candidate, 0.2667, 1e-4)
+	near(t, "micro F1", metric(t, full, "", "f1_micro").Candidate, 0.3333, 1e-4)
+	near(t, "baseline accuracy", metric(t, full, "", "accuracy").Baseline, 1, 0)
+	if len(full.Classes) != 3 {
+		t.Errorf("classes %v", full.Classes)
+	}
+}
+
+// goldenCSV is a synthetic Larkspur golden set: labels, two scores, depots,
+// must-pass flags and ids.
+func goldenCSV(rows int, depots []string) string {
+	var b strings.Builder
+	b.WriteString("parcel_id,depot,was_late,candidate_score,baseline_score,must_pass\n")
+	x := uint64(7)
+	next := func() float64 { // a small deterministic generator
+		x ^= x << 13
+		x ^= x >> 7
+		x ^= x << 17
+		return float64(x%1_000_000) / 1_000_000
+	}
+	for i := 0; i < rows; i++ {
+		y := 0
+		if next() < 0.3 {
+			y = 1
+		}
+		noise := next()
+		c := 0.3*noise + 0.55*float64(y) + 0.1
+		bs := 0.5*next() + 0.35*float64(y) + 0.1
+		fmt.Fprintf(&b, "LK-%05d,%s,%d,%.4f,%.4f,%d\n", i, depots[i%len(depots)], y, c, bs, boolInt(i%97 == 0))
+	}
+	return b.String()
+}
+
+func boolInt(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+func TestSegmentsHolmAndMustPass(t *testing.T) {
+	depots := []string{"north", "harbour", "fenwick"}
+	full, gr, out := run(t, []string{"--input", file(t, "g.csv", goldenCSV(3000, depots)), "--label", "was_late", "--candidate", "candidate_score",
+		"--baseline", "baseline_score", "--segment", "depot", "--must-pass", "must_pass", "--id", "parcel_id", "--resamples", "300",
+		"--max-regression", "0.01", "--report-metrics", "roc_auc,recall"}, nil)
+	if len(full.Groups) != 4 || full.Groups[0].Segment != "" || full.Groups[1].Segment != "fenwick" {
+		t.Fatalf("groups %+v", full.Groups)
+	}
+	// Holm: the adjusted p-values are at least the raw ones, and for the
+	// smallest of three equal the raw one times three (capped at 1).
+	var ps, adj []float64
+	for _, g := range full.Groups[1:] {
+		m := metric(t, full, g.Segment, "recall")
+		ps = append(ps, *m.PValue)
+		adj = append(adj, *m.PValueAdjusted)
+	}
+	minI := 0
+	for i := range ps {
+		if ps[i] < ps[minI] {
+			minI = i
+		}
+		if adj[i] < ps[i] {
+			t.Errorf("adjusted p %v below raw %v", adj[i], ps[i])
+		}
+	}
+	if math.Abs(adj[minI]-math.Min(1, 3*ps[minI])) > 1e-12 {
+		t.Errorf("Holm: smallest p %v adjusted to %v", ps[minI], adj[minI])
+	}
+	if !strings.Contains(full.MultipleTesting, "Holm") {
+		t.Errorf("the report does not state its correction: %q", full.MultipleTesting)
+	}
+	// Must-pass rows: every 97th row; the candidate's failures by id.
+	if full.MustPass.Total != 31 || gr.MustPass.Total != 31 || gr.MustPass.Failed != int64(full.MustPass.Failed) {
+		t.Errorf("must-pass %+v / %+v", full.MustPass, gr.MustPass)
+	}
+	for _, id := range full.MustPass.FailedIDs {
+		if !strings.HasPrefix(id, "LK-") {
+			t.Errorf("failure named %q", id)
+		}
+	}
+	// Non-inferiority at 0.01, for a clearly better candidate.
+	if m := metric(t, full, "", "roc_auc"); m.NonInferior == nil || !*m.NonInferior {
+		t.Errorf("roc_auc non-inferiority %v", m.NonInferior)
+	}
+	// The gate report: whole set first, then segments.
+	if gr.Metrics[0].Segment != "" || gr.Metrics[len(gr.Metrics)-1].Segment == "" || gr.Truncated {
+		t.Errorf("gate report order or truncation: %+v", gr.Metrics)
+	}
+	if !strings.Contains(out, "harbour") || !strings.Contains(out, "must-pass rows:") {
+		t.Errorf("table:\n%s", out)
+	}
+}
+
+// Too many rows for a termination message: segment rows go first, and the
+// report says it was truncated.
+func TestGateReportTruncation(t *testing.T) {
+	var depots []string
+	for i := 0; i < 12; i++ {
+		depots = append(depots, fmt.Sprintf("depot-%02d", i))
+	}
+	_, gr, out := run(t, []string{"--input", file(t, "g.csv", goldenCSV(2400, depots)), "--label", "was_late", "--candidate", "candidate_score",
+		"--baseline", "baseline_score", "--segment", "depot", "--resamples", "100"}, nil)
+	if !gr.Truncated {
+		t.Fatal("not truncated")
+	}
+	whole := 0
+	for _, m := range gr.Metrics {
+		if m.Segment == "" {
+			whole++
+		}
+	}
+	if whole != len(defaultReportMetrics[Binary]) {
+		t.Errorf("%d whole-set rows kept, want all %d", whole, len(defaultReportMetrics[Binary]))
+	}
+	if !strings.Contains(out, "truncated") {
+		t.Errorf("stdout does not say truncated:\n%s", out)
+	}
+}
+
+// The controller's environment picks the gate report's metrics, segments
+// and confidence.
+func TestGateEnvironment(t *testing.T) {
+	env := map[string]string{EnvGateMetrics: "roc_auc,recall", EnvGateSegments: "harbour", EnvGateConfidence: "0.99"}
+	full, gr, _ := run(t, []string{"--input", file(t, "g.csv", goldenCSV(900, []string{"north", "harbour"})), "--label", "was_late",
+		"--candidate", "candidate_score", "--baseline", "baseline_score", "--segment", "depot", "--resamples", "100"}, env)
+	if full.Confidence != 0.99 {
+		t.Errorf("confidence %v", full.Confidence)
+	}
+	if len(gr.Metrics) != 4 {
+		t.Fatalf("gate rows %+v", gr.Metrics)
+	}
+	for _, m := range gr.Metrics {
+		if (m.Metric != "roc_auc" && m.Metric != "recall") || (m.Segment != "" && m.Segment != "harbour") || *m.Confidence != 0.99 {
+			t.Errorf("row %+v", m)
+		}
+	}
+	env[EnvGateSegments] = "none"
+	_, gr, _ = run(t, []string{"--input", file(t, "g.csv", goldenCSV(900, []string{"north", "harbour"})), "--label", "was_late",
+		"--candidate", "candidate_score", "--baseline", "baseline_score", "--segment", "depot", "--resamples", "100"}, env)
+	if len(gr.Metrics) != 2 {
+		t.Errorf("segments none: %+v", gr.Metrics)
+	}
+}
+
+// A segment with one class leaves ROC AUC undefined, with the reason, in
+// both reports.
+func TestUndefinedMetric(t *testing.T) {
+	csv := "depot,y,c,b\nnorth,1,0.9,0.8\nnorth,1,0.7,0.6\nnorth,0,0.2,0.3\nnorth,0,0.4,0.1\nharbour,1,0.8,0.7\nharbour,1,0.6,0.9\n"
+	full, gr, out := run(t, []string{"--input", file(t, "u.csv", csv), "--label", "y", "--candidate", "c", "--baseline", "b", "--segment", "depot",
+		"--resamples", "100", "--report-metrics", "roc_auc"}, nil)
+	m := metric(t, full, "harbour", "roc_auc")
+	if m.Candidate != nil || m.Undefined != "no negative labels" {
+		t.Errorf("harbour AUC %+v", m)
+	}
+	found := false
+	for _, g := range gr.Metrics {
+		if g.Segment == "harbour" {
+			found = g.Candidate == nil && g.Undefined == "no negative labels"
+		}
+	}
+	if !found {
+		t.Errorf("gate report %+v", gr.Metrics)
+	}
+	if !strings.Contains(out, "harbour/roc_auc: no negative labels") {
+		t.Errorf("table:\n%s", out)
+	}
+}
+
+// The same rows as CSV, JSON Lines and Parquet give the same numbers.
+func TestFormatsAgree(t *testing.T) {
+	rows := []struct {
+		Y    int64   `parquet:"y" json:"y"`
+		C    float64 `parquet:"c" json:"c"`
+		B    float64 `parquet:"b" json:"b"`
+		Seg  string  `parquet:"seg" json:"seg"`
+		Pass bool    `parquet:"pass" json:"pass"`
+	}{{1, 0.9, 0.6, "a", true}, {0, 0.2, 0.5, "a", false}, {1, 0.4, 0.7, "b", true}, {0, 0.3, 0.2, "b", false}, {0, 0.6, 0.1, "a", false}, {1, 0.8, 0.4, "b", false}}
+	var csv, jsonl strings.Builder
+	csv.WriteString("y,c,b,seg,pass\n")
+	for _, r := range rows {
+		fmt.Fprintf(&csv, "%d,%v,%v,%s,%v\n", r.Y, r.C, r.B, r.Seg, r.Pass)
+		j, _ := json.Marshal(r)
+		jsonl.Write(j)
+		jsonl.WriteByte('\n')
+	}
+	pq := filepath.Join(t.TempDir(), "g.parquet")
+	f, err := os.Create(pq)
+	if err != nil {
+		t.Fatal(err)
+	}
+	w := parquet.NewGenericWriter[struct {
+		Y    int64   `parquet:"y" json:"y"`
+		C    float64 `parquet:"c" json:"c"`
+		B    float64 `parquet:"b" json:"b"`
+		Seg  string  `parquet:"seg" json:"seg"`
+		Pass bool    `parquet:"pass" json:"pass"`
+	}](f)
+	if _, err := w.Write(rows); err != nil {
+		t.Fatal(err)
+	}
+	w.Close()
+	f.Close()
+	args := func(p string) []string {
+		return []string{"--input", p, "--label", "y", "--candidate", "c", "--baseline", "b", "--segment", "seg", "--must-pass", "pass", "--resamples", "100"}
+	}
+	a, _, _ := run(t, args(file(t, "g.csv", csv.String())), nil)
+	j, _, _ := run(t, args(file(t, "g.jsonl", jsonl.String())), nil)
+	p, _, _ := run(t, args(pq), nil)
+	for _, other := range []Report{j, p} {
+		for _, name := range []string{"accuracy", "roc_auc", "log_loss"} {
+			for _, seg := range []string{"", "a", "b"} {
+				x, y := metric(t, a, seg, name), metric(t, other, seg, name)
+				if fmt.Sprint(*x.Candidate, *x.Baseline, *x.DeltaLow) != fmt.Sprint(*y.Candidate, *y.Baseline, *y.DeltaLow) {
+					t.Errorf("%s/%s differs between formats", seg, name)
+				}
+			}
+		}
+		if other.MustPass.Total != 2 || a.MustPass.Total != 2 {
+			t.Errorf("must-pass %d / %d", a.MustPass.Total, other.MustPass.Total)
+		}
+	}
+}
+
+func TestBadInputNamesFileLineColumn(t *testing.T) {
+	good := "id,y,c,b\nx,1,0.9,0.1\n"
+	cases := []struct {
+		name, content string
+		args          []string
+		want          string
+	}{
+		{"score not a number", "id,y,c,b\nx,1,0.9,0.1\ny,0,high,0.2\n", nil, `b.csv:3: column "c" (--candidate): want a score (a number) or a class like the label's, got "high"`},
+		{"label not binary", "id,y,c,b\nx,1,0.9,0.1\ny,2,0.8,0.2\n", nil, `b.csv:3: column "y" (--label): want 1 or 0`},
+		{"missing column", good, []string{"--baseline", "base"}, `no column "base" (--baseline); the columns are: id, y, c, b`},
+		{"third class", "id,y,c,b\nx,late,late,late\ny,on-time,late,late\nz,lost,late,late\n", []string{"--positive", "late"}, `b.csv:4: column "y" (--label): want the positive class "late" or the other class "on-time"`},
+		{"regression must-pass", good, []string{"--task", "regression", "--must-pass", "y"}, "need a classification task"},
+		{"no rows", "id,y,c,b\n", nil, "no rows"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			args := []string{"--input", file(t, "b.csv", c.content), "--label", "y", "--candidate", "c", "--baseline", "b", "--termination-file", ""}
+			args = append(args, c.args...)
+			var stdout, stderr bytes.Buffer
+			err := Command(args, func(string) string { return "" }, &stdout, &stderr)
+			var ie *InputError
+			if !errors.As(err, &ie) {
+				t.Fatalf("want an input error, got %v", err)
+			}
+			if !strings.Contains(err.Error(), c.want) {
+				t.Errorf("error %q, want %q", err, c.want)
+			}
+		})
+	}
+}
+
+func TestUsageErrors(t *testing.T) {
+	for _, args := range [][]string{
+		{},
+		{"--input", "x.csv", "--confidence", "1"},
+		{"--input", "x.csv", "--task", "ranking"},
+		{"--input", "x.csv", "--resamples", "10"},
+		{"--input", "x.csv", "--no-such-flag"},
+	} {
+		var stdout, stderr bytes.Buffer
+		if err := Command(args, func(string) string { return "" }, &stdout, &stderr); !errors.Is(err, ErrUsage) {
+			t.Errorf("%v: %v", args, err)
+		}
+	}
+}
