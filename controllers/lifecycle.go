@@ -149,6 +149,10 @@ type pass struct {
 	evaluated []string
 	// created are the versions this pass created.
 	created map[string]bool
+	// rolloutDecided are the versions this pass moved to Promoting: their
+	// rollout is patched into the Deployment only by a later pass, once
+	// the decision and what it replaces are written.
+	rolloutDecided map[string]bool
 }
 
 type count struct {
@@ -235,7 +239,7 @@ func (r *ModelLineReconciler) advance(ctx context.Context, line *v1alpha1.ModelL
 	if err := r.handleTriggers(ctx, line, vw, p, firing); err != nil {
 		return err
 	}
-	if v := vw.active(); v != nil {
+	if v := vw.active(); v != nil && !p.rolloutDecided[v.Name] {
 		if err := r.step(ctx, line, vw, v, p); err != nil {
 			return err
 		}
@@ -802,6 +806,10 @@ func startPromotionAs(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersi
 		}
 	}
 	v.Status.Promotion = &from
+	if p.rolloutDecided == nil {
+		p.rolloutDecided = map[string]bool{}
+	}
+	p.rolloutDecided[v.Name] = true
 	msg := fmt.Sprintf("%s; rolling out to Deployment %s", why, line.Spec.Serving.DeploymentName)
 	p.setPhase(v, v1alpha1.PhasePromoting, reason, msg)
 	p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionUnknown, reasonRollingOut, msg)
