@@ -1,8 +1,12 @@
 package controllers
 
 import (
+	"context"
 	"testing"
 	"time"
+
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/client/interceptor"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 )
@@ -72,5 +76,52 @@ func TestSwitchPatchesTheDeploymentOnlyAfterItIsRecorded(t *testing.T) {
 				t.Fatalf("v1 is %s, want Archived", v.Status.Phase)
 			}
 		})
+	}
+}
+
+// countingReader counts the reads of ModelLines that go past the cache.
+type countingReader struct {
+	client.Reader
+	lineReads int
+}
+
+func (c *countingReader) Get(ctx context.Context, key client.ObjectKey, obj client.Object, opts ...client.GetOption) error {
+	if _, ok := obj.(*v1alpha1.ModelLine); ok {
+		c.lineReads++
+	}
+	return c.Reader.Get(ctx, key, obj, opts...)
+}
+
+// The cache can lag behind the controller's own write, so a pass on a line
+// whose cached copy is not the one last written reads it from the API
+// server. Once it has read a newer copy (someone else's edit), later passes
+// on that copy use the cache again; and a deleted line is forgotten.
+func TestFreshReadsPastTheCacheOnlyWhileItLags(t *testing.T) {
+	w := newWorld(t, interceptor.Funcs{}, passLine(), scorerDeployment("", "s3://larkspur/rules"))
+	reader := &countingReader{Reader: w.c}
+	w.r.APIReader = reader
+
+	w.mustPass() // writes the line's first status
+	if reader.lineReads != 0 {
+		t.Fatalf("the first pass read the line %d times past the cache", reader.lineReads)
+	}
+	w.annotate("larkspur.example/owner", "routing-team") // someone else's edit
+	w.mustPass()
+	if reader.lineReads != 1 {
+		t.Fatalf("after an edit by someone else the line was read %d times past the cache, want 1", reader.lineReads)
+	}
+	for i := 0; i < 3; i++ {
+		w.mustPass()
+	}
+	if reader.lineReads != 1 {
+		t.Errorf("passes on an unchanged line read it past the cache: %d reads in all, want 1", reader.lineReads)
+	}
+
+	if err := w.c.Delete(context.Background(), w.line()); err != nil {
+		t.Fatal(err)
+	}
+	w.mustPass()
+	if _, ok := w.r.written.Load(w.key); ok {
+		t.Error("a deleted line is still remembered")
 	}
 }

@@ -66,7 +66,9 @@ type ModelLineReconciler struct {
 	Coverage float64
 
 	evals evaluations
-	// written is the resourceVersion of each line's last status write.
+	// written is the resourceVersion of the newest copy of each line the
+	// controller knows: its own last status write, or a copy read past the
+	// cache since.
 	written sync.Map
 }
 
@@ -94,6 +96,7 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 		if apierrors.IsNotFound(err) {
 			forgetLineMetrics(req.Namespace, req.Name)
 			r.evals.forget(req.NamespacedName)
+			r.written.Delete(req.NamespacedName)
 			return ctrl.Result{}, nil
 		}
 		return ctrl.Result{}, fmt.Errorf("get ModelLine %s: %w", req.NamespacedName, err)
@@ -189,7 +192,9 @@ const conflictRetry = 200 * time.Millisecond
 // fresh makes sure the pass starts from the line as it is after this
 // controller's own last write: the cache can lag behind it, and a pass on a
 // stale copy would redo what was done. When the cached copy is not the one
-// last written, the line is read from the API server.
+// last seen, the line is read from the API server, and the copy read is
+// remembered as the newest: an edit by someone else costs one read, not one
+// per pass from then on.
 func (r *ModelLineReconciler) fresh(ctx context.Context, line *v1alpha1.ModelLine) error {
 	key := client.ObjectKeyFromObject(line)
 	rv, ok := r.written.Load(key)
@@ -199,6 +204,7 @@ func (r *ModelLineReconciler) fresh(ctx context.Context, line *v1alpha1.ModelLin
 	if err := r.APIReader.Get(ctx, key, line); err != nil {
 		return fmt.Errorf("read ModelLine %s: %w", key, err)
 	}
+	r.written.Store(key, line.ResourceVersion)
 	return nil
 }
 
