@@ -125,3 +125,43 @@ func TestFreshReadsPastTheCacheOnlyWhileItLags(t *testing.T) {
 		t.Error("a deleted line is still remembered")
 	}
 }
+
+// status.lastRetrainTime has one meaning and one writer: when the training
+// of the line's newest retrain started. A retrain asked for while another
+// trains waits in Pending and moves it only once its own training starts.
+func TestLastRetrainTimeIsWhenTrainingStarted(t *testing.T) {
+	line := passLine()
+	v0 := modelVersion("late-risk-v0", 0, v1alpha1.PhaseLive, v1alpha1.SourceImported)
+	v0.Status.PromotedTime = at(-2 * time.Hour)
+	v0.Status.Promotion = &v1alpha1.PromotionStatus{Sequence: 1}
+	v1 := modelVersion("late-risk-v1", 10, v1alpha1.PhaseTraining, v1alpha1.SourceTrained)
+	v1.Labels[v1alpha1.NumberLabel] = "1"
+	trainingFrom := passStart.Add(-90 * time.Minute)
+	v1.Status.DataTo = at(-90 * time.Minute)
+	v1.Status.TrainingJob = jobName(v1.Name, roleTraining)
+	line.Status.LastRetrainTime = at(-90 * time.Minute)
+	line.Status.VersionCount = 1
+	job := buildTrainingJob(line, v1, dataWindow{to: trainingFrom})
+	job.UID = "uid-late-risk-v1-train"
+	w := newWorld(t, interceptor.Funcs{}, line, v0, v1, job, scorerDeployment("late-risk-v0", v0.Spec.ArtifactURI))
+
+	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-1")
+	w.mustPass()
+	if v2 := w.version("late-risk-v2"); v2.Status.Phase != v1alpha1.PhasePending {
+		t.Fatalf("the requested version is %s, want Pending behind late-risk-v1", v2.Status.Phase)
+	}
+	if got := w.line().Status.LastRetrainTime; got == nil || !got.Time.Equal(trainingFrom) {
+		t.Fatalf("lastRetrainTime %v after a retrain was only queued; want %s, when late-risk-v1's training started", got, trainingFrom)
+	}
+
+	w.clk.SetTime(passStart.Add(20 * time.Minute))
+	w.finishJob(job.Name, false, "")
+	w.mustPass() // v1 failed
+	w.mustPass() // v2 starts training
+	if v2 := w.version("late-risk-v2"); v2.Status.Phase != v1alpha1.PhaseTraining {
+		t.Fatalf("late-risk-v2 is %s, want Training", v2.Status.Phase)
+	}
+	if got := w.line().Status.LastRetrainTime; got == nil || !got.Time.Equal(w.clk.Now()) {
+		t.Fatalf("lastRetrainTime %v once late-risk-v2 trains; want %s", got, w.clk.Now())
+	}
+}

@@ -379,9 +379,6 @@ func (r *ModelLineReconciler) StartVersion(ctx context.Context, line *v1alpha1.M
 	if v.Status.Number == 0 {
 		v.Status.Number = n // written with the version's first status
 	}
-	if t := line.Status.LastRetrainTime; t == nil || t.Before(&p.now) {
-		line.Status.LastRetrainTime = p.now.DeepCopy()
-	}
 	if vw.version(v.Name) == nil {
 		vw.versions = append(vw.versions, v)
 	}

@@ -34,6 +34,9 @@ func summarize(line *v1alpha1.ModelLine, vw *view, now metav1.Time) {
 		if n, err := strconv.ParseInt(v.Labels[numberLabel], 10, 32); err == nil && int32(n) > st.VersionCount {
 			st.VersionCount = int32(n)
 		}
+		// A version's data window ends when its training started: the
+		// line's last retrain is the newest of those, and nothing else
+		// writes it.
 		if t := v.Status.DataTo; t != nil && (st.LastRetrainTime == nil || st.LastRetrainTime.Before(t)) {
 			st.LastRetrainTime = t.DeepCopy()
 		}

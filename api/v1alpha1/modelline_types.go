@@ -659,8 +659,9 @@ type ModelLineStatus struct {
 	// +kubebuilder:validation:MaxLength=253
 	ActiveVersion string `json:"activeVersion,omitempty"`
 
-	// lastRetrainTime is when the last retrain was started, whatever asked for
-	// it; triggers wait cooldownSeconds after it.
+	// lastRetrainTime is when the training of the line's newest retrain
+	// started, whatever asked for it (a retrain queued behind another counts
+	// once its own training starts); triggers wait cooldownSeconds after it.
 	// +optional
 	LastRetrainTime *metav1.Time `json:"lastRetrainTime,omitempty"`
 
