@@ -14,6 +14,7 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/engine/policy"
 	"plumbline.dev/plumbline/internal/engine/text"
 )
 
@@ -28,25 +29,12 @@ const (
 )
 
 // alternatives are the versions the line could serve instead of the live
-// one without training: the version before it (unless fallback.previous is
-// off, or it was rolled back or failed) and the rule-based version.
+// one without training: the line's fallbacks (policy.Fallbacks).
 func alternatives(line *v1alpha1.ModelLine, vw *view) []*v1alpha1.ModelVersion {
-	live := vw.live()
-	if live == nil {
-		return nil
-	}
-	var out []*v1alpha1.ModelVersion
-	previousAllowed := line.Spec.Fallback == nil || line.Spec.Fallback.Previous == nil || *line.Spec.Fallback.Previous
-	if p := live.Status.Promotion; previousAllowed && p != nil && p.FromVersion != "" {
-		if v := vw.version(p.FromVersion); v != nil && v != live && v.Spec.Source != v1alpha1.SourceRuleBased &&
-			v.Status.Phase == v1alpha1.PhaseArchived && v.Status.Reason != v1alpha1.ReasonRolledBack {
-			out = append(out, v)
-		}
-	}
-	if line.Spec.Fallback != nil && line.Spec.Fallback.RuleBasedVersion != "" {
-		if v := vw.version(line.Spec.Fallback.RuleBasedVersion); v != nil && v != live && v.Status.Phase == v1alpha1.PhaseStandby {
-			out = append(out, v)
-		}
+	fbs, _ := policy.Fallbacks(line.Spec.Fallback, vw.live(), vw.version)
+	out := make([]*v1alpha1.ModelVersion, 0, len(fbs))
+	for _, f := range fbs {
+		out = append(out, f.Version)
 	}
 	return out
 }

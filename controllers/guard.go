@@ -12,6 +12,7 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/engine/policy"
 	"plumbline.dev/plumbline/internal/engine/promq"
 	"plumbline.dev/plumbline/internal/engine/text"
 	"plumbline.dev/plumbline/internal/engine/trigger"
@@ -119,55 +120,14 @@ func lastAutomaticRollback(vw *view) *time.Time {
 	return last
 }
 
-// fallbackTarget chooses where the guard rolls back to: the version that
-// served before the live one, unless fallback.previous is off, there was
-// none, or it was itself rolled back or failed; else the rule-based version.
+// fallbackTarget is where the guard switches to: the first of the line's
+// fallbacks (policy.Fallbacks), or nil with what was ruled out.
 func fallbackTarget(line *v1alpha1.ModelLine, vw *view, live *v1alpha1.ModelVersion) (*v1alpha1.ModelVersion, v1alpha1.PromotionKind, string) {
-	previousAllowed := line.Spec.Fallback == nil || line.Spec.Fallback.Previous == nil || *line.Spec.Fallback.Previous
-	var why []string
-	if prev := live.Status.Promotion; previousAllowed && prev != nil && prev.FromVersion != "" {
-		switch v := vw.version(prev.FromVersion); {
-		case v == nil:
-			why = append(why, fmt.Sprintf("previous version %s no longer exists", prev.FromVersion))
-		case v.Spec.Source == v1alpha1.SourceRuleBased:
-			// The previous one was the fallback itself: handled below.
-		case v.Status.Phase != v1alpha1.PhaseArchived:
-			why = append(why, fmt.Sprintf("previous version %s is %s", v.Name, v.Status.Phase))
-		case v.Status.Reason == v1alpha1.ReasonRolledBack:
-			why = append(why, fmt.Sprintf("previous version %s was itself rolled back", v.Name))
-		default:
-			return v, v1alpha1.PromotionRollback, ""
-		}
-	} else if !previousAllowed {
-		why = append(why, "spec.fallback.previous is false")
-	} else {
-		why = append(why, "no version served before it")
+	fbs, why := policy.Fallbacks(line.Spec.Fallback, live, vw.version)
+	if len(fbs) == 0 {
+		return nil, "", why
 	}
-	if line.Spec.Fallback != nil && line.Spec.Fallback.RuleBasedVersion != "" {
-		rb := vw.version(line.Spec.Fallback.RuleBasedVersion)
-		switch {
-		case rb == nil:
-			why = append(why, fmt.Sprintf("rule-based version %s does not exist", line.Spec.Fallback.RuleBasedVersion))
-		case rb == live:
-			why = append(why, "the rule-based version is what serves")
-		default:
-			return rb, v1alpha1.PromotionFallback, ""
-		}
-	} else {
-		why = append(why, "no spec.fallback.ruleBasedVersion")
-	}
-	return nil, "", joinWhy(why)
-}
-
-func joinWhy(parts []string) string {
-	out := ""
-	for i, p := range parts {
-		if i > 0 {
-			out += "; "
-		}
-		out += p
-	}
-	return out
+	return fbs[0].Version, fbs[0].Kind, ""
 }
 
 // decideGuard turns a guard result into a verdict: a sustained regression

@@ -71,6 +71,10 @@ func TestDecideGuard(t *testing.T) {
 			rules.Status.PromotedTime = v1.Status.PromotedTime
 			rules.Status.Promotion = &v1alpha1.PromotionStatus{Kind: v1alpha1.PromotionFallback, FromVersion: "v1", Sequence: 3, StartedTime: v1.Status.PromotedTime}
 		}, firing, in, metav1.ConditionTrue, reasonRollbackLimit, "", "", true},
+		{"rule-based not in reserve (its own rollout failed)", func(_ *v1alpha1.ModelLine, _ *view, v0, _, rules *v1alpha1.ModelVersion) {
+			v0.Status.Reason = v1alpha1.ReasonRolledBack
+			rules.Status.Phase = v1alpha1.PhaseFailed
+		}, firing, in, metav1.ConditionTrue, reasonNoFallback, "", "", true},
 		{"a rollout in progress", func(_ *v1alpha1.ModelLine, vw *view, _, _, _ *v1alpha1.ModelVersion) {
 			vw.versions = append(vw.versions, version("v2", 2, v1alpha1.PhasePromoting, v1alpha1.SourceTrained))
 		}, firing, in, metav1.ConditionTrue, reasonRollbackWaits, "", "", false},
