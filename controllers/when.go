@@ -17,7 +17,6 @@ import (
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
 	"plumbline.dev/plumbline/internal/engine/promq"
-	"plumbline.dev/plumbline/internal/engine/schedule"
 	"plumbline.dev/plumbline/internal/engine/text"
 	"plumbline.dev/plumbline/internal/engine/trigger"
 )
@@ -371,9 +370,10 @@ func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.Model
 	return true, nil, nil
 }
 
-// handleSchedule starts the scheduled retrain that is due, the way the
-// built-in CronJob does: only the most recent missed start, not past the
-// starting deadline, and not while a version is in flight.
+// handleSchedule takes the schedule's step of the start sequence
+// (policy.StepSchedule): the way the built-in CronJob does, only the most
+// recent missed start, not past the starting deadline, and not while a
+// version is in flight.
 func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
 	s := line.Spec.Schedule
 	if s == nil {
@@ -385,55 +385,48 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 		// clock, as the built-in CronJob counts from its creation.
 		line.Status.LastScheduleTime = p.now.DeepCopy()
 	}
-	last := line.Status.LastScheduleTime.Time
-	plan, err := schedule.Compute(s.Cron, s.TimeZone, last, p.now.Time, s.StartingDeadlineSeconds)
+	step, err := policy.StepSchedule(s, line.Status.LastScheduleTime.Time, p.now.Time, vw.active() != nil)
 	if err != nil {
 		// The spec checks report this as InvalidSpec; nothing to do here.
 		return nil
 	}
-	next := metav1.NewTime(plan.Next)
+	next := metav1.NewTime(step.Next)
 	line.Status.NextScheduleTime = &next
-	p.wakeAt(plan.Next)
-	if s.Suspend || plan.Latest == nil {
+	p.wakeAt(step.Next)
+	at := step.At.Format(time.RFC3339)
+	record := func() { line.Status.LastScheduleTime = &metav1.Time{Time: step.At} }
+	switch step.Action {
+	case policy.ScheduleMissed:
+		record()
+		p.eventFor("Schedule/"+at, line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts missed, the latest at %s, which is past spec.schedule.startingDeadlineSeconds (%ds); next start %s",
+			step.MissedText(), at, *s.StartingDeadlineSeconds, step.Next.Format(time.RFC3339))
+		p.count(func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(step.Missed)) })
 		return nil
-	}
-	missed := func() string {
-		n := fmt.Sprint(plan.Missed)
-		if plan.MissedMore {
-			n = "more than " + n
-		}
-		return n
-	}
-	if plan.Due == nil {
-		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Latest}
-		p.eventFor("Schedule/"+plan.Latest.Format(time.RFC3339), line, nil, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts missed, the latest at %s, which is past spec.schedule.startingDeadlineSeconds (%ds); next start %s",
-			missed(), plan.Latest.Format(time.RFC3339), *s.StartingDeadlineSeconds, plan.Next.Format(time.RFC3339))
-		p.count(func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) })
-		return nil
-	}
-	reason := v1alpha1.ReasonSchedule
-	if a := vw.active(); a != nil {
-		line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
-		p.eventFor("Schedule/"+plan.Due.Format(time.RFC3339), line, a, corev1.EventTypeNormal, "ScheduleSkipped", "scheduled start at %s skipped: version %s is in flight (%s)", plan.Due.Format(time.RFC3339), a.Name, a.Status.Phase)
+	case policy.ScheduleSkipped:
+		record()
+		a := vw.active()
+		p.eventFor("Schedule/"+at, line, a, corev1.EventTypeNormal, "ScheduleSkipped", "scheduled start at %s skipped: version %s is in flight (%s)", at, a.Name, a.Status.Phase)
 		p.count(func() {
 			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathSchedule, outcomeInFlight).Inc()
 		})
 		return nil
+	case policy.ScheduleStart:
+	default:
+		return nil
 	}
-	due := plan.Due.Format(time.RFC3339)
 	for _, v := range vw.versions {
-		if v.Annotations[scheduledForAnnotation] == due {
+		if v.Annotations[scheduledForAnnotation] == at {
 			// Started by a pass that did not live to record it.
-			line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
+			record()
 			return nil
 		}
 	}
-	settled, started, err := r.tryStart(ctx, line, vw, p, pathSchedule, reason, map[string]string{scheduledForAnnotation: due})
+	settled, started, err := r.tryStart(ctx, line, vw, p, pathSchedule, v1alpha1.ReasonSchedule, map[string]string{scheduledForAnnotation: at})
 	if err != nil || !settled {
 		return err
 	}
-	line.Status.LastScheduleTime = &metav1.Time{Time: *plan.Due}
-	if plan.Missed > 0 {
+	record()
+	if step.Missed > 0 {
 		// Told about the version it started, when there is one, so the
 		// warning goes out even if the line's own write races.
 		var about runtime.Object
@@ -441,9 +434,9 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 		if started != nil {
 			about, name = started, started.Name
 		}
-		p.eventFor("Schedule/"+due, line, about, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
-			missed(), due)
-		inc := func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(plan.Missed)) }
+		p.eventFor("Schedule/"+at, line, about, corev1.EventTypeWarning, "MissedSchedule", "%s scheduled starts were missed (the controller was down or the line suspended); ran only the latest, at %s",
+			step.MissedText(), at)
+		inc := func() { scheduleMissed.WithLabelValues(line.Namespace, line.Name).Add(float64(step.Missed)) }
 		if name != "" {
 			p.countFor(name, inc)
 		} else {
@@ -453,9 +446,10 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 	return nil
 }
 
-// handleTriggers starts a retrain for the first trigger that fired in this
-// pass, unless a version is in flight or the line is cooling down from its
-// last retrain.
+// handleTriggers takes the triggers' step of the start sequence
+// (policy.StepTriggers): the first trigger that fired in this pass starts a
+// retrain, unless a version is in flight, the line is cooling down from its
+// last retrain, or the live version has not served a whole window yet.
 func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
 	if len(firing) == 0 {
 		// A check Job run for a trigger that is still Firing answers as
@@ -464,27 +458,29 @@ func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1
 			firing = []v1alpha1.TriggerSpec{*tr}
 		}
 	}
-	if len(firing) == 0 {
-		clearReviewWhenQuiet(line, p)
-		return nil
+	fs := make([]policy.Firing, 0, len(firing))
+	for _, tr := range firing {
+		fs = append(fs, policy.Firing{Name: tr.Name, Window: seconds(tr.ForSeconds)})
 	}
-	tr := firing[0]
-	reason := v1alpha1.ReasonTriggerPrefix + tr.Name
 	var liveSince *time.Time
 	if t := line.Status.LastPromotionTime; t != nil {
 		liveSince = &t.Time
 	}
-	window := seconds(tr.ForSeconds)
-	if outcome, ok := policy.TriggerMayStart(vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), liveSince, window, p.now.Time); !ok {
+	step, ok := policy.StepTriggers(fs, vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), liveSince, p.now.Time)
+	if !ok {
+		clearReviewWhenQuiet(line, p)
+		return nil
+	}
+	if !step.May() {
 		p.count(func() {
-			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, outcome).Inc()
+			retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathTrigger, step.Outcome).Inc()
 		})
-		if outcome == policy.LiveTooRecent {
-			p.wakeAt(liveSince.Add(window))
+		if !step.Wake.IsZero() {
+			p.wakeAt(step.Wake)
 		}
 		return nil
 	}
-	_, _, err := r.tryStart(ctx, line, vw, p, pathTrigger, reason, nil)
+	_, _, err := r.tryStart(ctx, line, vw, p, pathTrigger, v1alpha1.ReasonTriggerPrefix+step.Trigger, nil)
 	return err
 }
 

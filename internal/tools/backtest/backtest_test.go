@@ -6,6 +6,8 @@ import (
 	"testing"
 	"time"
 
+	"k8s.io/utils/ptr"
+
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/promq"
 )
@@ -121,6 +123,45 @@ func TestScheduleReplaysTheControllersPlan(t *testing.T) {
 	// to the end in the last: 93.5 h in all.
 	near(t, "hours below target", res.BelowSeconds/3600, 93.5, 0.25)
 	near(t, "per month", res.RetrainsPerMonth, 4/(28.0/30), 0.01)
+}
+
+// The schedule is replayed as the controller runs it: woken at each
+// scheduled start, so a short starting deadline is met whatever the
+// history's own grid; and a suspended schedule does nothing, no start and
+// no missed start counted while it is suspended (the controller counts them
+// when the schedule resumes).
+func TestScheduleReplayMatchesTheController(t *testing.T) {
+	// A history on a grid half a minute off the schedule's.
+	h := &History{Source: "synthetic"}
+	for ts := t0.Add(30 * time.Second); ts.Before(t0.Add(14 * 24 * time.Hour)); ts = ts.Add(time.Minute) {
+		h.Points = append(h.Points, promq.Point{T: ts, V: 0.85})
+	}
+	deadline := ptr.To[int64](10)
+	p := Policy{Name: "daily", Schedule: &v1alpha1.ScheduleSpec{Cron: "0 3 * * *", StartingDeadlineSeconds: deadline}}
+	res, err := Replay(h, p, opts(0.80), 0.85)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(res.Retrains) != 14 || res.Decisions["MissedSchedule"] != 0 {
+		t.Errorf("a daily schedule with a 10 s deadline over 14 days: %d retrains, decisions %v; want 14 started on time", len(res.Retrains), res.Decisions)
+	}
+	for i, r := range res.Retrains {
+		if want := t0.Add(time.Duration(i)*24*time.Hour + 3*time.Hour); !r.Start.Equal(want) {
+			t.Errorf("retrain %d at %s, want %s", i, r.Start, want)
+		}
+	}
+
+	p.Schedule.Suspend = true
+	for _, d := range []*int64{nil, deadline} {
+		p.Schedule.StartingDeadlineSeconds = d
+		res, err := Replay(h, p, opts(0.80), 0.85)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(res.Retrains) != 0 || len(res.Decisions) != 0 {
+			t.Errorf("deadline %v: a suspended schedule started %d retrains and decided %v; want nothing", d, len(res.Retrains), res.Decisions)
+		}
+	}
 }
 
 // The cooldown and a version in flight hold a firing trigger back, as in

@@ -9,7 +9,6 @@ import (
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
 	"plumbline.dev/plumbline/internal/engine/promq"
-	"plumbline.dev/plumbline/internal/engine/schedule"
 	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
@@ -140,7 +139,8 @@ func (o Options) bad(v float64) bool {
 }
 
 // tick is the replay's clock step: the greatest common divisor of the
-// triggers' periods and windows, and a minute when there is a schedule.
+// triggers' periods and windows (scheduled starts are visited at their own
+// times), else the history's step.
 func tick(p Policy, step time.Duration) time.Duration {
 	g := int64(0)
 	add := func(s int64) {
@@ -158,9 +158,6 @@ func tick(p Policy, step time.Duration) time.Duration {
 	for _, t := range p.Triggers {
 		add(int64(t.EverySeconds))
 		add(int64(t.ForSeconds)) // the first evaluation falls on the grid too
-	}
-	if p.Schedule != nil {
-		add(60)
 	}
 	if g == 0 {
 		return max(step, time.Second)
@@ -201,11 +198,11 @@ func (r *replayer) run() error {
 	lastSchedule := start
 	var nextSchedule time.Time
 	if s := r.p.Schedule; s != nil {
-		plan, err := schedule.Compute(s.Cron, s.TimeZone, lastSchedule, start, s.StartingDeadlineSeconds)
+		st, err := policy.StepSchedule(s, lastSchedule, start, false)
 		if err != nil {
 			return fmt.Errorf("policy %s: %w", r.p.Name, err)
 		}
-		nextSchedule = plan.Next
+		nextSchedule = st.Next
 	}
 	var cusum *CUSUM
 	if c := r.p.CUSUM; c != nil {
@@ -220,7 +217,9 @@ func (r *replayer) run() error {
 	// Prometheus's own lookback, or the history's step when longer.
 	lookback := max(trigger.Lookback, r.h.Step())
 	nextPoint := 0
-	for now := start; !now.After(end); now = now.Add(step) {
+	// The replay's clock visits its grid (the triggers' periods) and, as
+	// the controller is woken at each, every scheduled start.
+	for now, grid := start, start; !now.After(end); {
 		if r.inFlight != nil && !now.Before(r.inFlight.Effect) {
 			r.takeEffect(r.inFlight.Effect)
 			r.inFlight = nil
@@ -228,27 +227,30 @@ func (r *replayer) run() error {
 				cusum.Reset()
 			}
 		}
-		// The schedule, as the controller plans it.
+		// The start sequence, as the controller walks it: the schedule,
+		// then the triggers.
 		if s := r.p.Schedule; s != nil && !now.Before(nextSchedule) {
-			plan, err := schedule.Compute(s.Cron, s.TimeZone, lastSchedule, now, s.StartingDeadlineSeconds)
+			st, err := policy.StepSchedule(s, lastSchedule, now, r.inFlight != nil)
 			if err != nil {
 				return fmt.Errorf("policy %s: %w", r.p.Name, err)
 			}
-			nextSchedule = plan.Next
-			switch {
-			case plan.Due == nil && plan.Latest != nil:
-				lastSchedule = *plan.Latest
-				r.res.Decisions["MissedSchedule"]++
-			case plan.Due != nil && !s.Suspend:
-				lastSchedule = *plan.Due
-				if r.inFlight != nil {
-					r.res.Decisions[policy.InFlight]++
-				} else {
-					r.tryStart(now, policy.PathSchedule, v1alpha1.ReasonSchedule)
-				}
+			nextSchedule = st.Next
+			switch st.Action {
+			case policy.ScheduleMissed:
+				lastSchedule = st.At
+				r.res.Decisions[string(policy.ScheduleMissed)]++
+			case policy.ScheduleSkipped:
+				lastSchedule = st.At
+				r.res.Decisions[policy.InFlight]++
+			case policy.ScheduleStart:
+				// The history answers every check, so a start is always
+				// settled.
+				lastSchedule = st.At
+				r.tryStart(now, policy.PathSchedule, v1alpha1.ReasonSchedule)
 			}
 		}
 		// Each trigger on its period from its first full window.
+		var firing []policy.Firing
 		for _, t := range r.p.Triggers {
 			w := trigger.Window{For: time.Duration(t.ForSeconds) * time.Second, Every: time.Duration(t.EverySeconds) * time.Second, Coverage: r.o.Coverage}
 			first := start.Add(w.For)
@@ -257,11 +259,12 @@ func (r *replayer) run() error {
 			}
 			pts := trigger.RangeQueryLookback(r.sim, now.Add(-w.For), now, w.Step(), lookback)
 			res := trigger.Judge([]promq.Series{{Points: pts}}, trigger.Threshold{Below: t.Below, Above: t.Above}, w, now)
-			if res.State != v1alpha1.TriggerFiring {
-				continue
+			if res.State == v1alpha1.TriggerFiring {
+				firing = append(firing, policy.Firing{Name: t.Name, Window: w.For})
 			}
-			r.gateAndStart(now, cooldown, w.For, v1alpha1.ReasonTriggerPrefix+t.Name)
-			break // the first firing trigger, as the controller takes it
+		}
+		if st, ok := policy.StepTriggers(firing, r.inFlight != nil, r.last, cooldown, r.liveSince, now); ok {
+			r.startIfMay(now, st, v1alpha1.ReasonTriggerPrefix+st.Trigger)
 		}
 		// CUSUM on each point up to now.
 		for ; nextPoint < len(r.sim) && !r.sim[nextPoint].T.After(now); nextPoint++ {
@@ -270,10 +273,18 @@ func (r *replayer) run() error {
 			}
 			up, down := cusum.Add(r.sim[nextPoint].V)
 			if r.o.LowerIsBetter && up || !r.o.LowerIsBetter && down {
-				if r.gateAndStart(now, cooldown, 0, "CUSUM") {
+				st, _ := policy.StepTriggers([]policy.Firing{{Name: "CUSUM"}}, r.inFlight != nil, r.last, cooldown, r.liveSince, now)
+				if r.startIfMay(now, st, "CUSUM") {
 					cusum.Reset()
 				}
 			}
+		}
+		for !grid.After(now) {
+			grid = grid.Add(step)
+		}
+		now = grid
+		if r.p.Schedule != nil && nextSchedule.Before(now) {
+			now = nextSchedule
 		}
 	}
 	if r.inFlight != nil && !r.inFlight.Effect.After(end) {
@@ -282,12 +293,11 @@ func (r *replayer) run() error {
 	return nil
 }
 
-// gateAndStart is a trigger's way to a start: nothing in flight, the
-// cooldown over, a full window since the last retrain took effect, then
-// the checks.
-func (r *replayer) gateAndStart(now time.Time, cooldown, window time.Duration, reason string) bool {
-	if outcome, ok := policy.TriggerMayStart(r.inFlight != nil, r.last, cooldown, r.liveSince, window, now); !ok {
-		r.res.Decisions[outcome]++
+// startIfMay counts a trigger step that may not start, or goes on to the
+// checks.
+func (r *replayer) startIfMay(now time.Time, st policy.TriggerStep, reason string) bool {
+	if !st.May() {
+		r.res.Decisions[st.Outcome]++
 		return false
 	}
 	return r.tryStart(now, policy.PathTrigger, reason)
