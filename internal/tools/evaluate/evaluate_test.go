@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"strings"
@@ -126,7 +127,7 @@ func TestDeLongThroughTheTool(t *testing.T) {
 	full, _, _ := run(t, []string{"--input", file(t, "d.csv", csv), "--label", "y", "--candidate", "a", "--baseline", "b", "--resamples", "200"}, nil)
 	auc := metric(t, full, "", "roc_auc")
 	d := auc.PairedTests.DeLong
-	if d == nil || math.Abs(d.Z-1/math.Sqrt(77)) > 1e-9 || math.Abs(d.PValue-0.9093) > 1e-4 {
+	if d == nil || d.Z == nil || math.Abs(*d.Z-1/math.Sqrt(77)) > 1e-9 || math.Abs(d.PValue-0.9093) > 1e-4 {
 		t.Fatalf("DeLong %+v", d)
 	}
 	near(t, "AUC candidate", auc.Candidate, 13.0/18, 1e-12)
@@ -424,5 +425,38 @@ func TestUsageErrors(t *testing.T) {
 		if err := Command(args, func(string) string { return "" }, &stdout, &stderr); !errors.Is(err, ErrUsage) {
 			t.Errorf("%v: %v", args, err)
 		}
+	}
+}
+
+// Whatever the golden set, the gate report plumbline evaluate writes is one
+// the controller accepts: every delta is candidate - baseline and every
+// interval contains it (run parses each report as the controller does).
+// Small, noisy, lopsided sets are where resampled intervals are oddest.
+func TestGateReportsAreConsistent(t *testing.T) {
+	for seed := uint64(1); seed <= 100; seed++ {
+		rng := rand.New(rand.NewPCG(seed, 99))
+		rows := 12 + rng.IntN(150)
+		positives := 0.05 + 0.6*rng.Float64()
+		var b strings.Builder
+		b.WriteString("id,depot,y,cand,base,value,pred_value,base_value,cls,cand_cls,base_cls\n")
+		for i := 0; i < rows; i++ {
+			y := 0
+			if rng.Float64() < positives {
+				y = 1
+			}
+			c := math.Min(1, math.Max(0, 0.5*float64(y)+rng.NormFloat64()*0.3+0.25))
+			bs := math.Round(rng.Float64()*4) / 4 // a coarse, tied baseline
+			v := rng.NormFloat64() * 10
+			fmt.Fprintf(&b, "r%d,d%d,%d,%.4f,%.2f,%.3f,%.3f,%.3f,%d,%d,%d\n", i, rng.IntN(3), y, c, bs, v, v+rng.NormFloat64(), v+3*rng.NormFloat64(),
+				rng.IntN(3), rng.IntN(3), rng.IntN(3))
+		}
+		in := file(t, "g.csv", b.String())
+		common := []string{"--input", in, "--segment", "depot", "--resamples", "200", "--report-segments", "*"}
+		run(t, append(common, "--label", "y", "--candidate", "cand", "--baseline", "base",
+			"--report-metrics", strings.Join(metricNames[Binary], ",")), nil)
+		run(t, append(common, "--task", "regression", "--label", "value", "--candidate", "pred_value", "--baseline", "base_value",
+			"--report-metrics", strings.Join(metricNames[Regression], ",")), nil)
+		run(t, append(common, "--task", "multiclass", "--label", "cls", "--candidate", "cand_cls", "--baseline", "base_cls",
+			"--report-metrics", strings.Join(metricNames[Multiclass], ",")), nil)
 	}
 }

@@ -95,8 +95,11 @@ type DeLongReport struct {
 	VarCandidate float64 `json:"varCandidate"`
 	VarBaseline  float64 `json:"varBaseline"`
 	Covariance   float64 `json:"covariance"`
-	Z            float64 `json:"z"`
-	PValue       float64 `json:"pValue"`
+	// Z is null when the difference's variance is zero (a tiny segment
+	// whose rows all rank alike): it is then infinite, which JSON cannot
+	// hold; the p-value says the same.
+	Z      *float64 `json:"z"`
+	PValue float64  `json:"pValue"`
 }
 
 // BootstrapReport is the paired bootstrap of the difference.
@@ -172,7 +175,7 @@ func metricReport(segment string, res Result, s Settings) MetricReport {
 		m.PairedTests.McNemar = &McNemarReport{B: mc.B, C: mc.C, Statistic: mc.Statistic, PValue: mc.PValue, Exact: mc.Exact}
 	}
 	if d := res.DeLong; d != nil {
-		m.PairedTests.DeLong = &DeLongReport{AUCCandidate: d.AUCA, AUCBaseline: d.AUCB, VarCandidate: d.VarA, VarBaseline: d.VarB, Covariance: d.Cov, Z: d.Z, PValue: d.PValue}
+		m.PairedTests.DeLong = &DeLongReport{AUCCandidate: d.AUCA, AUCBaseline: d.AUCB, VarCandidate: d.VarA, VarBaseline: d.VarB, Covariance: d.Cov, Z: num(d.Z), PValue: d.PValue}
 	}
 	if b := res.Boot; b != nil {
 		m.PairedTests.Bootstrap = &BootstrapReport{Low: num(b.Low), High: num(b.High), PValue: num(b.P), Resamples: b.Resamples, Rows: b.Rows}
