@@ -12,6 +12,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
+	"strconv"
 
 	"plumbline.dev/plumbline/internal/contract/termination"
 )
@@ -149,9 +150,54 @@ func (r *Report) check() *Error {
 		if m.N < 0 {
 			return refuse(ReasonMalformed, "%s.n is negative", at)
 		}
+		if err := m.consistent(at); err != nil {
+			return err
+		}
 	}
 	return nil
 }
+
+// consistent checks that a metric's numbers agree with each other: delta is
+// candidate - baseline, and the interval contains it. The gate judges the
+// interval, so a report whose interval contradicts its own values cannot
+// be judged. The tolerance allows for the six significant digits plumbline
+// evaluate keeps (each value off by at most half a unit in its sixth digit).
+func (m *Metric) consistent(at string) *Error {
+	if m.Candidate == nil {
+		return nil
+	}
+	if m.Baseline == nil {
+		switch {
+		case m.Delta != nil:
+			return refuse(ReasonMalformed, "%s gives delta %s but no baseline; a difference needs the baseline's value", at, num(*m.Delta))
+		case m.DeltaLow != nil || m.DeltaHigh != nil:
+			return refuse(ReasonMalformed, "%s gives an interval for the difference but no baseline", at)
+		}
+		return nil
+	}
+	c, b := *m.Candidate, *m.Baseline
+	diff := c - b
+	tol := 2e-5*math.Max(math.Abs(c), math.Abs(b)) + 1e-12
+	est, what := diff, " (candidate - baseline)"
+	if m.Delta != nil {
+		if math.Abs(*m.Delta-diff) > tol {
+			return refuse(ReasonMalformed, "%s.delta is %s, but candidate - baseline is %s - %s = %s", at, num(*m.Delta), num(c), num(b), num(diff))
+		}
+		est, what = *m.Delta, ""
+	}
+	lo, hi := m.DeltaLow, m.DeltaHigh
+	switch {
+	case lo != nil && hi != nil && (est < *lo-tol || est > *hi+tol):
+		return refuse(ReasonMalformed, "%s: the interval [%s, %s] does not contain delta %s%s", at, num(*lo), num(*hi), num(est), what)
+	case lo != nil && est < *lo-tol:
+		return refuse(ReasonMalformed, "%s.deltaLow %s is above delta %s%s", at, num(*lo), num(est), what)
+	case hi != nil && est > *hi+tol:
+		return refuse(ReasonMalformed, "%s.deltaHigh %s is below delta %s%s", at, num(*hi), num(est), what)
+	}
+	return nil
+}
+
+func num(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
 
 // Encode writes the report as compact JSON.
 func Encode(r *Report) ([]byte, error) {

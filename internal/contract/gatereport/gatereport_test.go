@@ -66,6 +66,16 @@ func TestParseRefuses(t *testing.T) {
 		{"confidence of 1", strings.Replace(valid, `"confidence": 0.95`, `"confidence": 1`, 1), ReasonMalformed, "metrics[0].confidence"},
 		{"p-value above 1", strings.Replace(valid, `"pValue": 0.003`, `"pValue": 1.5`, 1), ReasonMalformed, "metrics[0].pValue"},
 		{"interval upside down", strings.Replace(valid, `"deltaLow": 0.004`, `"deltaLow": 0.03`, 1), ReasonMalformed, "deltaLow (0.03) is above deltaHigh (0.026)"},
+		// A report that contradicts itself: the controller cannot tell
+		// which of its numbers to believe.
+		{"delta is not candidate - baseline", strings.Replace(valid, `"delta": 0.015`, `"delta": 0.15`, 1), ReasonMalformed,
+			"metrics[0].delta is 0.15, but candidate - baseline is 0.912 - 0.897 = 0.015"},
+		{"interval above the delta", strings.Replace(strings.Replace(valid, `"deltaLow": 0.004`, `"deltaLow": 0.02`, 1), `"deltaHigh": 0.026`, `"deltaHigh": 0.03`, 1), ReasonMalformed,
+			"metrics[0]: the interval [0.02, 0.03] does not contain delta 0.015"},
+		{"interval below the delta, no delta given", strings.Replace(strings.Replace(strings.Replace(valid, `"deltaLow": 0.004`, `"deltaLow": -0.03`, 1), `"deltaHigh": 0.026`, `"deltaHigh": -0.01`, 1), `"delta": 0.015,`, ``, 1), ReasonMalformed,
+			"metrics[0]: the interval [-0.03, -0.01] does not contain delta 0.015 (candidate - baseline)"},
+		{"delta without a baseline", strings.Replace(valid, `"baseline": 0.897,`, ``, 1), ReasonMalformed,
+			"metrics[0] gives delta 0.015 but no baseline"},
 		{"more failed than total", strings.Replace(valid, `"failed": 0`, `"failed": 41`, 1), ReasonMalformed, "41 failed of 40"},
 		{"repeated metric", strings.Replace(valid, `"n": 5000}`, `"n": 5000}, {"metric": "accuracy", "segment": "", "candidate": 0.5}`, 1), ReasonMalformed, "repeats metric"},
 	}
@@ -80,6 +90,16 @@ func TestParseRefuses(t *testing.T) {
 				t.Errorf("got %s %q; want %s containing %q", e.Reason, e.Message, tc.reason, tc.text)
 			}
 		})
+	}
+}
+
+// Rounding to the six significant digits plumbline evaluate writes is not a
+// contradiction.
+func TestParseAcceptsRoundedNumbers(t *testing.T) {
+	raw := strings.NewReplacer(`"candidate": 0.912`, `"candidate": 1234.57`, `"baseline": 0.897`, `"baseline": 1230.12`,
+		`"delta": 0.015`, `"delta": 4.44545`, `"deltaLow": 0.004`, `"deltaLow": 4.44545`, `"deltaHigh": 0.026`, `"deltaHigh": 4.6`).Replace(contractExample)
+	if _, err := Parse([]byte(raw)); err != nil {
+		t.Fatalf("a report rounded to six digits: %v", err)
 	}
 }
 
