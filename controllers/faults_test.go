@@ -2,9 +2,14 @@ package controllers
 
 import (
 	"context"
+	"errors"
+	"strings"
 	"testing"
 	"time"
 
+	batchv1 "k8s.io/api/batch/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/client/interceptor"
 
@@ -163,5 +168,35 @@ func TestLastRetrainTimeIsWhenTrainingStarted(t *testing.T) {
 	}
 	if got := w.line().Status.LastRetrainTime; got == nil || !got.Time.Equal(w.clk.Now()) {
 		t.Fatalf("lastRetrainTime %v once late-risk-v2 trains; want %s", got, w.clk.Now())
+	}
+}
+
+// A pass whose action failed returns the error alone: controller-runtime
+// ignores a result returned with an error (and says so in its log), so the
+// retry comes from the error's backoff, and the status the pass could write
+// is written.
+func TestFailedActionReturnsTheErrorAlone(t *testing.T) {
+	line := passLine()
+	line.Spec.Schedule = &v1alpha1.ScheduleSpec{Cron: "0 3 * * *"} // a wake-up is due
+	refuseJobs := interceptor.Funcs{Create: func(ctx context.Context, c client.WithWatch, obj client.Object, opts ...client.CreateOption) error {
+		if _, ok := obj.(*batchv1.Job); ok {
+			return apierrors.NewInternalError(errors.New("etcdserver: request timed out"))
+		}
+		return c.Create(ctx, obj, opts...)
+	}}
+	w := newWorld(t, refuseJobs, line, scorerDeployment("", "s3://larkspur/rules"))
+	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-1")
+	res, err := w.pass()
+	if err == nil || !strings.Contains(err.Error(), "request timed out") {
+		t.Fatalf("the refused Job creation came back as %v", err)
+	}
+	if res != (ctrl.Result{}) {
+		t.Errorf("a failed pass returned %+v with its error; controller-runtime would ignore it", res)
+	}
+	if got := w.line().Status.NextScheduleTime; got == nil {
+		t.Error("the failed pass did not write what it could (nextScheduleTime)")
+	}
+	if v := w.version("late-risk-v1"); v.Status.Number != 1 {
+		t.Errorf("the version the pass created has number %d in its status, want 1", v.Status.Number)
 	}
 }

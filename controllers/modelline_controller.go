@@ -167,10 +167,15 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 		m.inc()
 	}
 	recordLineMetrics(&line, vw.live())
+	if advanceErr != nil {
+		// What the pass could do is written; the action that failed is
+		// retried with the error's backoff. (controller-runtime ignores a
+		// result returned with an error, so none is.)
+		return ctrl.Result{}, advanceErr
+	}
 	// The next pass comes from a change to the line, its Deployment, its
-	// versions or their Jobs, or when a trigger or a scheduled start is due;
-	// never from a retry loop.
-	return ctrl.Result{RequeueAfter: r.requeue(p)}, advanceErr
+	// versions or their Jobs, or when a trigger or a scheduled start is due.
+	return ctrl.Result{RequeueAfter: r.requeue(p)}, nil
 }
 
 // requeue turns the pass's wake time into the real time to wait.
