@@ -65,7 +65,7 @@ func TestAlternativesNoneQualify(t *testing.T) {
 	succeedJob(t, ns, "late-risk-v1-train", "")
 	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseEvaluating)
 	failing := passingReport()
-	failing.Metrics[0].Candidate = f(0.7)
+	setCandidate(&failing.Metrics[0], 0.7)
 	succeedJob(t, ns, "late-risk-v1-gate", encode(t, failing))
 	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseRejected)
 

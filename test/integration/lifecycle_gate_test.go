@@ -33,9 +33,9 @@ func TestGateRejects(t *testing.T) {
 		reason string
 		text   []string
 	}{
-		{"minimum", mod(func(r *gatereport.Report) { r.Metrics[0].Candidate = f(0.79) }),
+		{"minimum", mod(func(r *gatereport.Report) { setCandidate(&r.Metrics[0], 0.79) }),
 			false, "CriteriaNotMet", []string{"roc_auc/whole set: roc_auc 0.79 < minimum 0.8"}},
-		{"maximum", mod(func(r *gatereport.Report) { r.Metrics[1].Candidate = f(0.52) }),
+		{"maximum", mod(func(r *gatereport.Report) { setCandidate(&r.Metrics[1], 0.52) }),
 			false, "CriteriaNotMet", []string{"log_loss 0.52 > maximum 0.45"}},
 		{"non-inferiority", mod(func(r *gatereport.Report) { r.Metrics[0].DeltaLow = f(-0.011) }),
 			false, "CriteriaNotMet", []string{"lower bound of the change in roc_auc -0.011 < -0.005"}},
@@ -49,6 +49,8 @@ func TestGateRejects(t *testing.T) {
 			r.MustPass.Failed = 2
 			r.MustPass.FailedIDs = []string{"parcel-LK-1187", "parcel-LK-2204"}
 		}), false, "MustPassFailed", []string{"2 of 40 must-pass rows wrong", "parcel-LK-1187"}},
+		{"report contradicts itself", mod(func(r *gatereport.Report) { r.Metrics[0].Candidate = f(0.79) }),
+			false, gatereport.ReasonMalformed, []string{"metrics[0].delta is 0.006, but candidate - baseline is 0.79 - 0.836 = -0.046"}},
 		{"report missing", "", false, gatereport.ReasonMissing, []string{"wrote no report"}},
 		{"report malformed", `{"schema":"plumbline.dev/gate-report/v1","rows":5000,"metrics":[{"metric":"roc_auc"`,
 			false, gatereport.ReasonMalformed, []string{"not a valid gate report"}},

@@ -167,6 +167,18 @@ func passingReport() *gatereport.Report {
 	}
 }
 
+// setCandidate changes a metric's candidate value and keeps the report
+// consistent: the delta and its interval move with it.
+func setCandidate(m *gatereport.Metric, v float64) {
+	shift := v - *m.Candidate
+	m.Candidate = f(v)
+	for _, p := range []**float64{&m.Delta, &m.DeltaLow, &m.DeltaHigh} {
+		if *p != nil {
+			*p = f(**p + shift)
+		}
+	}
+}
+
 func encode(t *testing.T, r *gatereport.Report) string {
 	t.Helper()
 	b, err := json.Marshal(r)
