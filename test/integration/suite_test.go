@@ -143,6 +143,10 @@ func runSuite(m *testing.M) int {
 	return m.Run()
 }
 
+// prometheusTimeout bounds each of the manager's queries: short, so the
+// test of a hung Prometheus does not wait out the default 10 s.
+const prometheusTimeout = 3 * time.Second
+
 // managerConfig talks to the API server as the manager's ServiceAccount.
 var managerConfig *rest.Config
 
@@ -156,7 +160,7 @@ var running struct {
 func startManager() error {
 	ctx, cancel := context.WithCancel(context.Background())
 	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clock.Manual{PassiveClock: clk},
-		AllowSecondManager: true, PrometheusURL: prometheusURL})
+		AllowSecondManager: true, PrometheusURL: prometheusURL, PrometheusTimeout: prometheusTimeout})
 	if err != nil {
 		cancel()
 		return err

@@ -61,6 +61,10 @@ func step(at time.Time, before, after float64) func(time.Time) float64 {
 
 func constant(v float64) func(time.Time) float64 { return func(time.Time) float64 { return v } }
 
+// noSample, returned by a scenario's function, leaves that minute out of
+// the history: the series has a gap.
+var noSample = math.Inf(-1)
+
 // guardScenario is a line whose production quality is healthy but for the
 // given stretches at 0.70.
 func guardScenario(bad ...[2]time.Time) scenario {
@@ -134,13 +138,19 @@ func triggerHistory() []promserver.Series {
 				s.Labels["feature"] = "depot"
 			}
 			for t := day0; t.Before(day0.Add(12 * time.Hour)); t = t.Add(time.Minute) {
-				s.Samples = append(s.Samples, promserver.Sample{T: t, V: f(t)})
+				if v := f(t); v != noSample {
+					s.Samples = append(s.Samples, promserver.Sample{T: t, V: v})
+				}
 			}
 			out = append(out, s)
 		}
 	}
-	return out
+	return append(out, extraHistory...)
 }
+
+// extraHistory holds series besides the scenarios' five, added by the tests
+// that query them.
+var extraHistory []promserver.Series
 
 // watchedLine is the Larkspur line of a scenario: one trigger (ROC AUC below
 // 0.78 for an hour, judged every minute) and the three checks, each on the

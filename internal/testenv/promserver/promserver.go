@@ -18,6 +18,7 @@ import (
 	"path/filepath"
 	"sort"
 	"strings"
+	"syscall"
 	"time"
 )
 
@@ -200,11 +201,35 @@ func (s *Server) start() error {
 	}
 }
 
+// Pause freezes the server (SIGSTOP): it still accepts connections, as a
+// hung server does, but answers nothing until Resume.
+func (s *Server) Pause() error {
+	if s.cmd == nil || s.cmd.Process == nil {
+		return errors.New("prometheus is not running")
+	}
+	if err := s.cmd.Process.Signal(syscall.SIGSTOP); err != nil {
+		return fmt.Errorf("pause prometheus: %w", err)
+	}
+	return nil
+}
+
+// Resume lets a paused server go on (SIGCONT).
+func (s *Server) Resume() error {
+	if s.cmd == nil || s.cmd.Process == nil {
+		return errors.New("prometheus is not running")
+	}
+	if err := s.cmd.Process.Signal(syscall.SIGCONT); err != nil {
+		return fmt.Errorf("resume prometheus: %w", err)
+	}
+	return nil
+}
+
 // Stop stops the server and waits for it to exit. The data stays.
 func (s *Server) Stop() error {
 	if s.cmd == nil || s.cmd.Process == nil {
 		return nil
 	}
+	_ = s.cmd.Process.Signal(syscall.SIGCONT) // a paused server cannot stop
 	_ = s.cmd.Process.Signal(os.Interrupt)
 	done := make(chan error, 1)
 	go func() { done <- s.cmd.Wait() }()
