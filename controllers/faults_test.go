@@ -9,6 +9,9 @@ import (
 
 	batchv1 "k8s.io/api/batch/v1"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	"k8s.io/apimachinery/pkg/api/meta"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime/schema"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/client/interceptor"
@@ -198,5 +201,53 @@ func TestFailedActionReturnsTheErrorAlone(t *testing.T) {
 	}
 	if v := w.version("late-risk-v1"); v.Status.Number != 1 {
 		t.Errorf("the version the pass created has number %d in its status, want 1", v.Status.Number)
+	}
+}
+
+// A request the API server refuses for want of a permission is not retried
+// in a loop: the line says what is missing in Ready (PermissionDenied) with
+// one Warning event, tries again calmly, and goes on once it is granted.
+func TestMissingPermissionIsAConditionNotALoop(t *testing.T) {
+	forbidden := true
+	refuseJobs := interceptor.Funcs{Create: func(ctx context.Context, c client.WithWatch, obj client.Object, opts ...client.CreateOption) error {
+		if _, ok := obj.(*batchv1.Job); ok && forbidden {
+			return apierrors.NewForbidden(schema.GroupResource{Group: "batch", Resource: "jobs"}, obj.GetName(),
+				errors.New(`User "system:serviceaccount:plumbline-system:plumbline-manager" cannot create resource "jobs" in API group "batch" in the namespace "larkspur"`))
+		}
+		return c.Create(ctx, obj, opts...)
+	}}
+	w := newWorld(t, refuseJobs, passLine(), scorerDeployment("", "s3://larkspur/rules"))
+	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-1")
+	res, err := w.pass()
+	if err != nil || res.RequeueAfter != permissionRetry {
+		t.Fatalf("a refused permission gave %+v, %v; want a calm retry in %s and no error", res, err, permissionRetry)
+	}
+	ready := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady)
+	if ready == nil || ready.Status != metav1.ConditionFalse || ready.Reason != v1alpha1.ReasonPermissionDenied ||
+		!strings.Contains(ready.Message, `cannot create resource "jobs"`) || !strings.Contains(ready.Message, "config/rbac") {
+		t.Fatalf("Ready %+v", ready)
+	}
+	if evs := w.events(); !hasEvent(evs, "Warning", "PermissionDenied", `cannot create resource "jobs"`) {
+		t.Errorf("no PermissionDenied event: %v", evs)
+	}
+	rv := w.line().ResourceVersion
+	w.mustPass()
+	if w.line().ResourceVersion != rv {
+		t.Error("a second refused pass wrote the line again")
+	}
+	if evs := w.events(); hasEvent(evs, "PermissionDenied") {
+		t.Errorf("a second refused pass told again: %v", evs)
+	}
+
+	forbidden = false // a person granted it
+	w.mustPass()
+	if c := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady); c.Status != metav1.ConditionTrue {
+		t.Fatalf("Ready %+v after the permission was granted", c)
+	}
+	if v := w.version("late-risk-v1"); v.Status.Phase != v1alpha1.PhaseTraining {
+		t.Errorf("late-risk-v1 is %s once the Job may be created, want Training", v.Status.Phase)
+	}
+	if evs := w.events(); !hasEvent(evs, "Normal", "the line is ready") {
+		t.Errorf("no event for the recovery: %v", evs)
 	}
 }

@@ -30,6 +30,7 @@ import (
 	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/engine/promq"
 	"plumbline.dev/plumbline/internal/engine/speccheck"
+	"plumbline.dev/plumbline/internal/engine/text"
 )
 
 // Field indexes the manager keeps, so a change to a Deployment or a
@@ -108,6 +109,9 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 	lineReconciles.WithLabelValues(line.Namespace, line.Name).Inc()
 
 	obs, vw, err := r.observe(ctx, &line)
+	if apierrors.IsForbidden(err) {
+		return r.denied(ctx, orig, &line, err)
+	}
 	if err != nil {
 		// A failed read is transient: retry with backoff, and leave
 		// observedGeneration alone so nobody reads the pass as done.
@@ -117,11 +121,15 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 
 	p := &pass{now: metav1.NewTime(r.Clock.Now())}
 	ready := readyCondition(line.Spec.Suspend, obs)
-	readyChanged := setCondition(&line.Status.Conditions, ready, line.Generation, p.now)
 	var advanceErr error
 	if ready.Status == metav1.ConditionTrue {
 		advanceErr = r.advance(ctx, &line, vw, p)
 	}
+	denied := apierrors.IsForbidden(advanceErr)
+	if denied {
+		ready = permissionDenied(advanceErr)
+	}
+	readyChanged := setCondition(&line.Status.Conditions, ready, line.Generation, p.now)
 	summarize(&line, vw, p.now)
 	if advanceErr == nil {
 		line.Status.ObservedGeneration = line.Generation
@@ -167,6 +175,12 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 		m.inc()
 	}
 	recordLineMetrics(&line, vw.live())
+	if denied {
+		// Not a transient error: a person must grant the permission. The
+		// line says so and tries again calmly, without a growing backoff,
+		// so it goes on soon after the RBAC is fixed.
+		return ctrl.Result{RequeueAfter: permissionRetry}, nil
+	}
 	if advanceErr != nil {
 		// What the pass could do is written; the action that failed is
 		// retried with the error's backoff. (controller-runtime ignores a
@@ -193,6 +207,34 @@ func (r *ModelLineReconciler) requeue(p *pass) time.Duration {
 // conflictRetry is how soon a pass whose write raced another change is
 // redone.
 const conflictRetry = 200 * time.Millisecond
+
+// permissionRetry is how often a line the API server refuses the manager a
+// request for is tried again (real time).
+const permissionRetry = 30 * time.Second
+
+// permissionDenied is the Ready condition of a line the manager lacks a
+// permission for: the API server's refusal names the verb, the resource and
+// the namespace.
+func permissionDenied(err error) metav1.Condition {
+	return metav1.Condition{Type: v1alpha1.ConditionReady, Status: metav1.ConditionFalse, Reason: v1alpha1.ReasonPermissionDenied,
+		Message: text.Truncate(fmt.Sprintf("the API server refused the manager a request this line needs: %v; grant it to the manager's ServiceAccount (config/rbac holds the ClusterRole generated from the code's RBAC markers; kubectl auth can-i --as=system:serviceaccount:NAMESPACE:NAME checks it); the line tries again every %s", err, permissionRetry), 2000)}
+}
+
+// denied writes only the Ready condition of a line the manager could not
+// even read the parts of (a list or get refused), and tries again calmly.
+func (r *ModelLineReconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine, err error) (ctrl.Result, error) {
+	changed := setCondition(&line.Status.Conditions, permissionDenied(err), line.Generation, metav1.NewTime(r.Clock.Now()))
+	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
+		if err := r.Status().Patch(ctx, line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
+			return ctrl.Result{}, fmt.Errorf("write status of ModelLine %s: %w", client.ObjectKeyFromObject(line), err)
+		}
+		r.written.Store(client.ObjectKeyFromObject(line), line.ResourceVersion)
+	}
+	if changed {
+		r.eventForReady(orig, line)
+	}
+	return ctrl.Result{RequeueAfter: permissionRetry}, nil
+}
 
 // fresh makes sure the pass starts from the line as it is after this
 // controller's own last write: the cache can lag behind it, and a pass on a

@@ -636,6 +636,9 @@ const (
 	ReasonFallbackNotFound = "FallbackNotFound"
 	ReasonSuspended        = "Suspended"
 	ReasonRolledBack       = "RolledBack"
+	// ReasonPermissionDenied: the API server refused the manager a request
+	// the line needs (its RBAC lacks a permission).
+	ReasonPermissionDenied = "PermissionDenied"
 )
 
 // ModelLineStatus is what the controller last saw and did.
