@@ -102,6 +102,33 @@ func Parse(raw []byte) (*Report, error) {
 		return nil, refuse(ReasonMalformed, "dataQuality is not ok but lists no finding")
 	case r.Drift.Share < 0 || r.Drift.Share > 1:
 		return nil, refuse(ReasonMalformed, "drift.share %v is not a share", r.Drift.Share)
+	case r.Drift.Threshold < 0 || r.Drift.Threshold > 1:
+		return nil, refuse(ReasonMalformed, "drift.threshold %v is not a share", r.Drift.Threshold)
+	}
+	isShare := func(p *float64) bool { return p == nil || *p >= 0 && *p <= 1 }
+	for i, f := range r.DataQuality.Findings {
+		at := fmt.Sprintf("dataQuality.findings[%d]", i)
+		switch {
+		case f.Check == "":
+			return nil, refuse(ReasonMalformed, "%s has no check name", at)
+		case f.Count < 0:
+			return nil, refuse(ReasonMalformed, "%s.count is %d", at, f.Count)
+		case !isShare(f.Share):
+			return nil, refuse(ReasonMalformed, "%s.share %v is not a share", at, *f.Share)
+		case !isShare(f.Limit):
+			return nil, refuse(ReasonMalformed, "%s.limit %v is not a share", at, *f.Limit)
+		}
+	}
+	for i, f := range r.Drift.Features {
+		at := fmt.Sprintf("drift.features[%d]", i)
+		switch {
+		case f.Feature == "":
+			return nil, refuse(ReasonMalformed, "%s has no feature name", at)
+		case f.PSI != nil && *f.PSI < 0:
+			return nil, refuse(ReasonMalformed, "%s.psi is %v; PSI is never negative", at, *f.PSI)
+		case !isShare(f.PAdjusted):
+			return nil, refuse(ReasonMalformed, "%s.pAdjusted %v is not a probability", at, *f.PAdjusted)
+		}
 	}
 	return &r, nil
 }
