@@ -1,8 +1,10 @@
 package backtest
 
 import (
+	"errors"
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 	"time"
 
@@ -352,5 +354,41 @@ func TestStalenessEdges(t *testing.T) {
 	}
 	if _, err := Stale(flat, t0.Add(48*time.Hour), 0.8, 0.01, false, time.Hour); err == nil {
 		t.Error("points before --trained-at accepted")
+	}
+}
+
+// A gap in the history: the replay walks through it (no trigger window
+// sees a point there) and judges the points after it as the controller
+// would, a drop after the gap caught one window after the data resumes.
+func TestReplayThroughAGap(t *testing.T) {
+	h := &History{Source: "synthetic"}
+	resume := t0.Add(62 * 24 * time.Hour)
+	for ts := t0; ts.Before(t0.Add(4 * 24 * time.Hour)); ts = ts.Add(time.Minute) {
+		at := ts
+		v := 0.85
+		if ts.After(t0.Add(2 * 24 * time.Hour)) {
+			at, v = resume.Add(ts.Sub(t0.Add(2*24*time.Hour))), 0.74
+		}
+		h.Points = append(h.Points, promq.Point{T: at, V: v})
+	}
+	res, err := Replay(h, triggerPolicy("trigger", 0.78, time.Hour, 5*time.Minute), opts(0.78), 0.85)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Data resumes at resume+1m; the window is sampled every 5 minutes (13
+	// points an hour) and judged on 11 (coverage 0.8): the window ending
+	// at resume+55m is the first that holds 11 points, all below.
+	if len(res.Retrains) == 0 || !res.Retrains[0].Start.Equal(resume.Add(55*time.Minute)) {
+		t.Fatalf("retrains %+v, want the first at %s, 55 minutes after the data resumes", res.Retrains, resume.Add(55*time.Minute))
+	}
+}
+
+// A replay too long to run is refused with the reason, not ground through.
+func TestReplayTooLongIsRefused(t *testing.T) {
+	h := &History{Source: "synthetic", Points: []promq.Point{{T: t0, V: 0.85}, {T: t0.Add(100 * 365 * 24 * time.Hour), V: 0.85}}}
+	_, err := Replay(h, triggerPolicy("minutely", 0.78, 10*time.Minute, time.Minute), opts(0.78), 0.85)
+	var in *InputError
+	if !errors.As(err, &in) || !strings.Contains(err.Error(), "takes more than 1000000 steps") {
+		t.Fatalf("a century judged every minute: %v", err)
 	}
 }

@@ -165,6 +165,11 @@ func tick(p Policy, step time.Duration) time.Duration {
 	return time.Duration(g) * time.Second
 }
 
+// MaxReplaySteps bounds the moments one policy's replay visits (its grid
+// and its scheduled starts): about two years judged every minute, a few
+// seconds of replay.
+const MaxReplaySteps = 1_000_000
+
 // replayer holds one policy's replay.
 type replayer struct {
 	h        *History
@@ -217,9 +222,18 @@ func (r *replayer) run() error {
 	// Prometheus's own lookback, or the history's step when longer.
 	lookback := max(trigger.Lookback, r.h.Step())
 	nextPoint := 0
+	var longest time.Duration // the longest trigger window
+	for _, t := range r.p.Triggers {
+		longest = max(longest, time.Duration(t.ForSeconds)*time.Second)
+	}
 	// The replay's clock visits its grid (the triggers' periods) and, as
 	// the controller is woken at each, every scheduled start.
+	visits := 0
 	for now, grid := start, start; !now.After(end); {
+		if visits++; visits > MaxReplaySteps {
+			return inputErr("policy %s: replaying %s of history every %s takes more than %d steps; replay a shorter stretch of it, or judge less often",
+				r.p.Name, r.h.Span(), step, MaxReplaySteps)
+		}
 		if r.inFlight != nil && !now.Before(r.inFlight.Effect) {
 			r.takeEffect(r.inFlight.Effect)
 			r.inFlight = nil
@@ -281,6 +295,17 @@ func (r *replayer) run() error {
 		}
 		for !grid.After(now) {
 			grid = grid.Add(step)
+		}
+		// Through a gap in the history no trigger window sees a point, so
+		// the grid jumps to the next point.
+		if nextPoint > 0 && nextPoint < len(r.sim) {
+			seen := r.sim[nextPoint-1].T.Add(longest + lookback)
+			if next := r.sim[nextPoint].T; seen.Before(grid) && grid.Before(next) {
+				grid = grid.Add(next.Sub(grid).Truncate(step))
+				if grid.Before(next) {
+					grid = grid.Add(step)
+				}
+			}
 		}
 		now = grid
 		if r.p.Schedule != nil && nextSchedule.Before(now) {
