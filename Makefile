@@ -11,6 +11,8 @@ CONTROLLER_GEN_VERSION := v0.23.0
 CONTROLLER_GEN := $(BIN)/controller-gen-$(CONTROLLER_GEN_VERSION)
 KUBECTL ?= kubectl
 GO_PACKAGES := ./...
+# How long each fuzz target runs in make test and make fuzz.
+FUZZTIME ?= 3s
 # A Prometheus built by hack/build-prometheus.sh is found after the PATH's.
 export PATH := $(PATH):$(BIN)/prom
 
@@ -25,8 +27,9 @@ demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a sim
 	$(BIN)/plumbline demo --assets $(K8S_BIN) --crds config/crd/bases
 
 .PHONY: test
-test: controlplane simcluster prometheus ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster).
+test: controlplane simcluster prometheus ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster), then each fuzz target briefly.
 	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 go test -count=1 $(GO_PACKAGES)
+	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
 
 ##@ Development
 
@@ -41,6 +44,10 @@ prometheus: ## Make prometheus and promtool available: on the PATH, else Debian'
 	  echo "prometheus is not on the PATH and Debian's package needs root: building it from the Go module proxy into bin/prom"; \
 	  hack/build-prometheus.sh; \
 	fi
+
+.PHONY: fuzz
+fuzz: ## Run every fuzz target for FUZZTIME (make fuzz FUZZTIME=5m for a longer hunt).
+	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
 
 .PHONY: test-unit
 test-unit: ## Run the pure-function tests only (no API server).

@@ -202,7 +202,8 @@ func TestFormatOf(t *testing.T) {
 	}
 }
 
-// fuzzRead reads a file of any content to its end: never a panic.
+// fuzzRead reads a file of any content to its end: never a panic or a
+// hang, and every refusal names the file (a malformed row, its line too).
 func fuzzRead(t *testing.T, name string, data []byte) {
 	p := filepath.Join(t.TempDir(), name)
 	if err := os.WriteFile(p, data, 0o644); err != nil {
@@ -211,6 +212,9 @@ func fuzzRead(t *testing.T, name string, data []byte) {
 	f, _ := FormatOf(p, "")
 	r, err := Open(p, f)
 	if err != nil {
+		if !strings.Contains(err.Error(), p) {
+			t.Fatalf("refusal %q does not name the file", err)
+		}
 		return
 	}
 	defer r.Close()
@@ -218,9 +222,18 @@ func fuzzRead(t *testing.T, name string, data []byte) {
 		cells, err := r.Next()
 		var rowErr *RowError
 		if errors.As(err, &rowErr) {
+			if !strings.HasPrefix(rowErr.Where, p) || rowErr.Msg == "" {
+				t.Fatalf("malformed row %q: where %q does not name the file, or no message", err, rowErr.Where)
+			}
 			continue // the readers go on past a malformed row
 		}
+		if errors.Is(err, io.EOF) {
+			return
+		}
 		if err != nil {
+			if !strings.Contains(err.Error(), p) {
+				t.Fatalf("read error %q does not name the file", err)
+			}
 			return
 		}
 		for _, c := range cells {

@@ -1,0 +1,26 @@
+#!/usr/bin/env bash
+# Runs every Go fuzz target in the tree for a short while: FUZZTIME each
+# (default 3s; `make fuzz FUZZTIME=5m` for a longer hunt). The targets are
+# found, not listed, so a new Fuzz function runs without editing this. A
+# failing input is written under the package's testdata/fuzz/ by go test;
+# commit it with the fix, and it stays a regression test of `go test`.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+fuzztime=${FUZZTIME:-3s}
+log=$(mktemp)
+trap 'rm -f "$log"' EXIT
+n=0
+while read -r file; do
+  dir=./$(dirname "$file")
+  for name in $(grep -o '^func Fuzz[A-Za-z0-9_]*' "$file" | sed 's/^func //'); do
+    n=$((n + 1))
+    if ! go test -run '^$' -fuzz "^${name}\$" -fuzztime "$fuzztime" "$dir" >"$log" 2>&1; then
+      cat "$log"
+      echo "fuzz: $dir $name FAILED" >&2
+      exit 1
+    fi
+    execs=$(grep -o 'execs: [0-9]*' "$log" | tail -n 1 || true)
+    printf 'fuzz: %-32s %-22s %s, %s\n' "$dir" "$name" "$fuzztime" "${execs:-execs: ?}"
+  done
+done < <(git ls-files '*_test.go' | xargs grep -l '^func Fuzz' | sort)
+echo "fuzz: $n targets, no failure"
