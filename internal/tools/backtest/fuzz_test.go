@@ -19,7 +19,7 @@ func FuzzLoadCSV(f *testing.F) {
 	for _, s := range []string{
 		"time,value\n2026-11-02T00:00:00Z,0.82\n2026-11-02T00:01:00Z,0.81\n2026-11-02T00:02:00Z,0.7\n",
 		"time,value,labelled_rows,retrained\n1700000000,0.8,10,0\n1700000060,0.79,20,1\n",
-		"time,value\n2026-11-02T00:00:00Z,0.82\n2126-11-02T00:00:00Z,0.5\n",
+		"time,value\n2026-11-02T00:00:00Z,0.82\n2026-12-02T00:00:00Z,0.5\n",
 		"time,value\n1,2\n", "Value,TIME\nx,y\n", "time\n", "",
 	} {
 		f.Add([]byte(s))
