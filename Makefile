@@ -13,6 +13,8 @@ KUBECTL ?= kubectl
 GO_PACKAGES := ./...
 # How long each fuzz target runs in make test and make fuzz.
 FUZZTIME ?= 3s
+# How many seeds make chaos runs (make test runs 10).
+CHAOS_SEEDS ?= 100
 # A Prometheus built by hack/build-prometheus.sh is found after the PATH's.
 export PATH := $(PATH):$(BIN)/prom
 
@@ -44,6 +46,12 @@ prometheus: ## Make prometheus and promtool available: on the PATH, else Debian'
 	  echo "prometheus is not on the PATH and Debian's package needs root: building it from the Go module proxy into bin/prom"; \
 	  hack/build-prometheus.sh; \
 	fi
+
+.PHONY: chaos
+chaos: controlplane prometheus ## Run the fault-injection test for CHAOS_SEEDS seeds (default 100) and print its figures.
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_CHAOS_SEEDS=$(CHAOS_SEEDS) \
+	  go test -count=1 -timeout 60m ./test/integration -run '^TestChaos$$' -v 2>&1 | \
+	  grep -E '^(chaos:|    chaos_test.go:[0-9]+: seed|--- FAIL|FAIL|ok )|violation|differs'
 
 .PHONY: fuzz
 fuzz: ## Run every fuzz target for FUZZTIME (make fuzz FUZZTIME=5m for a longer hunt).

@@ -63,6 +63,9 @@ type Options struct {
 	// one (controller names must otherwise be unique per process): the demo
 	// and the restart tests do.
 	AllowSecondManager bool
+	// WrapClient, when set, wraps the client the reconcilers read and write
+	// with: the fault-injection tests refuse and time out its writes.
+	WrapClient func(client.Client) client.Client
 }
 
 // Scheme returns a scheme with the built-in types and plumbline's.
@@ -146,6 +149,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		// without waiting for the lease to expire.
 		LeaderElectionReleaseOnCancel: true,
 		Controller:                    config.Controller{SkipNameValidation: &o.AllowSecondManager},
+		NewClient:                     newClient(o.WrapClient),
 	})
 	if err != nil {
 		return nil, fmt.Errorf("create manager: %w", err)
@@ -172,4 +176,15 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, fmt.Errorf("set up ModelVersion controller: %w", err)
 	}
 	return mgr, nil
+}
+
+// newClient is controller-runtime's client, wrapped when wrap is set.
+func newClient(wrap func(client.Client) client.Client) client.NewClientFunc {
+	return func(cfg *rest.Config, o client.Options) (client.Client, error) {
+		c, err := client.New(cfg, o)
+		if err != nil || wrap == nil {
+			return c, err
+		}
+		return wrap(c), nil
+	}
 }

@@ -156,11 +156,15 @@ var running struct {
 	done   chan error
 }
 
+// managerWrap, when set, wraps the client of every manager started: the
+// fault-injection test sets it.
+var managerWrap func(client.Client) client.Client
+
 // startManager starts a manager as plumbline manager would.
 func startManager() error {
 	ctx, cancel := context.WithCancel(context.Background())
 	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clock.Manual{PassiveClock: clk},
-		AllowSecondManager: true, PrometheusURL: prometheusURL, PrometheusTimeout: prometheusTimeout})
+		AllowSecondManager: true, PrometheusURL: prometheusURL, PrometheusTimeout: prometheusTimeout, WrapClient: managerWrap})
 	if err != nil {
 		cancel()
 		return err
