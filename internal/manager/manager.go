@@ -25,7 +25,9 @@ import (
 	metricsserver "sigs.k8s.io/controller-runtime/pkg/metrics/server"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/controllers"
+	"plumbline.dev/plumbline/controllers/index"
+	"plumbline.dev/plumbline/controllers/modelline"
+	"plumbline.dev/plumbline/controllers/modelversion"
 	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/engine/promq"
 )
@@ -162,16 +164,19 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	}
 
 	recorder := mgr.GetEventRecorder(ControllerName)
-	lines := &controllers.ModelLineReconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
+	if err := index.Register(ctx, mgr); err != nil {
+		return nil, err
+	}
+	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
 		Prometheus: prom, Coverage: o.TriggerCoverage}
 	workers := o.MaxConcurrentReconciles
 	if workers <= 0 {
 		workers = 4
 	}
-	if err := lines.SetupWithManager(ctx, mgr, workers); err != nil {
+	if err := lines.SetupWithManager(mgr, workers); err != nil {
 		return nil, fmt.Errorf("set up ModelLine controller: %w", err)
 	}
-	versions := &controllers.ModelVersionReconciler{Client: mgr.GetClient(), Clock: clk, Recorder: recorder}
+	versions := &modelversion.Reconciler{Client: mgr.GetClient(), Clock: clk, Recorder: recorder}
 	if err := versions.SetupWithManager(mgr); err != nil {
 		return nil, fmt.Errorf("set up ModelVersion controller: %w", err)
 	}

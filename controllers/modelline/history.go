@@ -1,7 +1,12 @@
-package controllers
+package modelline
 
 import (
+	"context"
+	"fmt"
 	"sort"
+
+	corev1 "k8s.io/api/core/v1"
+	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 )
@@ -36,4 +41,28 @@ func pruneList(versions []*v1alpha1.ModelVersion, live, previous string, limit i
 		return nil
 	}
 	return finished[:len(finished)-int(limit)]
+}
+
+// prune deletes the finished versions history no longer keeps.
+func (r *Reconciler) prune(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	limit := int32(10)
+	if line.Spec.HistoryLimit != nil {
+		limit = *line.Spec.HistoryLimit
+	}
+	live, previous := "", ""
+	if l := vw.live(); l != nil {
+		live = l.Name
+		if l.Status.Promotion != nil {
+			previous = l.Status.Promotion.FromVersion
+		}
+	}
+	for _, v := range pruneList(vw.versions, live, previous, limit) {
+		if err := r.Delete(ctx, v, client.Preconditions{UID: &v.UID}); client.IgnoreNotFound(err) != nil {
+			return fmt.Errorf("prune version %s: %w", v.Name, err)
+		}
+		now := p.now
+		v.DeletionTimestamp = &now
+		p.eventFor("Prune/"+v.Name, line, nil, corev1.EventTypeNormal, "Pruned", "deleted %s version %s: history keeps %d finished versions (spec.historyLimit)", v.Status.Phase, v.Name, limit)
+	}
+	return nil
 }

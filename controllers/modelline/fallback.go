@@ -1,26 +1,196 @@
-package controllers
+package modelline
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"math"
+	"strconv"
+	"strings"
 	"time"
 
 	corev1 "k8s.io/api/core/v1"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
-	"k8s.io/apimachinery/pkg/types"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
-	"plumbline.dev/plumbline/internal/engine/promq"
 	"plumbline.dev/plumbline/internal/engine/text"
 	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
-// guardKey prefixes the guard's entry in the evaluation memory; trigger
-// names cannot hold a colon, so the two never meet.
-const guardKey = "guard:"
+// Why alternatives are evaluated, and how it ended.
+const (
+	altInsufficientData  = "InsufficientData"
+	altCandidateRejected = "CandidateRejected"
+	altSwitched          = "Switched"
+	altNoneQualified     = "NoneQualified"
+	altSuperseded        = "Superseded"
+	roleAlternative      = "alternative"
+)
+
+// alternatives are the versions the line could serve instead of the live
+// one without training: the line's fallbacks (policy.Fallbacks).
+func alternatives(line *v1alpha1.ModelLine, vw *view) []*v1alpha1.ModelVersion {
+	fbs, _ := policy.Fallbacks(line.Spec.Fallback, vw.live(), vw.version)
+	out := make([]*v1alpha1.ModelVersion, 0, len(fbs))
+	for _, f := range fbs {
+		out = append(out, f.Version)
+	}
+	return out
+}
+
+// alternativeJobName names the evaluation Job of an alternative in the
+// line's n-th evaluation of alternatives.
+func alternativeJobName(version string, n int32) string {
+	return jobName(version, fmt.Sprintf("alt%d", n))
+}
+
+// startAlternatives evaluates the alternatives against the degraded live
+// version with the line's gate Job and criteria. It reports whether an
+// evaluation is under way (started now or before); false means none can
+// help: there is nothing to try, or they were tried against this live
+// version already.
+func (r *Reconciler) startAlternatives(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason string) (bool, error) {
+	live := vw.live()
+	if live == nil {
+		return false, nil
+	}
+	if a := line.Status.Alternatives; a != nil && a.Against == live.Name {
+		return a.Outcome == "", nil
+	}
+	alts := alternatives(line, vw)
+	if len(alts) == 0 {
+		return false, nil
+	}
+	n := int32(1)
+	if a := line.Status.Alternatives; a != nil {
+		n = a.Number + 1
+	}
+	st := &v1alpha1.AlternativesStatus{Number: n, Reason: reason, Against: live.Name, StartedTime: p.now.DeepCopy()}
+	var names []string
+	for _, alt := range alts {
+		job := buildGateJob(line, alt, live, dataWindow{to: p.now.Time})
+		job.Name = alternativeJobName(alt.Name, n)
+		job.Labels[v1alpha1.RoleLabel] = roleAlternative
+		job.Spec.Template.Labels[v1alpha1.RoleLabel] = roleAlternative
+		got, _, err := r.ensureJob(ctx, job, alt)
+		if err != nil {
+			return false, fmt.Errorf("evaluate alternative %s: %w", alt.Name, err)
+		}
+		st.Candidates = append(st.Candidates, v1alpha1.AlternativeResult{Version: alt.Name, Job: got.Name})
+		names = append(names, alt.Name)
+	}
+	line.Status.Alternatives = st
+	p.eventFor(fmt.Sprintf("Alternatives/%d", n), line, live, corev1.EventTypeNormal, "EvaluatingAlternatives",
+		"%s: evaluating %s against %s on the golden set", reason, strings.Join(names, " and "), live.Name)
+	return true, nil
+}
+
+// watchAlternatives follows an evaluation of alternatives to its end and
+// switches to the best one that passed, or asks a person to review.
+func (r *Reconciler) watchAlternatives(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	a := line.Status.Alternatives
+	if a == nil || a.Outcome != "" {
+		return nil
+	}
+	if live := vw.live(); live == nil || live.Name != a.Against {
+		a.Outcome = altSuperseded
+		return nil
+	}
+	pending := false
+	for i := range a.Candidates {
+		c := &a.Candidates[i]
+		if c.Verdict != "" {
+			continue
+		}
+		job, err := r.jobNamed(ctx, vw, line.Namespace, c.Job)
+		if err != nil {
+			return err
+		}
+		if job == nil {
+			c.Verdict, c.Message = v1alpha1.GateFailed, fmt.Sprintf("evaluation Job %s was deleted before it finished", c.Job)
+			continue
+		}
+		res, done, err := r.judgeGateJob(ctx, line, job, p)
+		if err != nil {
+			return err
+		}
+		if !done {
+			pending = true
+			continue
+		}
+		c.Verdict, c.Message = res.Verdict, text.Truncate(res.Reason+": "+res.Message, 2000)
+		if len(res.Criteria) > 0 {
+			c.Score = res.Criteria[0].Candidate
+		}
+	}
+	if pending {
+		return nil
+	}
+	best := bestAlternative(line, a.Candidates)
+	if best == nil {
+		a.Outcome = altNoneQualified
+		var why []string
+		for _, c := range a.Candidates {
+			why = append(why, fmt.Sprintf("%s: %s", c.Version, c.Message))
+		}
+		msg := fmt.Sprintf("%s, and no alternative beats %s on the golden set (%s): a person should decide", altReasonText(a.Reason), a.Against, strings.Join(why, "; "))
+		if setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionTrue, Reason: "NoAlternativeQualified", Message: text.Truncate(msg, 2000)}, line.Generation, p.now) {
+			p.eventFor(fmt.Sprintf("Alternatives/%d", a.Number), line, nil, corev1.EventTypeWarning, "NeedsReview", "%s", msg)
+		}
+		return nil
+	}
+	target := vw.version(best.Version)
+	if target == nil {
+		a.Outcome = altNoneQualified
+		return nil
+	}
+	a.Outcome, a.Chosen = altSwitched, target.Name
+	msg := fmt.Sprintf("%s; %s passed the gate against %s (score %s): switching to it", altReasonText(a.Reason), target.Name, a.Against, orNone(best.Score))
+	startPromotionAs(line, vw, target, p, v1alpha1.PromotionAlternative, "AlternativeChosen", msg)
+	p.eventFor(fmt.Sprintf("Alternatives/%d", a.Number), line, target, corev1.EventTypeWarning, "AlternativeChosen", "%s", msg)
+	target2 := "previous"
+	if target.Spec.Source == v1alpha1.SourceRuleBased {
+		target2 = "rule-based"
+	}
+	p.countFor(target.Name, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, target2).Inc() })
+	return nil
+}
+
+func altReasonText(reason string) string {
+	if reason == altInsufficientData {
+		return "too little fresh data to retrain"
+	}
+	return "the retrained candidate failed its gate while the live version is degraded"
+}
+
+// bestAlternative is the passing alternative with the best score on the
+// first criterion's metric (in its direction), the first listed on a tie.
+func bestAlternative(line *v1alpha1.ModelLine, cs []v1alpha1.AlternativeResult) *v1alpha1.AlternativeResult {
+	dir := v1alpha1.HigherIsBetter
+	if len(line.Spec.Gate.Criteria) > 0 {
+		dir = line.Spec.Gate.Criteria[0].EffectiveDirection()
+	}
+	score := func(c v1alpha1.AlternativeResult) float64 {
+		v, err := strconv.ParseFloat(c.Score, 64)
+		if err != nil || math.IsNaN(v) {
+			return math.Inf(-1)
+		}
+		if dir == v1alpha1.LowerIsBetter {
+			return -v
+		}
+		return v
+	}
+	var best *v1alpha1.AlternativeResult
+	for i := range cs {
+		if cs[i].Verdict != v1alpha1.GatePassed {
+			continue
+		}
+		if best == nil || score(cs[i]) > score(*best) {
+			best = &cs[i]
+		}
+	}
+	return best
+}
 
 // Degraded condition reasons.
 const (
@@ -34,63 +204,6 @@ const (
 	reasonRollbackWaits     = "RollbackWaits"
 	reasonSwitchingFallback = "SwitchingToFallback"
 )
-
-// evaluateGuard judges the guard on the live version when it is due, and
-// returns the result (nil when it was not judged in this pass). The window
-// only counts once it lies wholly after the promotion: before that the guard
-// watches and does not judge.
-func (r *ModelLineReconciler) evaluateGuard(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) *trigger.Result {
-	g := line.Spec.Guard
-	live := vw.live()
-	if g == nil || live == nil || live.Status.PromotedTime == nil {
-		line.Status.Guard = nil
-		return nil
-	}
-	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
-	now := p.now.Time
-	every := seconds(g.EverySeconds)
-	if every <= 0 {
-		every = time.Minute
-	}
-	name := guardKey + live.Name
-	due, next := r.evals.due(key, line.Generation, name, every, now)
-	if !due {
-		p.wakeAt(next)
-		return nil
-	}
-	w := trigger.Window{For: seconds(g.ForSeconds), Every: every, Coverage: r.Coverage}
-	promoted := live.Status.PromotedTime.Time
-	var res trigger.Result
-	if firstFull := promoted.Add(w.For); now.Before(firstFull) {
-		res = trigger.Result{State: v1alpha1.TriggerInactive, Value: math.NaN(),
-			Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", live.Name, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
-		p.wakeAt(firstFull)
-	} else {
-		series, err := r.Prometheus.Range(ctx, g.Query, now.Add(-w.For), now, w.Step())
-		if err != nil {
-			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
-		} else {
-			res = trigger.Judge(series, threshold(g.Below, g.Above), w, now)
-		}
-		if !errors.Is(err, promq.ErrNotConfigured) {
-			p.wakeAt(next)
-		}
-	}
-	p.evaluated = append(p.evaluated, name)
-	recordGuard(line, res)
-	prev := line.Status.Guard
-	if prev != nil && prev.Name != live.Name {
-		prev = nil // a new live version: a new watch
-	}
-	st := nextTriggerStatus(prev, live.Name, res, p.now)
-	if prev == nil || prev.State != st.State {
-		if !(prev == nil && st.State == v1alpha1.TriggerInactive) {
-			p.eventFor("Guard/"+live.Name, line, live, triggerEventType(st.State), "Guard"+string(st.State), "guard on %s is %s: %s", live.Name, st.State, st.Message)
-		}
-	}
-	line.Status.Guard = &st
-	return &res
-}
 
 // guardVerdict is what a guard result calls for.
 type guardVerdict struct {
@@ -174,7 +287,7 @@ func decideGuard(line *v1alpha1.ModelLine, vw *view, res trigger.Result, now tim
 }
 
 // guard acts on the guard's result: conditions, and a switch when called for.
-func (r *ModelLineReconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass, res *trigger.Result) {
+func (r *Reconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass, res *trigger.Result) {
 	if line.Spec.Guard == nil {
 		return
 	}
@@ -209,7 +322,7 @@ func (r *ModelLineReconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass,
 // plumbline.dev/rollback-to annotation again: an archived version of the
 // line (even one the guard rolled back) or its rule-based version. It goes
 // through the same promotion path, with its revert on a failed rollout.
-func (r *ModelLineReconciler) handleRollbackRequest(line *v1alpha1.ModelLine, vw *view, p *pass) {
+func (r *Reconciler) handleRollbackRequest(line *v1alpha1.ModelLine, vw *view, p *pass) {
 	name, ok := line.Annotations[v1alpha1.RollbackRequestAnnotation]
 	if !ok || name == line.Status.LastRollbackRequest {
 		return
@@ -236,13 +349,4 @@ func (r *ModelLineReconciler) handleRollbackRequest(line *v1alpha1.ModelLine, vw
 	startPromotionAs(line, vw, target, p, v1alpha1.PromotionRequested, "RequestedByPerson", msg)
 	p.eventFor("Rollback/"+target.Name, line, target, corev1.EventTypeNormal, "RollbackRequested", "%s", msg)
 	p.countFor(target.Name, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, "requested").Inc() })
-}
-
-func conditionReason(line *v1alpha1.ModelLine, typ string) string {
-	for _, c := range line.Status.Conditions {
-		if c.Type == typ {
-			return c.Reason
-		}
-	}
-	return ""
 }

@@ -1,4 +1,4 @@
-package controllers
+package modelline
 
 import (
 	"context"
@@ -27,6 +27,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client/interceptor"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/controllers/index"
 	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/engine/promq"
 )
@@ -73,7 +74,7 @@ func (s *stubProm) Instant(_ context.Context, q string, at time.Time) ([]promq.S
 type world struct {
 	t    *testing.T
 	c    client.WithWatch
-	r    *ModelLineReconciler
+	r    *Reconciler
 	clk  *clocktesting.FakePassiveClock
 	prom *stubProm
 	rec  *events.FakeRecorder
@@ -96,15 +97,13 @@ func newWorld(t *testing.T, funcs interceptor.Funcs, line *v1alpha1.ModelLine, o
 	base := fake.NewClientBuilder().WithScheme(s).
 		WithObjects(append([]client.Object{line}, objs...)...).
 		WithStatusSubresource(&v1alpha1.ModelLine{}, &v1alpha1.ModelVersion{}).
-		WithIndex(&v1alpha1.ModelVersion{}, indexVersionLine, func(o client.Object) []string {
-			return []string{o.(*v1alpha1.ModelVersion).Spec.Line}
-		}).
+		WithIndex(&v1alpha1.ModelVersion{}, index.VersionLine, index.LineOfVersion).
 		Build()
 	c := interceptor.NewClient(interceptor.NewClient(base, apiServerGenerations()), funcs)
 	clk := clocktesting.NewFakePassiveClock(passStart)
 	prom := &stubProm{value: func(string, time.Time) float64 { return 0.9 }}
 	rec := events.NewFakeRecorder(1000)
-	r := &ModelLineReconciler{Client: c, APIReader: c, Clock: clock.Manual{PassiveClock: clk}, Recorder: rec, Prometheus: prom}
+	r := &Reconciler{Client: c, APIReader: c, Clock: clock.Manual{PassiveClock: clk}, Recorder: rec, Prometheus: prom}
 	return &world{t: t, c: c, r: r, clk: clk, prom: prom, rec: rec, key: client.ObjectKeyFromObject(line)}
 }
 

@@ -1,10 +1,12 @@
-package controllers
+package modelline
 
 import (
 	"context"
 	"fmt"
 	"sort"
 	"strings"
+	"sync"
+	"time"
 
 	appsv1 "k8s.io/api/apps/v1"
 	batchv1 "k8s.io/api/batch/v1"
@@ -14,9 +16,6 @@ import (
 	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/client-go/tools/events"
-	"sync"
-	"time"
-
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/builder"
 	"sigs.k8s.io/controller-runtime/pkg/client"
@@ -27,17 +26,10 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/reconcile"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/controllers/index"
 	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/engine/promq"
 	"plumbline.dev/plumbline/internal/engine/speccheck"
-	"plumbline.dev/plumbline/internal/engine/text"
-)
-
-// Field indexes the manager keeps, so a change to a Deployment or a
-// ModelVersion finds its lines without listing them all.
-const (
-	indexServingDeployment = "spec.serving.deploymentName"
-	indexVersionLine       = "spec.line"
 )
 
 // The permissions the manager needs, gathered into config/rbac by
@@ -51,9 +43,9 @@ const (
 // +kubebuilder:rbac:groups=events.k8s.io,resources=events,verbs=create;patch
 // +kubebuilder:rbac:groups="",resources=events,verbs=create;patch
 
-// ModelLineReconciler keeps a ModelLine's status true to its spec and the
+// Reconciler keeps a ModelLine's status true to its spec and the
 // cluster.
-type ModelLineReconciler struct {
+type Reconciler struct {
 	client.Client
 	// APIReader reads past the cache: Pods (which are not cached) and objects
 	// just created, which the cache may not hold yet.
@@ -91,7 +83,7 @@ type lineObservation struct {
 // happen next, does at most one outside action per version (create a Job,
 // patch the Deployment), writes each changed status once, then emits the
 // events and metrics for what changed.
-func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
+func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
 	var line v1alpha1.ModelLine
 	if err := r.Get(ctx, req.NamespacedName, &line); err != nil {
 		if apierrors.IsNotFound(err) {
@@ -193,7 +185,7 @@ func (r *ModelLineReconciler) Reconcile(ctx context.Context, req ctrl.Request) (
 }
 
 // requeue turns the pass's wake time into the real time to wait.
-func (r *ModelLineReconciler) requeue(p *pass) time.Duration {
+func (r *Reconciler) requeue(p *pass) time.Duration {
 	if p.wake.IsZero() {
 		return 0
 	}
@@ -212,17 +204,9 @@ const conflictRetry = 200 * time.Millisecond
 // request for is tried again (real time).
 const permissionRetry = 30 * time.Second
 
-// permissionDenied is the Ready condition of a line the manager lacks a
-// permission for: the API server's refusal names the verb, the resource and
-// the namespace.
-func permissionDenied(err error) metav1.Condition {
-	return metav1.Condition{Type: v1alpha1.ConditionReady, Status: metav1.ConditionFalse, Reason: v1alpha1.ReasonPermissionDenied,
-		Message: text.Truncate(fmt.Sprintf("the API server refused the manager a request this line needs: %v; grant it to the manager's ServiceAccount (config/rbac holds the ClusterRole generated from the code's RBAC markers; kubectl auth can-i --as=system:serviceaccount:NAMESPACE:NAME checks it); the line tries again every %s", err, permissionRetry), 2000)}
-}
-
 // denied writes only the Ready condition of a line the manager could not
 // even read the parts of (a list or get refused), and tries again calmly.
-func (r *ModelLineReconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine, err error) (ctrl.Result, error) {
+func (r *Reconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine, err error) (ctrl.Result, error) {
 	changed := setCondition(&line.Status.Conditions, permissionDenied(err), line.Generation, metav1.NewTime(r.Clock.Now()))
 	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
 		if err := r.Status().Patch(ctx, line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
@@ -242,7 +226,7 @@ func (r *ModelLineReconciler) denied(ctx context.Context, orig, line *v1alpha1.M
 // last seen, the line is read from the API server, and the copy read is
 // remembered as the newest: an edit by someone else costs one read, not one
 // per pass from then on.
-func (r *ModelLineReconciler) fresh(ctx context.Context, line *v1alpha1.ModelLine) error {
+func (r *Reconciler) fresh(ctx context.Context, line *v1alpha1.ModelLine) error {
 	key := client.ObjectKeyFromObject(line)
 	rv, ok := r.written.Load(key)
 	if !ok || rv == line.ResourceVersion {
@@ -258,7 +242,7 @@ func (r *ModelLineReconciler) fresh(ctx context.Context, line *v1alpha1.ModelLin
 // emit sends the pass's events. With only set, only the events about those
 // versions, or related to them, go out (what happened to them is recorded;
 // the rest was not and will be recomputed).
-func (r *ModelLineReconciler) emit(p *pass, only map[string]bool) {
+func (r *Reconciler) emit(p *pass, only map[string]bool) {
 	about := func(o runtime.Object) bool {
 		v, ok := o.(*v1alpha1.ModelVersion)
 		return ok && only[v.Name]
@@ -281,7 +265,7 @@ func snapshot(vs []*v1alpha1.ModelVersion) map[string]v1alpha1.ModelVersionStatu
 }
 
 // writeVersions writes the status of each version the pass changed, once.
-func (r *ModelLineReconciler) writeVersions(ctx context.Context, vw *view, before map[string]v1alpha1.ModelVersionStatus) (map[string]bool, error) {
+func (r *Reconciler) writeVersions(ctx context.Context, vw *view, before map[string]v1alpha1.ModelVersionStatus) (map[string]bool, error) {
 	written := map[string]bool{}
 	for _, v := range vw.versions {
 		if v.DeletionTimestamp != nil {
@@ -304,7 +288,7 @@ func (r *ModelLineReconciler) writeVersions(ctx context.Context, vw *view, befor
 
 // observe reads the serving Deployment, the line's versions and Jobs, and
 // the rule-based fallback.
-func (r *ModelLineReconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lineObservation, *view, error) {
+func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lineObservation, *view, error) {
 	obs := lineObservation{problems: speccheck.Line(&line.Spec)}
 	vw := &view{jobs: map[string]*batchv1.Job{}}
 
@@ -321,7 +305,7 @@ func (r *ModelLineReconciler) observe(ctx context.Context, line *v1alpha1.ModelL
 	}
 
 	var versions v1alpha1.ModelVersionList
-	if err := r.List(ctx, &versions, client.InNamespace(line.Namespace), client.MatchingFields{indexVersionLine: line.Name}); err != nil {
+	if err := r.List(ctx, &versions, client.InNamespace(line.Namespace), client.MatchingFields{index.VersionLine: line.Name}); err != nil {
 		return obs, nil, fmt.Errorf("list versions of %s: %w", line.Name, err)
 	}
 	for i := range versions.Items {
@@ -392,29 +376,9 @@ func fallbackProblems(line string, v *v1alpha1.ModelVersion) []speccheck.Problem
 	return ps
 }
 
-// readyCondition is the line's Ready condition: spec problems first (a person
-// must edit the line), then a missing Deployment or fallback (something else
-// must appear), then suspension.
-func readyCondition(suspended bool, obs lineObservation) metav1.Condition {
-	c := metav1.Condition{Type: v1alpha1.ConditionReady}
-	switch {
-	case len(obs.problems) > 0:
-		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, speccheck.Join(obs.problems)
-	case obs.servingMissing != "":
-		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, obs.servingMissing
-	case obs.fallbackMissing != "":
-		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, obs.fallbackMissing
-	case suspended:
-		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend is true: the controller reports status but does not act on this line"
-	default:
-		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "the spec is valid and the serving Deployment is there"
-	}
-	return c
-}
-
 // eventForReady tells a person why the line is not ready, once per change,
 // or that it recovered.
-func (r *ModelLineReconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
+func (r *Reconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
 	wasFalse := conditionIs(orig.Status.Conditions, v1alpha1.ConditionReady, metav1.ConditionFalse)
 	for _, c := range line.Status.Conditions {
 		if c.Type != v1alpha1.ConditionReady {
@@ -429,18 +393,9 @@ func (r *ModelLineReconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
 	}
 }
 
-// SetupWithManager registers the reconciler, its indexes and its watches.
-func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Manager, workers int) error {
-	if err := mgr.GetFieldIndexer().IndexField(ctx, &v1alpha1.ModelLine{}, indexServingDeployment, func(o client.Object) []string {
-		return []string{o.(*v1alpha1.ModelLine).Spec.Serving.DeploymentName}
-	}); err != nil {
-		return fmt.Errorf("index ModelLines by serving Deployment: %w", err)
-	}
-	if err := mgr.GetFieldIndexer().IndexField(ctx, &v1alpha1.ModelVersion{}, indexVersionLine, func(o client.Object) []string {
-		return []string{o.(*v1alpha1.ModelVersion).Spec.Line}
-	}); err != nil {
-		return fmt.Errorf("index ModelVersions by line: %w", err)
-	}
+// SetupWithManager registers the reconciler and its watches. The indexes
+// it lists by are registered by index.Register.
+func (r *Reconciler) SetupWithManager(mgr ctrl.Manager, workers int) error {
 	return ctrl.NewControllerManagedBy(mgr).
 		Named("modelline").
 		WithOptions(controller.Options{MaxConcurrentReconciles: workers}).
@@ -454,9 +409,9 @@ func (r *ModelLineReconciler) SetupWithManager(ctx context.Context, mgr ctrl.Man
 }
 
 // linesServedBy maps a Deployment to the lines it serves.
-func (r *ModelLineReconciler) linesServedBy(ctx context.Context, o client.Object) []reconcile.Request {
+func (r *Reconciler) linesServedBy(ctx context.Context, o client.Object) []reconcile.Request {
 	var lines v1alpha1.ModelLineList
-	if err := r.List(ctx, &lines, client.InNamespace(o.GetNamespace()), client.MatchingFields{indexServingDeployment: o.GetName()}); err != nil {
+	if err := r.List(ctx, &lines, client.InNamespace(o.GetNamespace()), client.MatchingFields{index.ServingDeployment: o.GetName()}); err != nil {
 		log.FromContext(ctx).Error(err, "list ModelLines served by Deployment", "deployment", client.ObjectKeyFromObject(o))
 		return nil
 	}
@@ -469,7 +424,7 @@ func (r *ModelLineReconciler) linesServedBy(ctx context.Context, o client.Object
 
 // lineOfJob maps a Job to the line that owns it (a check Job) or to the
 // line of the version that owns it.
-func (r *ModelLineReconciler) lineOfJob(ctx context.Context, o client.Object) []reconcile.Request {
+func (r *Reconciler) lineOfJob(ctx context.Context, o client.Object) []reconcile.Request {
 	owner := metav1.GetControllerOf(o)
 	if owner == nil || owner.APIVersion != v1alpha1.GroupVersion.String() {
 		return nil

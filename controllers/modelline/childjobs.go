@@ -1,8 +1,10 @@
-package controllers
+package modelline
 
 import (
+	"context"
 	"crypto/sha256"
 	"encoding/hex"
+	"errors"
 	"fmt"
 	"strconv"
 	"strings"
@@ -10,11 +12,31 @@ import (
 
 	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/tools/evaluate"
 )
+
+// jobNamed reads a Job of the line by name, from the cache or, when the
+// cache does not have it yet, from the API server; nil when it is gone.
+func (r *Reconciler) jobNamed(ctx context.Context, vw *view, namespace, name string) (*batchv1.Job, error) {
+	if job := vw.jobs[name]; job != nil {
+		return job, nil
+	}
+	var job batchv1.Job
+	err := r.APIReader.Get(ctx, types.NamespacedName{Namespace: namespace, Name: name}, &job)
+	if apierrors.IsNotFound(err) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("read Job %s: %w", name, err)
+	}
+	return &job, nil
+}
 
 // Job roles, in the plumbline.dev/role label and the Job name's suffix.
 const (
@@ -337,4 +359,48 @@ func better(a, b *corev1.Pod) bool {
 		return as
 	}
 	return b.CreationTimestamp.Before(&a.CreationTimestamp)
+}
+
+// errJobNameTaken is a Job with the version's Job name that the version does
+// not own.
+var errJobNameTaken = errors.New("job name taken")
+
+// ensureJob creates a Job, or finds the one an earlier pass created under
+// the same deterministic name. A Job of that name that the version does not
+// own is errJobNameTaken.
+func (r *Reconciler) ensureJob(ctx context.Context, want *batchv1.Job, owner *v1alpha1.ModelVersion) (*batchv1.Job, bool, error) {
+	err := r.Create(ctx, want)
+	if err == nil {
+		return want, true, nil
+	}
+	if !apierrors.IsAlreadyExists(err) {
+		return nil, false, fmt.Errorf("create Job %s: %w", want.Name, err)
+	}
+	var got batchv1.Job
+	if err := r.APIReader.Get(ctx, client.ObjectKeyFromObject(want), &got); err != nil {
+		return nil, false, fmt.Errorf("read existing Job %s: %w", want.Name, err)
+	}
+	if !metav1.IsControlledBy(&got, owner) {
+		return nil, false, errJobNameTaken
+	}
+	return &got, false, nil
+}
+
+// findJob returns the version's Job for a role: from the cache, or, right
+// after its creation when the cache may lag, from the API server. nil means
+// it does not exist.
+func (r *Reconciler) findJob(ctx context.Context, vw *view, v *v1alpha1.ModelVersion, role string) (*batchv1.Job, error) {
+	name := jobName(v.Name, role)
+	if job := vw.jobs[name]; job != nil {
+		return job, nil
+	}
+	var job batchv1.Job
+	err := r.APIReader.Get(ctx, types.NamespacedName{Namespace: v.Namespace, Name: name}, &job)
+	if apierrors.IsNotFound(err) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("read Job %s: %w", name, err)
+	}
+	return &job, nil
 }

@@ -1,52 +1,86 @@
-package controllers
+package modelline
 
 import (
 	"fmt"
-	"strconv"
 	"time"
 
+	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
+	"plumbline.dev/plumbline/internal/engine/text"
 )
 
-// summarize derives the line's status from its versions: which is live and
-// which served before it, the last promotion and retrain, the version count,
-// and the Retraining and AwaitingApproval conditions. The versions are the
-// record; the line's status is a view of them.
-func summarize(line *v1alpha1.ModelLine, vw *view, now metav1.Time) {
-	st := &line.Status
-	st.LiveVersion, st.PreviousVersion = "", ""
-	if live := vw.live(); live != nil {
-		st.LiveVersion = live.Name
-		if live.Status.Promotion != nil {
-			st.PreviousVersion = live.Status.Promotion.FromVersion
-		}
-		if t := live.Status.PromotedTime; t != nil && (st.LastPromotionTime == nil || st.LastPromotionTime.Before(t)) {
-			st.LastPromotionTime = t.DeepCopy()
+// setCondition sets c in conds, stamping observedGeneration, and taking the
+// transition time from the injected clock when the status changed (the
+// apimachinery helper would read the wall clock). It reports whether the
+// status, reason or message changed: the cases worth an event.
+func setCondition(conds *[]metav1.Condition, c metav1.Condition, generation int64, now metav1.Time) bool {
+	c.ObservedGeneration = generation
+	old := meta.FindStatusCondition(*conds, c.Type)
+	changed := old == nil || old.Status != c.Status || old.Reason != c.Reason || old.Message != c.Message
+	if old == nil || old.Status != c.Status {
+		c.LastTransitionTime = now
+	} else {
+		c.LastTransitionTime = old.LastTransitionTime
+	}
+	meta.SetStatusCondition(conds, c)
+	return changed
+}
+
+// conditionIs reports whether conds holds condition t with status s.
+func conditionIs(conds []metav1.Condition, t string, s metav1.ConditionStatus) bool {
+	c := meta.FindStatusCondition(conds, t)
+	return c != nil && c.Status == s
+}
+
+// setConditionSticky is setCondition for conditions whose message carries a
+// live measurement: while the status and reason hold, the message seen when
+// they last changed is kept, so an evaluation that finds nothing new writes
+// nothing. It reports whether the status or reason changed.
+func setConditionSticky(conds *[]metav1.Condition, c metav1.Condition, generation int64, now metav1.Time) bool {
+	if old := meta.FindStatusCondition(*conds, c.Type); old != nil && old.Status == c.Status && old.Reason == c.Reason {
+		c.Message = old.Message
+	}
+	return setCondition(conds, c, generation, now)
+}
+
+func conditionReason(line *v1alpha1.ModelLine, typ string) string {
+	for _, c := range line.Status.Conditions {
+		if c.Type == typ {
+			return c.Reason
 		}
 	}
-	st.ActiveVersion = ""
-	if a := vw.active(); a != nil {
-		st.ActiveVersion = a.Name
+	return ""
+}
+
+// permissionDenied is the Ready condition of a line the manager lacks a
+// permission for: the API server's refusal names the verb, the resource and
+// the namespace.
+func permissionDenied(err error) metav1.Condition {
+	return metav1.Condition{Type: v1alpha1.ConditionReady, Status: metav1.ConditionFalse, Reason: v1alpha1.ReasonPermissionDenied,
+		Message: text.Truncate(fmt.Sprintf("the API server refused the manager a request this line needs: %v; grant it to the manager's ServiceAccount (config/rbac holds the ClusterRole generated from the code's RBAC markers; kubectl auth can-i --as=system:serviceaccount:NAMESPACE:NAME checks it); the line tries again every %s", err, permissionRetry), 2000)}
+}
+
+// readyCondition is the line's Ready condition: spec problems first (a person
+// must edit the line), then a missing Deployment or fallback (something else
+// must appear), then suspension.
+func readyCondition(suspended bool, obs lineObservation) metav1.Condition {
+	c := metav1.Condition{Type: v1alpha1.ConditionReady}
+	switch {
+	case len(obs.problems) > 0:
+		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, speccheck.Join(obs.problems)
+	case obs.servingMissing != "":
+		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, obs.servingMissing
+	case obs.fallbackMissing != "":
+		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, obs.fallbackMissing
+	case suspended:
+		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend is true: the controller reports status but does not act on this line"
+	default:
+		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "the spec is valid and the serving Deployment is there"
 	}
-	for _, v := range vw.versions {
-		if n, err := strconv.ParseInt(v.Labels[numberLabel], 10, 32); err == nil && int32(n) > st.VersionCount {
-			st.VersionCount = int32(n)
-		}
-		// A version's data window ends when its training started: the
-		// line's last retrain is the newest of those, and nothing else
-		// writes it.
-		if t := v.Status.DataTo; t != nil && (st.LastRetrainTime == nil || st.LastRetrainTime.Before(t)) {
-			st.LastRetrainTime = t.DeepCopy()
-		}
-	}
-	if last := lastAutomaticRollback(vw); last != nil {
-		st.LastRollbackTime = &metav1.Time{Time: *last}
-	}
-	setCondition(&st.Conditions, retrainingCondition(vw), line.Generation, now)
-	setCondition(&st.Conditions, awaitingApprovalCondition(vw), line.Generation, now)
-	setCondition(&st.Conditions, fallbackCondition(vw), line.Generation, now)
+	return c
 }
 
 // fallbackCondition is True while the line serves something other than its

@@ -1,25 +1,124 @@
-package controllers
+package modelline
 
 import (
 	"context"
-	"errors"
 	"fmt"
-	"math"
 	"strings"
-	"sync"
 	"time"
 
 	corev1 "k8s.io/api/core/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/runtime"
-	"k8s.io/apimachinery/pkg/types"
+	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
-	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
 	"plumbline.dev/plumbline/internal/engine/text"
-	"plumbline.dev/plumbline/internal/engine/trigger"
 )
+
+// handleRetrainRequest turns a new plumbline.dev/retrain-request token into a
+// version. A request while another version is in flight is queued: its
+// version waits in Pending, and the line works through versions oldest
+// first.
+func (r *Reconciler) handleRetrainRequest(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+	token, ok := line.Annotations[v1alpha1.RetrainRequestAnnotation]
+	if !ok || token == line.Status.LastRetrainRequest {
+		return nil
+	}
+	if len(token) == 0 || len(token) > 253 {
+		line.Status.LastRetrainRequest = text.Truncate(token, 253)
+		p.eventFor("Request/"+text.Truncate(token, 100), line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "annotation %s must hold a token of 1 to 253 characters (a timestamp works); this one has %d", v1alpha1.RetrainRequestAnnotation, len(token))
+		return nil
+	}
+	// A version already made for this token (a pass that crashed before
+	// recording it) is the request's version.
+	for _, v := range vw.versions {
+		if v.Annotations[v1alpha1.RetrainRequestAnnotation] == token {
+			line.Status.LastRetrainRequest = token
+			return nil
+		}
+	}
+	if line.Spec.Training == nil {
+		line.Status.LastRetrainRequest = token
+		p.eventFor("Request/"+text.Truncate(token, 100), line, nil, corev1.EventTypeWarning, "RetrainRequestInvalid", "retrain request %q: the line has no spec.training", token)
+		return nil
+	}
+	settled, _, err := r.tryStart(ctx, line, vw, p, pathManual, v1alpha1.ReasonManual, map[string]string{v1alpha1.RetrainRequestAnnotation: token})
+	if err != nil || !settled {
+		// Not settled: the checks could not be judged; the token waits.
+		return err
+	}
+	line.Status.LastRetrainRequest = token
+	return nil
+}
+
+// StartVersion is the one way a retrain starts, whatever asked for it (a
+// person's request, the schedule, a trigger): it creates the line's next
+// Trained version with the reason, which then waits its turn. The name comes
+// from the version number, so a pass that crashed after creating it finds
+// it again instead of making a second.
+func (r *Reconciler) StartVersion(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason string, marks map[string]string) (*v1alpha1.ModelVersion, error) {
+	n := nextNumber(line, vw)
+	name := versionName(line.Name, n)
+	uri, err := speccheck.RenderArtifactURI(line.Spec.Training.ArtifactURI, speccheck.ArtifactData{Line: line.Name, Version: name, Number: n})
+	if err != nil {
+		return nil, err
+	}
+	v := &v1alpha1.ModelVersion{
+		ObjectMeta: metav1.ObjectMeta{
+			Name:      name,
+			Namespace: line.Namespace,
+			Labels:    map[string]string{v1alpha1.LineLabel: labelValue(line.Name), numberLabel: fmt.Sprint(n)},
+			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(line,
+				v1alpha1.GroupVersion.WithKind("ModelLine"))},
+		},
+		Spec: v1alpha1.ModelVersionSpec{Line: line.Name, Source: v1alpha1.SourceTrained, ArtifactURI: uri, Reason: reason},
+	}
+	// The marks (a person's token, a scheduled start) say what the version
+	// answers, so a pass that crashed before recording it knows it was done.
+	if len(marks) > 0 {
+		v.Annotations = merge(marks, nil)
+	}
+	if err := r.Create(ctx, v); err != nil {
+		if !apierrors.IsAlreadyExists(err) {
+			return nil, fmt.Errorf("create version %s: %w", name, err)
+		}
+		if err := r.APIReader.Get(ctx, client.ObjectKeyFromObject(v), v); err != nil {
+			return nil, fmt.Errorf("read version %s: %w", name, err)
+		}
+	} else {
+		if p.created == nil {
+			p.created = map[string]bool{}
+		}
+		p.created[v.Name] = true
+		p.event(v, line, corev1.EventTypeNormal, "Created", "version %d of %s, reason %s, artifact %s", n, line.Name, reason, uri)
+	}
+	if v.Spec.Line != line.Name {
+		return nil, fmt.Errorf("version name %s is taken by a version of line %q", name, v.Spec.Line)
+	}
+	line.Status.VersionCount = max(line.Status.VersionCount, n)
+	if v.Status.Number == 0 {
+		v.Status.Number = n // written with the version's first status
+	}
+	if vw.version(v.Name) == nil {
+		vw.versions = append(vw.versions, v)
+	}
+	return v, nil
+}
+
+// nextNumber is one more than the highest number the line has used.
+func nextNumber(line *v1alpha1.ModelLine, vw *view) int32 {
+	n := line.Status.VersionCount
+	for _, v := range vw.versions {
+		var k int32
+		if _, err := fmt.Sscan(v.Labels[numberLabel], &k); err == nil && k > n {
+			n = k
+		}
+	}
+	return n + 1
+}
 
 // The paths by which a retrain is asked for, and the outcomes of the
 // decision whether to start one: the rules live in internal/policy, shared
@@ -38,225 +137,12 @@ const (
 	outcomeCooldown      = policy.Cooldown
 )
 
-type (
-	check        = policy.Check
-	checkResults = policy.Checks
-)
-
 // scheduledForAnnotation on a version names the scheduled start it answers.
 const scheduledForAnnotation = "plumbline.dev/scheduled-for"
 
 // checkRetry is how soon a start whose checks could not be judged (Prometheus
 // unreachable, no data) is tried again.
 const checkRetry = 30 * time.Second
-
-// evaluations remembers when each trigger of each line was last evaluated,
-// so a pass that comes early (a Job or a Deployment changed) does not query
-// Prometheus again: each trigger is queried once per everySeconds. A new
-// generation of the line (an edited trigger) is evaluated at once. After a
-// restart every trigger is evaluated once at start-up; its window is in
-// Prometheus, so nothing is lost.
-type evaluations struct {
-	mu    sync.Mutex
-	lines map[types.NamespacedName]*lineEvals
-}
-
-type lineEvals struct {
-	generation int64
-	at         map[string]time.Time
-}
-
-func (e *evaluations) get(key types.NamespacedName, generation int64) *lineEvals {
-	if e.lines == nil {
-		e.lines = map[types.NamespacedName]*lineEvals{}
-	}
-	le := e.lines[key]
-	if le == nil || le.generation != generation {
-		le = &lineEvals{generation: generation, at: map[string]time.Time{}}
-		e.lines[key] = le
-	}
-	return le
-}
-
-// due reports whether a trigger is due at now, and when it next will be.
-func (e *evaluations) due(key types.NamespacedName, generation int64, name string, every time.Duration, now time.Time) (bool, time.Time) {
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	last, ok := e.get(key, generation).at[name]
-	if !ok || !now.Before(last.Add(every)) {
-		return true, now.Add(every)
-	}
-	return false, last.Add(every)
-}
-
-// done records evaluations made at now. It is called once the pass that made
-// them has written its status: an evaluation whose result was lost (a write
-// that raced another change) is made again by the pass that follows.
-func (e *evaluations) done(key types.NamespacedName, generation int64, names []string, now time.Time) {
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	le := e.get(key, generation)
-	for _, n := range names {
-		le.at[n] = now
-	}
-}
-
-func (e *evaluations) forget(key types.NamespacedName) {
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	delete(e.lines, key)
-}
-
-func threshold(below, above *float64) trigger.Threshold {
-	return trigger.Threshold{Below: below, Above: above}
-}
-
-func seconds(n int32) time.Duration { return time.Duration(n) * time.Second }
-
-// evaluateTriggers runs each due trigger's range query and updates its
-// status. The status changes only when a trigger's state does; the value
-// seen each time goes to metrics. It returns the triggers found Firing in
-// this pass, in spec order.
-func (r *ModelLineReconciler) evaluateTriggers(ctx context.Context, line *v1alpha1.ModelLine, p *pass) []v1alpha1.TriggerSpec {
-	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
-	now := p.now.Time
-	var firing []v1alpha1.TriggerSpec
-	var statuses []v1alpha1.TriggerStatus
-	for _, tr := range line.Spec.Triggers {
-		prev := findTrigger(line.Status.Triggers, tr.Name)
-		every := seconds(tr.EverySeconds)
-		if every <= 0 {
-			every = time.Minute
-		}
-		due, next := r.evals.due(key, line.Generation, tr.Name, every, now)
-		if !due {
-			p.wakeAt(next)
-			if prev != nil {
-				statuses = append(statuses, *prev)
-			}
-			continue
-		}
-		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
-		series, err := r.Prometheus.Range(ctx, tr.Query, now.Add(-w.For), now, w.Step())
-		var res trigger.Result
-		if err != nil {
-			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
-		} else {
-			res = trigger.Judge(series, threshold(tr.Below, tr.Above), w, now)
-		}
-		p.evaluated = append(p.evaluated, tr.Name)
-		if !errors.Is(err, promq.ErrNotConfigured) {
-			// With no Prometheus at all nothing will change with time.
-			p.wakeAt(next)
-		}
-		recordTrigger(line, tr.Name, res)
-		st := nextTriggerStatus(prev, tr.Name, res, p.now)
-		statuses = append(statuses, st)
-		if prev == nil || prev.State != st.State {
-			p.eventFor("Trigger/"+tr.Name, line, nil, triggerEventType(st.State), "Trigger"+string(st.State), "trigger %s is %s: %s", tr.Name, st.State, st.Message)
-		}
-		if res.State == v1alpha1.TriggerFiring {
-			firing = append(firing, tr)
-		}
-	}
-	forgetRemovedTriggers(line, statuses)
-	line.Status.Triggers = statuses
-	return firing
-}
-
-func findTrigger(sts []v1alpha1.TriggerStatus, name string) *v1alpha1.TriggerStatus {
-	for i := range sts {
-		if sts[i].Name == name {
-			return &sts[i]
-		}
-	}
-	return nil
-}
-
-// nextTriggerStatus is a trigger's status after an evaluation: unchanged
-// while the state holds (so an evaluation that finds nothing new writes
-// nothing), and on a change the state, when it began, and the value, series
-// and message that decided it.
-func nextTriggerStatus(prev *v1alpha1.TriggerStatus, name string, res trigger.Result, now metav1.Time) v1alpha1.TriggerStatus {
-	if prev != nil && prev.State == res.State {
-		return *prev
-	}
-	since := now
-	if (res.State == v1alpha1.TriggerPending || res.State == v1alpha1.TriggerFiring) && !res.Since.IsZero() {
-		since = metav1.NewTime(res.Since)
-	}
-	return v1alpha1.TriggerStatus{
-		Name:    name,
-		State:   res.State,
-		Since:   &since,
-		Value:   promq.Format(res.Value),
-		Series:  text.Truncate(res.Series, 1024),
-		Message: text.Truncate(res.Message, 1024),
-	}
-}
-
-func triggerEventType(s v1alpha1.TriggerState) string {
-	if s == v1alpha1.TriggerFiring || s == v1alpha1.TriggerUnknown {
-		return corev1.EventTypeWarning
-	}
-	return corev1.EventTypeNormal
-}
-
-// runCheck asks one instant query and judges it against a threshold: any
-// series breaching breaches; no series at all cannot be judged.
-func (r *ModelLineReconciler) runCheck(ctx context.Context, kind, name, query string, th trigger.Threshold, now time.Time) check {
-	c := check{Kind: kind, Name: name}
-	series, err := r.Prometheus.Instant(ctx, query, now)
-	if err != nil {
-		c.Err = err.Error()
-		return c
-	}
-	var first *promq.Series
-	for i := range series {
-		s := &series[i]
-		if len(s.Points) == 0 || math.IsNaN(s.Points[0].V) {
-			continue
-		}
-		if first == nil {
-			first = s
-		}
-		if th.Breached(s.Points[0].V) {
-			c.Known, c.Breached, c.Value, c.Series = true, true, s.Points[0].V, s.Labels
-			return c
-		}
-	}
-	if first == nil {
-		c.Err = "the query returned no value"
-		return c
-	}
-	c.Known, c.Value, c.Series = true, first.Points[0].V, first.Labels
-	return c
-}
-
-// runChecks runs the checks a path needs: data quality always, drift only
-// for a trigger, fresh data always. Each is one instant query.
-func (r *ModelLineReconciler) runChecks(ctx context.Context, line *v1alpha1.ModelLine, path string, now time.Time) checkResults {
-	var res checkResults
-	c := line.Spec.Checks
-	if c == nil {
-		return res
-	}
-	for _, q := range c.DataQuality {
-		res.DataQuality = append(res.DataQuality, r.runCheck(ctx, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
-	}
-	if path == pathTrigger {
-		for _, q := range c.Drift {
-			res.Drift = append(res.Drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
-		}
-	}
-	if f := c.FreshData; f != nil && f.Query != "" {
-		// The least value across series must reach atLeast.
-		th := threshold(&f.AtLeast, nil)
-		fc := r.runCheck(ctx, "fresh-data", "freshData", f.Query, th, now)
-		res.FreshData, res.AtLeast = &fc, f.AtLeast
-	}
-	return res
-}
 
 // spendsCheck says whether a decision used up the check Job's report, so
 // the next request runs the Job again: a start does, a report that could
@@ -308,7 +194,7 @@ func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v policy.Ver
 // tryStart is the path every retrain takes: the checks, then the start. It
 // reports whether the request was settled (started or refused); false means
 // the checks could not be judged and the caller should try again later.
-func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason string, marks map[string]string) (bool, *v1alpha1.ModelVersion, error) {
+func (r *Reconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, path, reason string, marks map[string]string) (bool, *v1alpha1.ModelVersion, error) {
 	cr := r.runChecks(ctx, line, path, p.now.Time)
 	v := policy.DecideStart(path, cr)
 	if c := line.Spec.Checks; c != nil && c.JobTemplate != nil && v.Outcome != outcomeDataQuality {
@@ -374,7 +260,7 @@ func (r *ModelLineReconciler) tryStart(ctx context.Context, line *v1alpha1.Model
 // (policy.StepSchedule): the way the built-in CronJob does, only the most
 // recent missed start, not past the starting deadline, and not while a
 // version is in flight.
-func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+func (r *Reconciler) handleSchedule(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
 	s := line.Spec.Schedule
 	if s == nil {
 		line.Status.NextScheduleTime = nil
@@ -450,7 +336,7 @@ func (r *ModelLineReconciler) handleSchedule(ctx context.Context, line *v1alpha1
 // (policy.StepTriggers): the first trigger that fired in this pass starts a
 // retrain, unless a version is in flight, the line is cooling down from its
 // last retrain, or the live version has not served a whole window yet.
-func (r *ModelLineReconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
+func (r *Reconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
 	if len(firing) == 0 {
 		// A check Job run for a trigger that is still Firing answers as
 		// soon as it finishes, not at the trigger's next evaluation.

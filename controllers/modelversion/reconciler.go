@@ -1,4 +1,9 @@
-package controllers
+// Package modelversion ties each ModelVersion to its line: it adopts a
+// version into the line it names (an owner reference, so deleting the line
+// deletes its versions) and says so when that line does not exist. A
+// version's lifecycle is driven by its line's reconciler (package
+// modelline), which owns its status.
+package modelversion
 
 import (
 	"context"
@@ -8,7 +13,6 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/client-go/tools/events"
-	"plumbline.dev/plumbline/internal/engine/clock"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/controller/controllerutil"
@@ -17,6 +21,8 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/reconcile"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/controllers/index"
+	"plumbline.dev/plumbline/internal/engine/clock"
 )
 
 // The permissions the manager needs, gathered into config/rbac by
@@ -25,8 +31,8 @@ import (
 // +kubebuilder:rbac:groups=plumbline.dev,resources=modelversions/status,verbs=get;update;patch
 // +kubebuilder:rbac:groups=plumbline.dev,resources=modelversions/finalizers,verbs=update
 
-// ModelVersionReconciler ties each version to its line and reports its phase.
-type ModelVersionReconciler struct {
+// Reconciler ties each version to its line and reports its phase.
+type Reconciler struct {
 	client.Client
 	Clock    clock.Clock
 	Recorder events.EventRecorder
@@ -34,7 +40,7 @@ type ModelVersionReconciler struct {
 
 // Reconcile adopts a version into its line (an owner reference, so deleting
 // the line deletes its versions) and sets its first phase.
-func (r *ModelVersionReconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
+func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
 	var v v1alpha1.ModelVersion
 	if err := r.Get(ctx, req.NamespacedName, &v); err != nil {
 		return ctrl.Result{}, client.IgnoreNotFound(err)
@@ -81,7 +87,7 @@ func (r *ModelVersionReconciler) Reconcile(ctx context.Context, req ctrl.Request
 
 // SetupWithManager registers the reconciler and its watches. The index of
 // versions by line is registered by the ModelLine reconciler.
-func (r *ModelVersionReconciler) SetupWithManager(mgr ctrl.Manager) error {
+func (r *Reconciler) SetupWithManager(mgr ctrl.Manager) error {
 	return ctrl.NewControllerManagedBy(mgr).
 		Named("modelversion").
 		For(&v1alpha1.ModelVersion{}).
@@ -90,9 +96,9 @@ func (r *ModelVersionReconciler) SetupWithManager(mgr ctrl.Manager) error {
 		Complete(r)
 }
 
-func (r *ModelVersionReconciler) versionsOfLine(ctx context.Context, o client.Object) []reconcile.Request {
+func (r *Reconciler) versionsOfLine(ctx context.Context, o client.Object) []reconcile.Request {
 	var versions v1alpha1.ModelVersionList
-	if err := r.List(ctx, &versions, client.InNamespace(o.GetNamespace()), client.MatchingFields{indexVersionLine: o.GetName()}); err != nil {
+	if err := r.List(ctx, &versions, client.InNamespace(o.GetNamespace()), client.MatchingFields{index.VersionLine: o.GetName()}); err != nil {
 		log.FromContext(ctx).Error(err, "list ModelVersions of line", "line", client.ObjectKeyFromObject(o))
 		return nil
 	}

@@ -1,4 +1,4 @@
-package controllers
+package modelline
 
 import (
 	"encoding/json"

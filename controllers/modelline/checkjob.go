@@ -1,4 +1,4 @@
-package controllers
+package modelline
 
 import (
 	"context"
@@ -96,7 +96,7 @@ func usableCheck(st *v1alpha1.CheckRunStatus, now time.Time) bool {
 
 // runCheckJob runs the line's check Job for a retrain request, or follows
 // the one running, and returns its answers once its report is read.
-func (r *ModelLineReconciler) runCheckJob(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason string) (jobChecks, error) {
+func (r *Reconciler) runCheckJob(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, reason string) (jobChecks, error) {
 	st := line.Status.LastCheck
 	if !usableCheck(st, p.now.Time) {
 		n := int32(1)
@@ -143,7 +143,7 @@ func (r *ModelLineReconciler) runCheckJob(ctx context.Context, line *v1alpha1.Mo
 }
 
 // checkUnusable records a check run that gave no answer.
-func (r *ModelLineReconciler) checkUnusable(line *v1alpha1.ModelLine, p *pass, st *v1alpha1.CheckRunStatus, reason, msg string) {
+func (r *Reconciler) checkUnusable(line *v1alpha1.ModelLine, p *pass, st *v1alpha1.CheckRunStatus, reason, msg string) {
 	st.FinishedTime = p.now.DeepCopy()
 	st.DataQuality, st.Drift = v1alpha1.CheckUnknown, v1alpha1.CheckUnknown
 	st.Message = text.Truncate(reason+": "+msg, 2048)
@@ -154,7 +154,7 @@ func (r *ModelLineReconciler) checkUnusable(line *v1alpha1.ModelLine, p *pass, s
 // readCheckJob reads a finished check Job's report into the run's status.
 // A Job that failed, or left no report the parser accepts, answers Unknown:
 // the start waits, and the next try runs the Job again.
-func (r *ModelLineReconciler) readCheckJob(ctx context.Context, line *v1alpha1.ModelLine, job *batchv1.Job, p *pass, st *v1alpha1.CheckRunStatus) (bool, error) {
+func (r *Reconciler) readCheckJob(ctx context.Context, line *v1alpha1.ModelLine, job *batchv1.Job, p *pass, st *v1alpha1.CheckRunStatus) (bool, error) {
 	outcome, reason, message := jobResult(job)
 	if outcome == jobRunning {
 		return false, nil
@@ -285,7 +285,7 @@ func answers(st *v1alpha1.CheckRunStatus) jobChecks {
 
 // pruneCheckJobs deletes the line's older check Jobs, keeping the newest
 // few for their logs.
-func (r *ModelLineReconciler) pruneCheckJobs(ctx context.Context, line *v1alpha1.ModelLine, vw *view, newest int32) error {
+func (r *Reconciler) pruneCheckJobs(ctx context.Context, line *v1alpha1.ModelLine, vw *view, newest int32) error {
 	type numbered struct {
 		n   int
 		job *batchv1.Job

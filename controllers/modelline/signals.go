@@ -1,0 +1,294 @@
+package modelline
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sync"
+	"time"
+
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/engine/policy"
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/text"
+	"plumbline.dev/plumbline/internal/engine/trigger"
+)
+
+// guardKey prefixes the guard's entry in the evaluation memory; trigger
+// names cannot hold a colon, so the two never meet.
+const guardKey = "guard:"
+
+// evaluateGuard judges the guard on the live version when it is due, and
+// returns the result (nil when it was not judged in this pass). The window
+// only counts once it lies wholly after the promotion: before that the guard
+// watches and does not judge.
+func (r *Reconciler) evaluateGuard(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) *trigger.Result {
+	g := line.Spec.Guard
+	live := vw.live()
+	if g == nil || live == nil || live.Status.PromotedTime == nil {
+		line.Status.Guard = nil
+		return nil
+	}
+	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
+	now := p.now.Time
+	every := seconds(g.EverySeconds)
+	if every <= 0 {
+		every = time.Minute
+	}
+	name := guardKey + live.Name
+	due, next := r.evals.due(key, line.Generation, name, every, now)
+	if !due {
+		p.wakeAt(next)
+		return nil
+	}
+	w := trigger.Window{For: seconds(g.ForSeconds), Every: every, Coverage: r.Coverage}
+	promoted := live.Status.PromotedTime.Time
+	var res trigger.Result
+	if firstFull := promoted.Add(w.For); now.Before(firstFull) {
+		res = trigger.Result{State: v1alpha1.TriggerInactive, Value: math.NaN(),
+			Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", live.Name, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
+		p.wakeAt(firstFull)
+	} else {
+		series, err := r.Prometheus.Range(ctx, g.Query, now.Add(-w.For), now, w.Step())
+		if err != nil {
+			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
+		} else {
+			res = trigger.Judge(series, threshold(g.Below, g.Above), w, now)
+		}
+		if !errors.Is(err, promq.ErrNotConfigured) {
+			p.wakeAt(next)
+		}
+	}
+	p.evaluated = append(p.evaluated, name)
+	recordGuard(line, res)
+	prev := line.Status.Guard
+	if prev != nil && prev.Name != live.Name {
+		prev = nil // a new live version: a new watch
+	}
+	st := nextTriggerStatus(prev, live.Name, res, p.now)
+	if prev == nil || prev.State != st.State {
+		if !(prev == nil && st.State == v1alpha1.TriggerInactive) {
+			p.eventFor("Guard/"+live.Name, line, live, triggerEventType(st.State), "Guard"+string(st.State), "guard on %s is %s: %s", live.Name, st.State, st.Message)
+		}
+	}
+	line.Status.Guard = &st
+	return &res
+}
+
+type (
+	check        = policy.Check
+	checkResults = policy.Checks
+)
+
+// evaluations remembers when each trigger of each line was last evaluated,
+// so a pass that comes early (a Job or a Deployment changed) does not query
+// Prometheus again: each trigger is queried once per everySeconds. A new
+// generation of the line (an edited trigger) is evaluated at once. After a
+// restart every trigger is evaluated once at start-up; its window is in
+// Prometheus, so nothing is lost.
+type evaluations struct {
+	mu    sync.Mutex
+	lines map[types.NamespacedName]*lineEvals
+}
+
+type lineEvals struct {
+	generation int64
+	at         map[string]time.Time
+}
+
+func (e *evaluations) get(key types.NamespacedName, generation int64) *lineEvals {
+	if e.lines == nil {
+		e.lines = map[types.NamespacedName]*lineEvals{}
+	}
+	le := e.lines[key]
+	if le == nil || le.generation != generation {
+		le = &lineEvals{generation: generation, at: map[string]time.Time{}}
+		e.lines[key] = le
+	}
+	return le
+}
+
+// due reports whether a trigger is due at now, and when it next will be.
+func (e *evaluations) due(key types.NamespacedName, generation int64, name string, every time.Duration, now time.Time) (bool, time.Time) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	last, ok := e.get(key, generation).at[name]
+	if !ok || !now.Before(last.Add(every)) {
+		return true, now.Add(every)
+	}
+	return false, last.Add(every)
+}
+
+// done records evaluations made at now. It is called once the pass that made
+// them has written its status: an evaluation whose result was lost (a write
+// that raced another change) is made again by the pass that follows.
+func (e *evaluations) done(key types.NamespacedName, generation int64, names []string, now time.Time) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	le := e.get(key, generation)
+	for _, n := range names {
+		le.at[n] = now
+	}
+}
+
+func (e *evaluations) forget(key types.NamespacedName) {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	delete(e.lines, key)
+}
+
+func threshold(below, above *float64) trigger.Threshold {
+	return trigger.Threshold{Below: below, Above: above}
+}
+
+func seconds(n int32) time.Duration { return time.Duration(n) * time.Second }
+
+// evaluateTriggers runs each due trigger's range query and updates its
+// status. The status changes only when a trigger's state does; the value
+// seen each time goes to metrics. It returns the triggers found Firing in
+// this pass, in spec order.
+func (r *Reconciler) evaluateTriggers(ctx context.Context, line *v1alpha1.ModelLine, p *pass) []v1alpha1.TriggerSpec {
+	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
+	now := p.now.Time
+	var firing []v1alpha1.TriggerSpec
+	var statuses []v1alpha1.TriggerStatus
+	for _, tr := range line.Spec.Triggers {
+		prev := findTrigger(line.Status.Triggers, tr.Name)
+		every := seconds(tr.EverySeconds)
+		if every <= 0 {
+			every = time.Minute
+		}
+		due, next := r.evals.due(key, line.Generation, tr.Name, every, now)
+		if !due {
+			p.wakeAt(next)
+			if prev != nil {
+				statuses = append(statuses, *prev)
+			}
+			continue
+		}
+		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
+		series, err := r.Prometheus.Range(ctx, tr.Query, now.Add(-w.For), now, w.Step())
+		var res trigger.Result
+		if err != nil {
+			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
+		} else {
+			res = trigger.Judge(series, threshold(tr.Below, tr.Above), w, now)
+		}
+		p.evaluated = append(p.evaluated, tr.Name)
+		if !errors.Is(err, promq.ErrNotConfigured) {
+			// With no Prometheus at all nothing will change with time.
+			p.wakeAt(next)
+		}
+		recordTrigger(line, tr.Name, res)
+		st := nextTriggerStatus(prev, tr.Name, res, p.now)
+		statuses = append(statuses, st)
+		if prev == nil || prev.State != st.State {
+			p.eventFor("Trigger/"+tr.Name, line, nil, triggerEventType(st.State), "Trigger"+string(st.State), "trigger %s is %s: %s", tr.Name, st.State, st.Message)
+		}
+		if res.State == v1alpha1.TriggerFiring {
+			firing = append(firing, tr)
+		}
+	}
+	forgetRemovedTriggers(line, statuses)
+	line.Status.Triggers = statuses
+	return firing
+}
+
+func findTrigger(sts []v1alpha1.TriggerStatus, name string) *v1alpha1.TriggerStatus {
+	for i := range sts {
+		if sts[i].Name == name {
+			return &sts[i]
+		}
+	}
+	return nil
+}
+
+// nextTriggerStatus is a trigger's status after an evaluation: unchanged
+// while the state holds (so an evaluation that finds nothing new writes
+// nothing), and on a change the state, when it began, and the value, series
+// and message that decided it.
+func nextTriggerStatus(prev *v1alpha1.TriggerStatus, name string, res trigger.Result, now metav1.Time) v1alpha1.TriggerStatus {
+	if prev != nil && prev.State == res.State {
+		return *prev
+	}
+	since := now
+	if (res.State == v1alpha1.TriggerPending || res.State == v1alpha1.TriggerFiring) && !res.Since.IsZero() {
+		since = metav1.NewTime(res.Since)
+	}
+	return v1alpha1.TriggerStatus{
+		Name:    name,
+		State:   res.State,
+		Since:   &since,
+		Value:   promq.Format(res.Value),
+		Series:  text.Truncate(res.Series, 1024),
+		Message: text.Truncate(res.Message, 1024),
+	}
+}
+
+func triggerEventType(s v1alpha1.TriggerState) string {
+	if s == v1alpha1.TriggerFiring || s == v1alpha1.TriggerUnknown {
+		return corev1.EventTypeWarning
+	}
+	return corev1.EventTypeNormal
+}
+
+// runCheck asks one instant query and judges it against a threshold: any
+// series breaching breaches; no series at all cannot be judged.
+func (r *Reconciler) runCheck(ctx context.Context, kind, name, query string, th trigger.Threshold, now time.Time) check {
+	c := check{Kind: kind, Name: name}
+	series, err := r.Prometheus.Instant(ctx, query, now)
+	if err != nil {
+		c.Err = err.Error()
+		return c
+	}
+	var first *promq.Series
+	for i := range series {
+		s := &series[i]
+		if len(s.Points) == 0 || math.IsNaN(s.Points[0].V) {
+			continue
+		}
+		if first == nil {
+			first = s
+		}
+		if th.Breached(s.Points[0].V) {
+			c.Known, c.Breached, c.Value, c.Series = true, true, s.Points[0].V, s.Labels
+			return c
+		}
+	}
+	if first == nil {
+		c.Err = "the query returned no value"
+		return c
+	}
+	c.Known, c.Value, c.Series = true, first.Points[0].V, first.Labels
+	return c
+}
+
+// runChecks runs the checks a path needs: data quality always, drift only
+// for a trigger, fresh data always. Each is one instant query.
+func (r *Reconciler) runChecks(ctx context.Context, line *v1alpha1.ModelLine, path string, now time.Time) checkResults {
+	var res checkResults
+	c := line.Spec.Checks
+	if c == nil {
+		return res
+	}
+	for _, q := range c.DataQuality {
+		res.DataQuality = append(res.DataQuality, r.runCheck(ctx, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
+	}
+	if path == pathTrigger {
+		for _, q := range c.Drift {
+			res.Drift = append(res.Drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
+		}
+	}
+	if f := c.FreshData; f != nil && f.Query != "" {
+		// The least value across series must reach atLeast.
+		th := threshold(&f.AtLeast, nil)
+		fc := r.runCheck(ctx, "fresh-data", "freshData", f.Query, th, now)
+		res.FreshData, res.AtLeast = &fc, f.AtLeast
+	}
+	return res
+}
