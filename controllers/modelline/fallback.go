@@ -87,7 +87,8 @@ func (r *Reconciler) startAlternatives(ctx context.Context, line *v1alpha1.Model
 
 // watchAlternatives follows an evaluation of alternatives to its end and
 // switches to the best one that passed, or asks a person to review.
-func (r *Reconciler) watchAlternatives(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+func (r *Reconciler) watchAlternatives(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	a := line.Status.Alternatives
 	if a == nil || a.Outcome != "" {
 		return nil
@@ -287,12 +288,13 @@ func decideGuard(line *v1alpha1.ModelLine, vw *view, res trigger.Result, now tim
 }
 
 // guard acts on the guard's result: conditions, and a switch when called for.
-func (r *Reconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass, res *trigger.Result) {
+func (r *Reconciler) guard(_ context.Context, p *pass) error {
+	line, vw, res := p.line, p.vw, p.guarded
 	if line.Spec.Guard == nil {
-		return
+		return nil
 	}
 	if res == nil {
-		return // not judged in this pass: the conditions stand
+		return nil // not judged in this pass: the conditions stand
 	}
 	v := decideGuard(line, vw, *res, p.now.Time)
 	changed := setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionDegraded, Status: v.degraded, Reason: v.reason, Message: text.Truncate(v.message, 2000)}, line.Generation, p.now)
@@ -307,7 +309,7 @@ func (r *Reconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass, res *tri
 		setCondition(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionFalse, Reason: "Recovered", Message: "the guard finds the live version healthy again"}, line.Generation, p.now)
 	}
 	if v.target == nil {
-		return
+		return nil
 	}
 	target := "previous"
 	if v.kind == v1alpha1.PromotionFallback {
@@ -316,19 +318,21 @@ func (r *Reconciler) guard(line *v1alpha1.ModelLine, vw *view, p *pass, res *tri
 	startPromotionAs(line, vw, v.target, p, v.kind, v.reason, v.message)
 	p.eventFor("Guard/rollback", line, v.target, corev1.EventTypeWarning, "RollingBack", "%s", v.message)
 	p.countFor(v.target.Name, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, target).Inc() })
+	return nil
 }
 
 // handleRollbackRequest serves a version a person named in the
 // plumbline.dev/rollback-to annotation again: an archived version of the
 // line (even one the guard rolled back) or its rule-based version. It goes
 // through the same promotion path, with its revert on a failed rollout.
-func (r *Reconciler) handleRollbackRequest(line *v1alpha1.ModelLine, vw *view, p *pass) {
+func (r *Reconciler) handleRollbackRequest(_ context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	name, ok := line.Annotations[v1alpha1.RollbackRequestAnnotation]
 	if !ok || name == line.Status.LastRollbackRequest {
-		return
+		return nil
 	}
 	if v := vw.promoting(); v != nil {
-		return // waits for that rollout; the Deployment's changes wake the line
+		return nil // waits for that rollout; the Deployment's changes wake the line
 	}
 	target := vw.version(name)
 	why := ""
@@ -343,10 +347,11 @@ func (r *Reconciler) handleRollbackRequest(line *v1alpha1.ModelLine, vw *view, p
 	line.Status.LastRollbackRequest = text.Truncate(name, 253)
 	if why != "" {
 		p.eventFor("Rollback/"+text.Truncate(name, 100), line, nil, corev1.EventTypeWarning, "RollbackRequestInvalid", "rollback to %q refused: %s", name, why)
-		return
+		return nil
 	}
 	msg := fmt.Sprintf("a person asked to serve %s again (annotation %s)", name, v1alpha1.RollbackRequestAnnotation)
 	startPromotionAs(line, vw, target, p, v1alpha1.PromotionRequested, "RequestedByPerson", msg)
 	p.eventFor("Rollback/"+target.Name, line, target, corev1.EventTypeNormal, "RollbackRequested", "%s", msg)
 	p.countFor(target.Name, func() { rollbacks.WithLabelValues(line.Namespace, line.Name, "requested").Inc() })
+	return nil
 }

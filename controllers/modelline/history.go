@@ -44,7 +44,8 @@ func pruneList(versions []*v1alpha1.ModelVersion, live, previous string, limit i
 }
 
 // prune deletes the finished versions history no longer keeps.
-func (r *Reconciler) prune(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+func (r *Reconciler) prune(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	limit := int32(10)
 	if line.Spec.HistoryLimit != nil {
 		limit = *line.Spec.HistoryLimit

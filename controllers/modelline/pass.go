@@ -11,6 +11,7 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/text"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 // view is what one pass knows about a line besides the line itself. The
@@ -104,9 +105,23 @@ func (v *view) promoting() *v1alpha1.ModelVersion {
 	return nil
 }
 
-// pass collects what a reconcile pass did, to report after its writes.
+// pass is what one pass over a line saw and did: the line and its view
+// (read once at the start), what each phase found for the phases after it,
+// and what to report once the statuses are written (events, counts, when
+// to come back).
 type pass struct {
-	now    metav1.Time
+	now  metav1.Time
+	line *v1alpha1.ModelLine
+	vw   *view
+
+	// firing are the triggers found Firing in this pass, in spec order.
+	firing []v1alpha1.TriggerSpec
+	// guarded is the guard's result on the live version, when it was
+	// judged in this pass.
+	guarded *trigger.Result
+	// stepped is the version the pass took a step.
+	stepped *v1alpha1.ModelVersion
+
 	events []event
 	// metrics are counts to make once the pass's writes are done; a count
 	// bound to a version is made when that version's status was written,

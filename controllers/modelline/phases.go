@@ -2,57 +2,115 @@ package modelline
 
 import (
 	"context"
+	"fmt"
 
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 )
 
-// advance moves the line's versions along: it settles which version is live,
-// undoes failed rollouts, turns a person's retrain request into a version,
-// takes the active version one step, and prunes history.
-func (r *Reconciler) advance(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
-	// Triggers are evaluated on a suspended line too: that is reporting,
-	// not acting.
-	firing := r.evaluateTriggers(ctx, line, p)
-	guarded := r.evaluateGuard(ctx, line, vw, p)
-	if line.Spec.Suspend {
+// phase is one step of a pass over a line. It reads what the pass has seen
+// and what the phases before it found (the pass), and adds to it. No phase
+// writes a status: the reconciler writes each changed status once, after the
+// last phase. A phase that acts may change the cluster: create a version or
+// a Job, patch the serving Deployment, delete what history no longer keeps.
+type phase struct {
+	name string
+	// acts says the phase moves the line on: a version's phase, a retrain
+	// started, the cluster changed. A suspended line runs only the phases
+	// that do not: it reports, it does not act.
+	acts bool
+	run  func(r *Reconciler, ctx context.Context, p *pass) error
+}
+
+// phases is a pass over a line that is ready (its spec valid, its serving
+// Deployment there), in order:
+//
+//   - what the line's signals say: the triggers, and the guard on the live
+//     version;
+//   - production first: the versions' phases made to agree with the one
+//     that serves, a failed rollout undone, a regression answered (the
+//     guard's switch, an evaluation of alternatives followed, a person's
+//     rollback), before anything new starts;
+//   - then what asks for a retrain, a person's request before the schedule
+//     before the triggers, each later one seeing a version an earlier one
+//     started as in flight;
+//   - then the active version taken one step (training, gate, approval,
+//     rollout), and what its outcome calls for;
+//   - last, the queue marked and history pruned.
+var phases = []phase{
+	{"judge the triggers", reports, (*Reconciler).evaluateTriggers},
+	{"judge the guard", reports, (*Reconciler).evaluateGuard},
+	{"settle the versions", acts, settleVersions},
+	{"undo failed rollouts", acts, (*Reconciler).revertFailedRollouts},
+	{"answer the guard", acts, (*Reconciler).guard},
+	{"follow the alternatives", acts, (*Reconciler).watchAlternatives},
+	{"a person's rollback", acts, (*Reconciler).handleRollbackRequest},
+	{"a person's retrain request", acts, (*Reconciler).handleRetrainRequest},
+	{"the schedule", acts, (*Reconciler).handleSchedule},
+	{"the triggers", acts, (*Reconciler).handleTriggers},
+	{"step the active version", acts, (*Reconciler).stepActive},
+	{"alternatives when a retrain did not help", acts, (*Reconciler).alternativesAfterRejection},
+	{"mark the queue", acts, markQueue},
+	{"prune history", acts, (*Reconciler).prune},
+}
+
+// Whether a phase acts, for the table above.
+const (
+	reports = false
+	acts    = true
+)
+
+// settleVersions makes the versions' phases agree with the one that serves.
+func settleVersions(_ *Reconciler, _ context.Context, p *pass) error {
+	settle(p.line, p.vw, p)
+	return nil
+}
+
+// stepActive takes the active version one step: training, gate, approval,
+// rollout. A rollout this pass decided waits for the next, which patches
+// the Deployment once the decision is written.
+func (r *Reconciler) stepActive(ctx context.Context, p *pass) error {
+	v := p.vw.active()
+	if v == nil || p.rolloutDecided[v.Name] {
 		return nil
 	}
-	settle(line, vw, p)
-	if err := r.revertFailedRollouts(ctx, line, vw, p); err != nil {
+	if err := r.step(ctx, p.line, p.vw, v, p); err != nil {
 		return err
 	}
-	// Production first: a regression is answered before anything new starts.
-	r.guard(line, vw, p, guarded)
-	if err := r.watchAlternatives(ctx, line, vw, p); err != nil {
-		return err
+	settle(p.line, p.vw, p)
+	p.stepped = v
+	return nil
+}
+
+// alternativesAfterRejection evaluates the alternatives when the live
+// version is degraded and the candidate retrained for it failed its gate:
+// retraining did not help, so try what the line had before.
+func (r *Reconciler) alternativesAfterRejection(ctx context.Context, p *pass) error {
+	v := p.stepped
+	if v == nil || v.Status.Phase != v1alpha1.PhaseRejected || v.Status.Gate == nil || v.Status.Gate.Verdict != v1alpha1.GateFailed ||
+		!conditionIs(p.line.Status.Conditions, v1alpha1.ConditionDegraded, metav1.ConditionTrue) {
+		return nil
 	}
-	r.handleRollbackRequest(line, vw, p)
-	// A person's request first, then the schedule, then the triggers: each
-	// later one sees a version the earlier started as in flight.
-	if err := r.handleRetrainRequest(ctx, line, vw, p); err != nil {
-		return err
-	}
-	if err := r.handleSchedule(ctx, line, vw, p); err != nil {
-		return err
-	}
-	if err := r.handleTriggers(ctx, line, vw, p, firing); err != nil {
-		return err
-	}
-	if v := vw.active(); v != nil && !p.rolloutDecided[v.Name] {
-		if err := r.step(ctx, line, vw, v, p); err != nil {
-			return err
+	_, err := r.startAlternatives(ctx, p.line, p.vw, p, altCandidateRejected)
+	return err
+}
+
+// markQueue marks the versions that wait behind the active one.
+func markQueue(_ *Reconciler, _ context.Context, p *pass) error {
+	queue(p.vw, p)
+	return nil
+}
+
+// runPhases runs the pass's phases in order, up to the first that fails.
+func (r *Reconciler) runPhases(ctx context.Context, p *pass) error {
+	for _, ph := range phases {
+		if ph.acts && p.line.Spec.Suspend {
+			continue
 		}
-		settle(line, vw, p)
-		if v.Status.Phase == v1alpha1.PhaseRejected && v.Status.Gate != nil && v.Status.Gate.Verdict == v1alpha1.GateFailed && conditionIs(line.Status.Conditions, v1alpha1.ConditionDegraded, metav1.ConditionTrue) {
-			// The live version is degraded and the retrain did not help:
-			// try what the line had before.
-			if _, err := r.startAlternatives(ctx, line, vw, p, altCandidateRejected); err != nil {
-				return err
-			}
+		if err := ph.run(r, ctx, p); err != nil {
+			return fmt.Errorf("%s: %w", ph.name, err)
 		}
 	}
-	queue(vw, p)
-	return r.prune(ctx, line, vw, p)
+	return nil
 }

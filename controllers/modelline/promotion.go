@@ -149,7 +149,8 @@ func (r *Reconciler) promote(ctx context.Context, line *v1alpha1.ModelLine, vw *
 // version that failed its rollout and that the Deployment still names goes
 // back to what it replaced. It runs in the pass after the failure was
 // recorded, so a crash in between cannot start the rollout again.
-func (r *Reconciler) revertFailedRollouts(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+func (r *Reconciler) revertFailedRollouts(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	if vw.deployment == nil {
 		return nil
 	}

@@ -111,19 +111,19 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 	}
 	before := snapshot(vw.versions)
 
-	p := &pass{now: metav1.NewTime(r.Clock.Now())}
+	p := &pass{now: metav1.NewTime(r.Clock.Now()), line: &line, vw: vw}
 	ready := readyCondition(line.Spec.Suspend, obs)
-	var advanceErr error
+	var phaseErr error
 	if ready.Status == metav1.ConditionTrue {
-		advanceErr = r.advance(ctx, &line, vw, p)
+		phaseErr = r.runPhases(ctx, p)
 	}
-	denied := apierrors.IsForbidden(advanceErr)
+	denied := apierrors.IsForbidden(phaseErr)
 	if denied {
-		ready = permissionDenied(advanceErr)
+		ready = permissionDenied(phaseErr)
 	}
 	readyChanged := setCondition(&line.Status.Conditions, ready, line.Generation, p.now)
 	summarize(&line, vw, p.now)
-	if advanceErr == nil {
+	if phaseErr == nil {
 		line.Status.ObservedGeneration = line.Generation
 	}
 
@@ -173,11 +173,11 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		// so it goes on soon after the RBAC is fixed.
 		return ctrl.Result{RequeueAfter: permissionRetry}, nil
 	}
-	if advanceErr != nil {
+	if phaseErr != nil {
 		// What the pass could do is written; the action that failed is
 		// retried with the error's backoff. (controller-runtime ignores a
 		// result returned with an error, so none is.)
-		return ctrl.Result{}, advanceErr
+		return ctrl.Result{}, phaseErr
 	}
 	// The next pass comes from a change to the line, its Deployment, its
 	// versions or their Jobs, or when a trigger or a scheduled start is due.

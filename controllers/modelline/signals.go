@@ -24,10 +24,11 @@ import (
 const guardKey = "guard:"
 
 // evaluateGuard judges the guard on the live version when it is due, and
-// returns the result (nil when it was not judged in this pass). The window
+// leaves the result in p.guarded (nil when it was not judged in this pass). The window
 // only counts once it lies wholly after the promotion: before that the guard
 // watches and does not judge.
-func (r *Reconciler) evaluateGuard(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) *trigger.Result {
+func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	g := line.Spec.Guard
 	live := vw.live()
 	if g == nil || live == nil || live.Status.PromotedTime == nil {
@@ -77,7 +78,8 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, line *v1alpha1.ModelLine
 		}
 	}
 	line.Status.Guard = &st
-	return &res
+	p.guarded = &res
+	return nil
 }
 
 type (
@@ -150,9 +152,10 @@ func seconds(n int32) time.Duration { return time.Duration(n) * time.Second }
 
 // evaluateTriggers runs each due trigger's range query and updates its
 // status. The status changes only when a trigger's state does; the value
-// seen each time goes to metrics. It returns the triggers found Firing in
-// this pass, in spec order.
-func (r *Reconciler) evaluateTriggers(ctx context.Context, line *v1alpha1.ModelLine, p *pass) []v1alpha1.TriggerSpec {
+// seen each time goes to metrics. It leaves the triggers found Firing in
+// this pass in p.firing, in spec order.
+func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
+	line := p.line
 	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
 	now := p.now.Time
 	var firing []v1alpha1.TriggerSpec
@@ -196,7 +199,8 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, line *v1alpha1.ModelL
 	}
 	forgetRemovedTriggers(line, statuses)
 	line.Status.Triggers = statuses
-	return firing
+	p.firing = firing
+	return nil
 }
 
 func findTrigger(sts []v1alpha1.TriggerStatus, name string) *v1alpha1.TriggerStatus {

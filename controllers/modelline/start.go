@@ -22,7 +22,8 @@ import (
 // version. A request while another version is in flight is queued: its
 // version waits in Pending, and the line works through versions oldest
 // first.
-func (r *Reconciler) handleRetrainRequest(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+func (r *Reconciler) handleRetrainRequest(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	token, ok := line.Annotations[v1alpha1.RetrainRequestAnnotation]
 	if !ok || token == line.Status.LastRetrainRequest {
 		return nil
@@ -260,7 +261,8 @@ func (r *Reconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw 
 // (policy.StepSchedule): the way the built-in CronJob does, only the most
 // recent missed start, not past the starting deadline, and not while a
 // version is in flight.
-func (r *Reconciler) handleSchedule(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass) error {
+func (r *Reconciler) handleSchedule(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
 	s := line.Spec.Schedule
 	if s == nil {
 		line.Status.NextScheduleTime = nil
@@ -336,7 +338,8 @@ func (r *Reconciler) handleSchedule(ctx context.Context, line *v1alpha1.ModelLin
 // (policy.StepTriggers): the first trigger that fired in this pass starts a
 // retrain, unless a version is in flight, the line is cooling down from its
 // last retrain, or the live version has not served a whole window yet.
-func (r *Reconciler) handleTriggers(ctx context.Context, line *v1alpha1.ModelLine, vw *view, p *pass, firing []v1alpha1.TriggerSpec) error {
+func (r *Reconciler) handleTriggers(ctx context.Context, p *pass) error {
+	line, vw, firing := p.line, p.vw, p.firing
 	if len(firing) == 0 {
 		// A check Job run for a trigger that is still Firing answers as
 		// soon as it finishes, not at the trigger's next evaluation.
