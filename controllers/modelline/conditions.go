@@ -2,10 +2,13 @@ package modelline
 
 import (
 	"fmt"
+	"slices"
 	"time"
 
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/speccheck"
@@ -46,15 +49,6 @@ func setConditionSticky(conds *[]metav1.Condition, c metav1.Condition, generatio
 	return setCondition(conds, c, generation, now)
 }
 
-func conditionReason(line *v1alpha1.ModelLine, typ string) string {
-	for _, c := range line.Status.Conditions {
-		if c.Type == typ {
-			return c.Reason
-		}
-	}
-	return ""
-}
-
 // permissionDenied is the Ready condition of a line the manager lacks a
 // permission for: the API server's refusal names the verb, the resource and
 // the namespace.
@@ -65,8 +59,9 @@ func permissionDenied(err error) metav1.Condition {
 
 // readyCondition is the line's Ready condition: spec problems first (a person
 // must edit the line), then a missing Deployment or fallback (something else
-// must appear), then suspension.
-func readyCondition(suspended bool, obs lineObservation) metav1.Condition {
+// must appear), then a permission the API server refused the manager (err,
+// the pass's error, when it is one), then suspension.
+func readyCondition(suspended bool, obs lineObservation, err error) metav1.Condition {
 	c := metav1.Condition{Type: v1alpha1.ConditionReady}
 	switch {
 	case len(obs.problems) > 0:
@@ -75,6 +70,8 @@ func readyCondition(suspended bool, obs lineObservation) metav1.Condition {
 		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, obs.servingMissing
 	case obs.fallbackMissing != "":
 		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, obs.fallbackMissing
+	case apierrors.IsForbidden(err):
+		return permissionDenied(err)
 	case suspended:
 		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend is true: the controller reports status but does not act on this line"
 	default:
@@ -188,3 +185,69 @@ func awaitingApprovalCondition(vw *view) metav1.Condition {
 	}
 	return c
 }
+
+// The line's conditions and their one writer each:
+//
+//	Ready            readyCondition, from what the pass observed (spec,
+//	                 serving Deployment, fallback) and whether the API
+//	                 server refused the manager a permission
+//	Retraining       retrainingCondition, from the versions
+//	AwaitingApproval awaitingApprovalCondition, from the versions
+//	FallbackActive   fallbackCondition, from the versions
+//	Degraded         judgeConditions, from the guard's judgements
+//	Blocked          judgeConditions, from the start decisions' judgements
+//	NeedsReview      judgeConditions, from the judgements of the guard,
+//	                 the alternatives, the start decisions and the triggers
+//	                 falling quiet
+
+// A judgement is what a phase found that one of the conditions Degraded,
+// Blocked and NeedsReview reports. Phases record judgements in the pass,
+// in the order found, and judgeConditions turns them into the conditions
+// once, after the last phase; the producers (startJudgements,
+// guardJudgements, ...) are pure functions of what the phase decided.
+type judgement struct {
+	cond            string
+	status          metav1.ConditionStatus
+	reason, message string
+	// sticky keeps the message seen when the status and reason last
+	// changed, so a message carrying a live measurement does not rewrite
+	// the status at every evaluation.
+	sticky bool
+	// onlyWhile applies the judgement only while the condition has one of
+	// these reasons: a recovery withdraws only what it answers.
+	onlyWhile []string
+	// event tells of the judgement when it changes the condition's status
+	// or reason.
+	event *event
+}
+
+// judgeConditions applies judgements to the conditions in order, and
+// returns the events of those that changed one.
+func judgeConditions(conds *[]metav1.Condition, js []judgement, generation int64, now metav1.Time) []event {
+	var out []event
+	for _, j := range js {
+		if len(j.onlyWhile) > 0 {
+			if c := meta.FindStatusCondition(*conds, j.cond); c == nil || !slices.Contains(j.onlyWhile, c.Reason) {
+				continue
+			}
+		}
+		c := metav1.Condition{Type: j.cond, Status: j.status, Reason: j.reason, Message: text.Truncate(j.message, 2000)}
+		changed := false
+		if j.sticky {
+			changed = setConditionSticky(conds, c, generation, now)
+		} else {
+			changed = setCondition(conds, c, generation, now)
+		}
+		if changed && j.event != nil {
+			out = append(out, *j.event)
+		}
+	}
+	return out
+}
+
+// lineEvent is an event about the line, told by action.
+func lineEvent(line *v1alpha1.ModelLine, related runtime.Object, action, kind, reason, message string) *event {
+	return &event{regarding: line, related: related, kind: kind, reason: reason, message: message, action: action}
+}
+
+func isTrue(c *metav1.Condition) bool { return c != nil && c.Status == metav1.ConditionTrue }

@@ -1,15 +1,22 @@
 package modelline
 
 import (
+	"errors"
+	"fmt"
+	"slices"
 	"strings"
 	"testing"
 	"time"
 
 	appsv1 "k8s.io/api/apps/v1"
 	corev1 "k8s.io/api/core/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime/schema"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/engine/policy"
 	"plumbline.dev/plumbline/internal/engine/speccheck"
 )
 
@@ -31,9 +38,20 @@ func TestReadyCondition(t *testing.T) {
 		{"missing fallback", false, lineObservation{fallbackMissing: "no rules"}, metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, "no rules"},
 		{"suspended", true, lineObservation{}, metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend"},
 		{"suspended but invalid", true, lineObservation{problems: bad}, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
+		{"a permission refused", false, lineObservation{}, metav1.ConditionFalse, v1alpha1.ReasonPermissionDenied, `cannot create resource "jobs"`},
+		{"a spec problem beats a permission", false, lineObservation{problems: bad}, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
+		{"an error that is not a refusal", false, lineObservation{}, metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "spec is valid"},
 	}
+	forbidden := apierrors.NewForbidden(schema.GroupResource{Group: "batch", Resource: "jobs"}, "late-risk-v1-train", errors.New(`cannot create resource "jobs"`))
 	for _, tc := range cases {
-		c := readyCondition(tc.suspended, tc.obs)
+		var err error
+		switch {
+		case strings.Contains(tc.name, "permission"):
+			err = forbidden
+		case strings.Contains(tc.name, "not a refusal"):
+			err = apierrors.NewInternalError(errors.New("etcdserver: leader changed"))
+		}
+		c := readyCondition(tc.suspended, tc.obs, err)
 		if c.Type != v1alpha1.ConditionReady || c.Status != tc.wantStatus || c.Reason != tc.wantReason || !strings.Contains(c.Message, tc.wantText) {
 			t.Errorf("%s: got %s=%s/%s %q; want %s/%s containing %q", tc.name, c.Type, c.Status, c.Reason, c.Message, tc.wantStatus, tc.wantReason, tc.wantText)
 		}
@@ -107,5 +125,146 @@ func TestFallbackProblems(t *testing.T) {
 		if p.Field != "spec.fallback.ruleBasedVersion" {
 			t.Errorf("field %q", p.Field)
 		}
+	}
+}
+
+// judgeConditions applies judgements in order: the last one found for a
+// condition wins, a sticky one keeps the message of the change, a recovery
+// withdraws only what it answers, and an event goes out only on a change.
+func TestJudgeConditions(t *testing.T) {
+	now := metav1.NewTime(time.Date(2026, 11, 2, 9, 0, 0, 0, time.UTC))
+	line := &v1alpha1.ModelLine{}
+	ev := func(reason string) *event { return lineEvent(line, nil, "test", "Warning", reason, reason) }
+	blocked := func(s metav1.ConditionStatus, reason, msg string, e *event) judgement {
+		return judgement{cond: v1alpha1.ConditionBlocked, status: s, reason: reason, message: msg, sticky: true, event: e}
+	}
+	recovered := judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionFalse, reason: "Recovered", message: "healthy", onlyWhile: []string{"NoFallback"}}
+	cases := []struct {
+		name    string
+		before  []metav1.Condition
+		js      []judgement
+		typ     string
+		status  metav1.ConditionStatus
+		reason  string
+		message string
+		events  []string
+	}{
+		{"a first judgement sets and tells", nil,
+			[]judgement{blocked(metav1.ConditionTrue, "DataQualityIssue", "address missing 0.31", ev("RetrainBlocked"))},
+			v1alpha1.ConditionBlocked, metav1.ConditionTrue, "DataQualityIssue", "address missing 0.31", []string{"RetrainBlocked"}},
+		{"sticky: the same status and reason keep the first message, and tell nothing",
+			[]metav1.Condition{{Type: v1alpha1.ConditionBlocked, Status: metav1.ConditionTrue, Reason: "DataQualityIssue", Message: "address missing 0.31"}},
+			[]judgement{blocked(metav1.ConditionTrue, "DataQualityIssue", "address missing 0.29", ev("RetrainBlocked"))},
+			v1alpha1.ConditionBlocked, metav1.ConditionTrue, "DataQualityIssue", "address missing 0.31", nil},
+		{"the last judgement of a pass wins", nil,
+			[]judgement{blocked(metav1.ConditionUnknown, "CheckRunning", "check Job running", nil), blocked(metav1.ConditionFalse, "ChecksPassed", "started", nil)},
+			v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed", "started", nil},
+		{"a recovery withdraws what it answers",
+			[]metav1.Condition{{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionTrue, Reason: "NoFallback", Message: "nothing to fall back to"}},
+			[]judgement{recovered}, v1alpha1.ConditionNeedsReview, metav1.ConditionFalse, "Recovered", "healthy", nil},
+		{"and only that",
+			[]metav1.Condition{{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionTrue, Reason: "DegradedWithoutDrift", Message: "no drift"}},
+			[]judgement{recovered}, v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, "DegradedWithoutDrift", "no drift", nil},
+		{"a recovery of nothing sets nothing", nil, []judgement{recovered}, v1alpha1.ConditionNeedsReview, "", "", "", nil},
+	}
+	for _, c := range cases {
+		conds := append([]metav1.Condition(nil), c.before...)
+		evs := judgeConditions(&conds, c.js, 3, now)
+		got := meta.FindStatusCondition(conds, c.typ)
+		switch {
+		case c.status == "" && got != nil:
+			t.Errorf("%s: %+v, want no condition", c.name, *got)
+		case c.status != "" && (got == nil || got.Status != c.status || got.Reason != c.reason || got.Message != c.message):
+			t.Errorf("%s: %+v, want %s/%s %q", c.name, got, c.status, c.reason, c.message)
+		}
+		var reasons []string
+		for _, e := range evs {
+			reasons = append(reasons, e.reason)
+		}
+		if strings.Join(reasons, ",") != strings.Join(c.events, ",") {
+			t.Errorf("%s: events %v, want %v", c.name, reasons, c.events)
+		}
+	}
+}
+
+// What each start decision says of Blocked and NeedsReview.
+func TestStartJudgements(t *testing.T) {
+	line := &v1alpha1.ModelLine{}
+	cases := []struct {
+		outcome string
+		want    []string // cond=status/reason
+		events  []string
+	}{
+		{outcomeStarted, []string{"Blocked=False/ChecksPassed", "NeedsReview=False/Retraining"}, nil},
+		{outcomeDataQuality, []string{"Blocked=True/DataQualityIssue"}, []string{"RetrainBlocked"}},
+		{outcomeChecksUnknown, []string{"Blocked=Unknown/ChecksUnknown"}, []string{"ChecksUnknown"}},
+		{outcomeNoDrift, []string{"Blocked=False/DataQualityOK", "NeedsReview=True/DegradedWithoutDrift"}, []string{"NeedsReview"}},
+		{outcomeInsufficient, []string{"Blocked=False/DataQualityOK", "NeedsReview=True/InsufficientData"}, []string{"NeedsReview"}},
+		{outcomeInFlight, nil, nil},
+	}
+	for _, c := range cases {
+		var got, evs []string
+		for _, j := range startJudgements(line, "Trigger/auc-drop", policy.Verdict{Outcome: c.outcome, Message: "m"}) {
+			got = append(got, fmt.Sprintf("%s=%s/%s", j.cond, j.status, j.reason))
+			if !j.sticky || !strings.Contains(j.message, "Trigger/auc-drop") && j.reason != "DataQualityOK" {
+				t.Errorf("%s: judgement %+v is not sticky or does not name what asked", c.outcome, j)
+			}
+			if j.event != nil {
+				evs = append(evs, j.event.reason)
+			}
+		}
+		if strings.Join(got, ",") != strings.Join(c.want, ",") || strings.Join(evs, ",") != strings.Join(c.events, ",") {
+			t.Errorf("%s: %v %v, want %v %v", c.outcome, got, evs, c.want, c.events)
+		}
+	}
+}
+
+// What the guard's verdict says of Degraded and NeedsReview; a switch tells
+// of itself, so Degraded has no event of its own then.
+func TestGuardJudgements(t *testing.T) {
+	line := &v1alpha1.ModelLine{}
+	live := &v1alpha1.ModelVersion{}
+	cases := []struct {
+		name   string
+		v      guardVerdict
+		want   []string
+		events []string
+	}{
+		{"healthy", guardVerdict{degraded: metav1.ConditionFalse, reason: reasonGuardHealthy}, []string{"Degraded=False/Healthy", "NeedsReview=False/Recovered"}, nil},
+		{"unknown", guardVerdict{degraded: metav1.ConditionUnknown, reason: reasonGuardUnknown}, []string{"Degraded=Unknown/GuardUnknown"}, nil},
+		{"switching", guardVerdict{degraded: metav1.ConditionTrue, reason: reasonRegressed, target: live}, []string{"Degraded=True/Regressed"}, nil},
+		{"after probation", guardVerdict{degraded: metav1.ConditionTrue, reason: reasonRegressedLate}, []string{"Degraded=True/RegressedAfterProbation"}, []string{"Degraded"}},
+		{"nothing to fall back to", guardVerdict{degraded: metav1.ConditionTrue, reason: reasonNoFallback, review: true},
+			[]string{"Degraded=True/NoFallback", "NeedsReview=True/NoFallback"}, []string{"Degraded", "NeedsReview"}},
+	}
+	for _, c := range cases {
+		var got, evs []string
+		for _, j := range guardJudgements(line, live, c.v) {
+			got = append(got, fmt.Sprintf("%s=%s/%s", j.cond, j.status, j.reason))
+			if j.event != nil {
+				evs = append(evs, j.event.reason)
+			}
+		}
+		if strings.Join(got, ",") != strings.Join(c.want, ",") || strings.Join(evs, ",") != strings.Join(c.events, ",") {
+			t.Errorf("%s: %v %v, want %v %v", c.name, got, evs, c.want, c.events)
+		}
+	}
+}
+
+// The triggers falling quiet withdraw the review they asked for: every
+// trigger Inactive, and none is not.
+func TestQuietJudgement(t *testing.T) {
+	line := &v1alpha1.ModelLine{}
+	if quietJudgement(line) != nil {
+		t.Error("a line without triggers fell quiet")
+	}
+	line.Status.Triggers = []v1alpha1.TriggerStatus{{Name: "a", State: v1alpha1.TriggerInactive}, {Name: "b", State: v1alpha1.TriggerPending}}
+	if quietJudgement(line) != nil {
+		t.Error("quiet while a trigger is Pending")
+	}
+	line.Status.Triggers[1].State = v1alpha1.TriggerInactive
+	j := quietJudgement(line)
+	if j == nil || j.status != metav1.ConditionFalse || !slices.Equal(j.onlyWhile, []string{outcomeNoDrift, outcomeInsufficient}) {
+		t.Errorf("quiet: %+v", j)
 	}
 }

@@ -135,9 +135,8 @@ func (r *Reconciler) watchAlternatives(ctx context.Context, p *pass) error {
 			why = append(why, fmt.Sprintf("%s: %s", c.Version, c.Message))
 		}
 		msg := fmt.Sprintf("%s, and no alternative beats %s on the golden set (%s): a person should decide", altReasonText(a.Reason), a.Against, strings.Join(why, "; "))
-		if setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionTrue, Reason: "NoAlternativeQualified", Message: text.Truncate(msg, 2000)}, line.Generation, p.now) {
-			p.eventFor(fmt.Sprintf("Alternatives/%d", a.Number), line, nil, corev1.EventTypeWarning, "NeedsReview", "%s", msg)
-		}
+		p.judge(judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionTrue, reason: "NoAlternativeQualified", message: msg, sticky: true,
+			event: lineEvent(line, nil, fmt.Sprintf("Alternatives/%d", a.Number), corev1.EventTypeWarning, "NeedsReview", msg)})
 		return nil
 	}
 	target := vw.version(best.Version)
@@ -287,7 +286,28 @@ func decideGuard(line *v1alpha1.ModelLine, vw *view, res trigger.Result, now tim
 		message: fmt.Sprintf("%s; switching to %s", regressed, target.Name)}
 }
 
-// guard acts on the guard's result: conditions, and a switch when called for.
+// guardJudgements is what the guard's verdict says of the line's Degraded
+// and NeedsReview conditions.
+func guardJudgements(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion, v guardVerdict) []judgement {
+	degraded := judgement{cond: v1alpha1.ConditionDegraded, status: v.degraded, reason: v.reason, message: v.message, sticky: true}
+	if v.degraded == metav1.ConditionTrue && v.target == nil {
+		// A switch has events of its own.
+		degraded.event = lineEvent(line, live, "Guard/"+v.reason, corev1.EventTypeWarning, "Degraded", v.message)
+	}
+	js := []judgement{degraded}
+	switch {
+	case v.review:
+		js = append(js, judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionTrue, reason: v.reason, message: v.message, sticky: true,
+			event: lineEvent(line, live, "Guard/"+v.reason, corev1.EventTypeWarning, "NeedsReview", v.message)})
+	case v.degraded == metav1.ConditionFalse:
+		js = append(js, judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionFalse, reason: "Recovered",
+			message: "the guard finds the live version healthy again", onlyWhile: []string{reasonRollbackLimit, reasonNoFallback}})
+	}
+	return js
+}
+
+// guard acts on the guard's result: it judges the conditions, and starts
+// a switch when called for.
 func (r *Reconciler) guard(_ context.Context, p *pass) error {
 	line, vw, res := p.line, p.vw, p.guarded
 	if line.Spec.Guard == nil {
@@ -297,17 +317,7 @@ func (r *Reconciler) guard(_ context.Context, p *pass) error {
 		return nil // not judged in this pass: the conditions stand
 	}
 	v := decideGuard(line, vw, *res, p.now.Time)
-	changed := setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionDegraded, Status: v.degraded, Reason: v.reason, Message: text.Truncate(v.message, 2000)}, line.Generation, p.now)
-	if changed && v.degraded == metav1.ConditionTrue && v.target == nil {
-		p.eventFor("Guard/"+v.reason, line, vw.live(), corev1.EventTypeWarning, "Degraded", "%s", v.message)
-	}
-	if v.review {
-		if setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionTrue, Reason: v.reason, Message: text.Truncate(v.message, 2000)}, line.Generation, p.now) {
-			p.eventFor("Guard/"+v.reason, line, vw.live(), corev1.EventTypeWarning, "NeedsReview", "%s", v.message)
-		}
-	} else if c := conditionReason(line, v1alpha1.ConditionNeedsReview); (c == reasonRollbackLimit || c == reasonNoFallback) && v.degraded == metav1.ConditionFalse {
-		setCondition(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionFalse, Reason: "Recovered", Message: "the guard finds the live version healthy again"}, line.Generation, p.now)
-	}
+	p.judge(guardJudgements(line, vw.live(), v)...)
 	if v.target == nil {
 		return nil
 	}

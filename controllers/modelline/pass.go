@@ -2,10 +2,12 @@ package modelline
 
 import (
 	"fmt"
+	"slices"
 	"time"
 
 	appsv1 "k8s.io/api/apps/v1"
 	batchv1 "k8s.io/api/batch/v1"
+	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/runtime"
 
@@ -121,6 +123,10 @@ type pass struct {
 	guarded *trigger.Result
 	// stepped is the version the pass took a step.
 	stepped *v1alpha1.ModelVersion
+	// judgements are what the phases found for Degraded, Blocked and
+	// NeedsReview, in order; judgeConditions applies them after the last
+	// phase.
+	judgements []judgement
 
 	events []event
 	// metrics are counts to make once the pass's writes are done; a count
@@ -143,6 +149,17 @@ type pass struct {
 type count struct {
 	version string
 	inc     func()
+}
+
+// judge records judgements for the line's conditions.
+func (p *pass) judge(js ...judgement) { p.judgements = append(p.judgements, js...) }
+
+// condition is one of the line's conditions as the judgements so far leave
+// it, for a phase that acts on what an earlier one judged.
+func (p *pass) condition(typ string) *metav1.Condition {
+	conds := slices.Clone(p.line.Status.Conditions)
+	judgeConditions(&conds, p.judgements, p.line.Generation, p.now)
+	return meta.FindStatusCondition(conds, typ)
 }
 
 // count adds a line-level count.

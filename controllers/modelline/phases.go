@@ -4,8 +4,6 @@ import (
 	"context"
 	"fmt"
 
-	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
-
 	"plumbline.dev/plumbline/api/v1alpha1"
 )
 
@@ -89,7 +87,7 @@ func (r *Reconciler) stepActive(ctx context.Context, p *pass) error {
 func (r *Reconciler) alternativesAfterRejection(ctx context.Context, p *pass) error {
 	v := p.stepped
 	if v == nil || v.Status.Phase != v1alpha1.PhaseRejected || v.Status.Gate == nil || v.Status.Gate.Verdict != v1alpha1.GateFailed ||
-		!conditionIs(p.line.Status.Conditions, v1alpha1.ConditionDegraded, metav1.ConditionTrue) {
+		!isTrue(p.condition(v1alpha1.ConditionDegraded)) {
 		return nil
 	}
 	_, err := r.startAlternatives(ctx, p.line, p.vw, p, altCandidateRejected)

@@ -112,16 +112,13 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 	before := snapshot(vw.versions)
 
 	p := &pass{now: metav1.NewTime(r.Clock.Now()), line: &line, vw: vw}
-	ready := readyCondition(line.Spec.Suspend, obs)
 	var phaseErr error
-	if ready.Status == metav1.ConditionTrue {
+	if readyCondition(line.Spec.Suspend, obs, nil).Status == metav1.ConditionTrue {
 		phaseErr = r.runPhases(ctx, p)
 	}
 	denied := apierrors.IsForbidden(phaseErr)
-	if denied {
-		ready = permissionDenied(phaseErr)
-	}
-	readyChanged := setCondition(&line.Status.Conditions, ready, line.Generation, p.now)
+	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs, phaseErr), line.Generation, p.now)
+	p.events = append(p.events, judgeConditions(&line.Status.Conditions, p.judgements, line.Generation, p.now)...)
 	summarize(&line, vw, p.now)
 	if phaseErr == nil {
 		line.Status.ObservedGeneration = line.Generation
@@ -207,7 +204,7 @@ const permissionRetry = 30 * time.Second
 // denied writes only the Ready condition of a line the manager could not
 // even read the parts of (a list or get refused), and tries again calmly.
 func (r *Reconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine, err error) (ctrl.Result, error) {
-	changed := setCondition(&line.Status.Conditions, permissionDenied(err), line.Generation, metav1.NewTime(r.Clock.Now()))
+	changed := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, lineObservation{}, err), line.Generation, metav1.NewTime(r.Clock.Now()))
 	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
 		if err := r.Status().Patch(ctx, line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
 			return ctrl.Result{}, fmt.Errorf("write status of ModelLine %s: %w", client.ObjectKeyFromObject(line), err)

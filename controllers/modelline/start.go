@@ -165,31 +165,36 @@ func spendsCheck(path, outcome string, st *v1alpha1.CheckRunStatus) bool {
 	}
 }
 
-// apply records a decision's outcome on the line's Blocked and NeedsReview
-// conditions, with an event when a condition changes.
-func applyVerdict(line *v1alpha1.ModelLine, p *pass, reason string, v policy.Verdict) {
-	cond := func(typ string, status metav1.ConditionStatus, why, msg string) bool {
-		return setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: why, Message: text.Truncate(msg, 2000)}, line.Generation, p.now)
-	}
+// startJudgements is what a start decision says of the line's Blocked and
+// NeedsReview conditions.
+func startJudgements(line *v1alpha1.ModelLine, reason string, v policy.Verdict) []judgement {
 	msg := fmt.Sprintf("retrain for %s: %s", reason, v.Message)
+	blocked := func(status metav1.ConditionStatus, why, msg string, ev *event) judgement {
+		return judgement{cond: v1alpha1.ConditionBlocked, status: status, reason: why, message: msg, sticky: true, event: ev}
+	}
+	review := func(status metav1.ConditionStatus, why string, ev *event) judgement {
+		return judgement{cond: v1alpha1.ConditionNeedsReview, status: status, reason: why, message: msg, sticky: true, event: ev}
+	}
 	switch v.Outcome {
 	case outcomeStarted:
-		cond(v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed", msg)
-		cond(v1alpha1.ConditionNeedsReview, metav1.ConditionFalse, "Retraining", msg)
+		return []judgement{blocked(metav1.ConditionFalse, "ChecksPassed", msg, nil), review(metav1.ConditionFalse, "Retraining", nil)}
 	case outcomeDataQuality:
-		if cond(v1alpha1.ConditionBlocked, metav1.ConditionTrue, outcomeDataQuality, msg) {
-			p.eventFor(reason, line, nil, corev1.EventTypeWarning, "RetrainBlocked", "%s", msg)
-		}
+		return []judgement{blocked(metav1.ConditionTrue, outcomeDataQuality, msg,
+			lineEvent(line, nil, reason, corev1.EventTypeWarning, "RetrainBlocked", msg))}
 	case outcomeChecksUnknown:
-		if cond(v1alpha1.ConditionBlocked, metav1.ConditionUnknown, outcomeChecksUnknown, msg+"; the start waits until the checks can be judged") {
-			p.eventFor(reason, line, nil, corev1.EventTypeWarning, outcomeChecksUnknown, "%s", msg)
-		}
+		return []judgement{blocked(metav1.ConditionUnknown, outcomeChecksUnknown, msg+"; the start waits until the checks can be judged",
+			lineEvent(line, nil, reason, corev1.EventTypeWarning, outcomeChecksUnknown, msg))}
 	case outcomeNoDrift, outcomeInsufficient:
-		cond(v1alpha1.ConditionBlocked, metav1.ConditionFalse, "DataQualityOK", "the data-quality checks passed")
-		if cond(v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, v.Outcome, msg) {
-			p.eventFor(reason, line, nil, corev1.EventTypeWarning, "NeedsReview", "%s: %s", v.Outcome, msg)
-		}
+		return []judgement{dataQualityOK(),
+			review(metav1.ConditionTrue, v.Outcome, lineEvent(line, nil, reason, corev1.EventTypeWarning, "NeedsReview", v.Outcome+": "+msg))}
 	}
+	return nil
+}
+
+// dataQualityOK is the Blocked judgement of checks whose data quality
+// passed, whatever else they found.
+func dataQualityOK() judgement {
+	return judgement{cond: v1alpha1.ConditionBlocked, status: metav1.ConditionFalse, reason: "DataQualityOK", message: "the data-quality checks passed", sticky: true}
 }
 
 // tryStart is the path every retrain takes: the checks, then the start. It
@@ -207,8 +212,7 @@ func (r *Reconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw 
 		}
 		if jc.pending {
 			msg := fmt.Sprintf("retrain for %s: check Job %s is running; the start waits for its report", reason, line.Status.LastCheck.Job)
-			setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionBlocked, Status: metav1.ConditionUnknown,
-				Reason: reasonCheckRunning, Message: msg}, line.Generation, p.now)
+			p.judge(judgement{cond: v1alpha1.ConditionBlocked, status: metav1.ConditionUnknown, reason: reasonCheckRunning, message: msg, sticky: true})
 			p.wakeAt(p.now.Add(checkRetry))
 			return false, nil, nil
 		}
@@ -232,12 +236,11 @@ func (r *Reconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw 
 			return false, nil, err
 		}
 		if started {
-			setConditionSticky(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionBlocked, Status: metav1.ConditionFalse,
-				Reason: "DataQualityOK", Message: "the data-quality checks passed"}, line.Generation, p.now)
+			p.judge(dataQualityOK())
 			return true, nil, nil
 		}
 	}
-	applyVerdict(line, p, reason, v)
+	p.judge(startJudgements(line, reason, v)...)
 	switch v.Outcome {
 	case outcomeChecksUnknown:
 		p.wakeAt(p.now.Add(checkRetry))
@@ -357,7 +360,9 @@ func (r *Reconciler) handleTriggers(ctx context.Context, p *pass) error {
 	}
 	step, ok := policy.StepTriggers(fs, vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), liveSince, p.now.Time)
 	if !ok {
-		clearReviewWhenQuiet(line, p)
+		if j := quietJudgement(line); j != nil {
+			p.judge(*j)
+		}
 		return nil
 	}
 	if !step.May() {
@@ -402,20 +407,18 @@ func lastRetrain(line *v1alpha1.ModelLine) *time.Time {
 	return nil
 }
 
-// clearReviewWhenQuiet withdraws a review the triggers asked for once every
-// trigger is Inactive again: the drop that raised it is over.
-func clearReviewWhenQuiet(line *v1alpha1.ModelLine, p *pass) {
-	if r := conditionReason(line, v1alpha1.ConditionNeedsReview); r != outcomeNoDrift && r != outcomeInsufficient {
-		return
-	}
+// quietJudgement withdraws a review the triggers asked for once every
+// trigger is Inactive again: the drop that raised it is over. nil while a
+// trigger is not Inactive.
+func quietJudgement(line *v1alpha1.ModelLine) *judgement {
 	if len(line.Status.Triggers) == 0 {
-		return
+		return nil
 	}
 	for _, t := range line.Status.Triggers {
 		if t.State != v1alpha1.TriggerInactive {
-			return
+			return nil
 		}
 	}
-	setCondition(&line.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionNeedsReview, Status: metav1.ConditionFalse,
-		Reason: "Recovered", Message: "every trigger is Inactive again"}, line.Generation, p.now)
+	return &judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionFalse, reason: "Recovered", message: "every trigger is Inactive again",
+		onlyWhile: []string{outcomeNoDrift, outcomeInsufficient}}
 }
