@@ -106,18 +106,14 @@ func (r *Reconciler) runCheckJob(ctx context.Context, line *v1alpha1.ModelLine, 
 		st = &v1alpha1.CheckRunStatus{Number: n, Job: checkJobName(line.Name, n), Reason: reason, StartedTime: p.now.DeepCopy()}
 		line.Status.LastCheck = st
 		want := buildCheckJob(line, vw, n, reason, p.now.Time)
-		if err := r.Create(ctx, want); err != nil && !apierrors.IsAlreadyExists(err) {
-			return jobChecks{}, fmt.Errorf("create check Job %s: %w", want.Name, err)
-		} else if err != nil {
-			var got batchv1.Job
-			if err := r.APIReader.Get(ctx, client.ObjectKeyFromObject(want), &got); err != nil {
-				return jobChecks{}, fmt.Errorf("read existing check Job %s: %w", want.Name, err)
-			}
-			if !metav1.IsControlledBy(&got, line) {
-				r.checkUnusable(line, p, st, reasonCheckJobTaken, fmt.Sprintf("a Job named %s exists and does not belong to this line; delete or rename it", want.Name))
-				return answers(st), nil
-			}
-		} else {
+		_, created, err := r.ensureJob(ctx, want, line)
+		switch {
+		case errors.Is(err, errJobNameTaken):
+			r.checkUnusable(line, p, st, reasonCheckJobTaken, fmt.Sprintf("a Job named %s exists and does not belong to this line; delete or rename it", want.Name))
+			return answers(st), nil
+		case err != nil:
+			return jobChecks{}, err
+		case created:
 			p.eventFor(fmt.Sprintf("Check/%d", n), line, nil, corev1.EventTypeNormal, "CheckStarted", "%s: check Job %s started", reason, want.Name)
 		}
 		if err := r.pruneCheckJobs(ctx, line, vw, n); err != nil {
@@ -155,27 +151,19 @@ func (r *Reconciler) checkUnusable(line *v1alpha1.ModelLine, p *pass, st *v1alph
 // A Job that failed, or left no report the parser accepts, answers Unknown:
 // the start waits, and the next try runs the Job again.
 func (r *Reconciler) readCheckJob(ctx context.Context, line *v1alpha1.ModelLine, job *batchv1.Job, p *pass, st *v1alpha1.CheckRunStatus) (bool, error) {
-	outcome, reason, message := jobResult(job)
-	if outcome == jobRunning {
-		return false, nil
+	out, err := r.readReport(ctx, job, "check")
+	if err != nil || !out.done {
+		return false, err
 	}
-	var pods corev1.PodList
-	if err := r.APIReader.List(ctx, &pods, client.InNamespace(job.Namespace), client.MatchingLabels{batchv1.ControllerUidLabel: string(job.UID)}); err != nil {
-		return false, fmt.Errorf("list Pods of Job %s: %w", job.Name, err)
-	}
-	raw, pod, found := terminationMessage(job, pods.Items)
-	if outcome == jobFailed {
-		detail := ""
-		if found && raw != "" {
-			detail = fmt.Sprintf("; Pod %s said: %s", pod, text.Truncate(raw, 400))
-		}
-		r.checkUnusable(line, p, st, reasonCheckFailed, fmt.Sprintf("check Job %s failed: %s: %s%s", job.Name, reason, message, detail))
+	if out.failed != "" {
+		r.checkUnusable(line, p, st, reasonCheckFailed, out.failed)
 		return true, nil
 	}
-	if !found {
+	if !out.found {
 		r.checkUnusable(line, p, st, checkreport.ReasonMissing, fmt.Sprintf("check Job %s completed but none of its Pods is left with a report", job.Name))
 		return true, nil
 	}
+	raw, pod := out.raw, out.pod
 	rep, err := checkreport.Parse([]byte(raw))
 	var bad *checkreport.Error
 	if errors.As(err, &bad) {

@@ -18,6 +18,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/engine/text"
 	"plumbline.dev/plumbline/internal/tools/evaluate"
 )
 
@@ -365,10 +366,12 @@ func better(a, b *corev1.Pod) bool {
 // not own.
 var errJobNameTaken = errors.New("job name taken")
 
-// ensureJob creates a Job, or finds the one an earlier pass created under
-// the same deterministic name. A Job of that name that the version does not
-// own is errJobNameTaken.
-func (r *Reconciler) ensureJob(ctx context.Context, want *batchv1.Job, owner *v1alpha1.ModelVersion) (*batchv1.Job, bool, error) {
+// ensureJob creates a child Job (a version's training or evaluation Job,
+// or the line's check Job), or finds the one an earlier pass created under
+// the same deterministic name: a pass that died between creating the Job
+// and recording it adopts it instead of making a second. A Job of that name
+// that the owner does not control is errJobNameTaken.
+func (r *Reconciler) ensureJob(ctx context.Context, want *batchv1.Job, owner metav1.Object) (*batchv1.Job, bool, error) {
 	err := r.Create(ctx, want)
 	if err == nil {
 		return want, true, nil
@@ -386,21 +389,39 @@ func (r *Reconciler) ensureJob(ctx context.Context, want *batchv1.Job, owner *v1
 	return &got, false, nil
 }
 
-// findJob returns the version's Job for a role: from the cache, or, right
-// after its creation when the cache may lag, from the API server. nil means
-// it does not exist.
-func (r *Reconciler) findJob(ctx context.Context, vw *view, v *v1alpha1.ModelVersion, role string) (*batchv1.Job, error) {
-	name := jobName(v.Name, role)
-	if job := vw.jobs[name]; job != nil {
-		return job, nil
+// jobReport is what a finished child Job left behind.
+type jobReport struct {
+	// done is false while the Job runs.
+	done bool
+	// failed says how the Job failed, with what its Pod said; empty when
+	// it completed.
+	failed string
+	// raw is the report the newest finished Pod's last container left in
+	// its termination message; found says a finished Pod was there.
+	raw, pod string
+	found    bool
+}
+
+// readReport reads what a child Job left: its outcome, and the report in
+// its Pod's termination message (what names the Job in messages: check,
+// evaluation).
+func (r *Reconciler) readReport(ctx context.Context, job *batchv1.Job, what string) (jobReport, error) {
+	outcome, reason, message := jobResult(job)
+	if outcome == jobRunning {
+		return jobReport{}, nil
 	}
-	var job batchv1.Job
-	err := r.APIReader.Get(ctx, types.NamespacedName{Namespace: v.Namespace, Name: name}, &job)
-	if apierrors.IsNotFound(err) {
-		return nil, nil
+	var pods corev1.PodList
+	if err := r.APIReader.List(ctx, &pods, client.InNamespace(job.Namespace), client.MatchingLabels{batchv1.ControllerUidLabel: string(job.UID)}); err != nil {
+		return jobReport{}, fmt.Errorf("list Pods of Job %s: %w", job.Name, err)
 	}
-	if err != nil {
-		return nil, fmt.Errorf("read Job %s: %w", name, err)
+	out := jobReport{done: true}
+	out.raw, out.pod, out.found = terminationMessage(job, pods.Items)
+	if outcome == jobFailed {
+		detail := ""
+		if out.found && out.raw != "" {
+			detail = fmt.Sprintf("; Pod %s said: %s", out.pod, text.Truncate(out.raw, 400))
+		}
+		out.failed = fmt.Sprintf("%s Job %s failed: %s: %s%s", what, job.Name, reason, message, detail)
 	}
-	return &job, nil
+	return out, nil
 }

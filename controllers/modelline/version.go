@@ -215,7 +215,7 @@ func (r *Reconciler) jobNameTaken(line *v1alpha1.ModelLine, v *v1alpha1.ModelVer
 
 // watchTraining follows the training Job to its end.
 func (r *Reconciler) watchTraining(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
-	job, err := r.findJob(ctx, vw, v, roleTraining)
+	job, err := r.jobNamed(ctx, vw, v.Namespace, jobName(v.Name, roleTraining))
 	if err != nil {
 		return err
 	}
@@ -284,7 +284,7 @@ func (r *Reconciler) startEvaluation(ctx context.Context, line *v1alpha1.ModelLi
 
 // watchEvaluation follows the gate Job, reads its report and judges it.
 func (r *Reconciler) watchEvaluation(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
-	job, err := r.findJob(ctx, vw, v, roleGate)
+	job, err := r.jobNamed(ctx, vw, v.Namespace, jobName(v.Name, roleGate))
 	if err != nil {
 		return err
 	}
@@ -309,25 +309,17 @@ func (r *Reconciler) judgeGateJob(ctx context.Context, line *v1alpha1.ModelLine,
 	refuse := func(reason, msg string) (v1alpha1.GateResult, bool, error) {
 		return v1alpha1.GateResult{Verdict: v1alpha1.GateFailed, Reason: reason, Message: text.Truncate(msg, 4000), BaselineVersion: baseline, EvaluatedTime: &p.now}, true, nil
 	}
-	outcome, reason, message := jobResult(job)
-	if outcome == jobRunning {
-		return v1alpha1.GateResult{}, false, nil
+	out, err := r.readReport(ctx, job, "evaluation")
+	if err != nil || !out.done {
+		return v1alpha1.GateResult{}, false, err
 	}
-	var pods corev1.PodList
-	if err := r.APIReader.List(ctx, &pods, client.InNamespace(job.Namespace), client.MatchingLabels{batchv1.ControllerUidLabel: string(job.UID)}); err != nil {
-		return v1alpha1.GateResult{}, false, fmt.Errorf("list Pods of Job %s: %w", job.Name, err)
+	if out.failed != "" {
+		return refuse(reasonEvaluationFailed, out.failed)
 	}
-	raw, pod, found := terminationMessage(job, pods.Items)
-	if outcome == jobFailed {
-		detail := ""
-		if found && raw != "" {
-			detail = fmt.Sprintf("; Pod %s said: %s", pod, text.Truncate(raw, 400))
-		}
-		return refuse(reasonEvaluationFailed, fmt.Sprintf("evaluation Job %s failed: %s: %s%s", job.Name, reason, message, detail))
-	}
-	if !found {
+	if !out.found {
 		return refuse(gatereport.ReasonMissing, fmt.Sprintf("evaluation Job %s completed but none of its Pods is left with a report (a short ttlSecondsAfterFinished can remove them)", job.Name))
 	}
+	raw, pod := out.raw, out.pod
 	rep, err := gatereport.Parse([]byte(raw))
 	var bad *gatereport.Error
 	if errors.As(err, &bad) {
