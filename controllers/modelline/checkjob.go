@@ -16,6 +16,7 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/contract/checkreport"
+	"plumbline.dev/plumbline/internal/contract/jobenv"
 	"plumbline.dev/plumbline/internal/engine/promq"
 	"plumbline.dev/plumbline/internal/engine/text"
 )
@@ -29,10 +30,6 @@ const (
 	// checkJobsKept is how many of a line's check Jobs are kept, newest
 	// first, for their logs.
 	checkJobsKept = 3
-
-	envReferenceFrom = "PLUMBLINE_REFERENCE_FROM"
-	envReferenceTo   = "PLUMBLINE_REFERENCE_TO"
-	envLiveVersion   = "PLUMBLINE_LIVE_VERSION"
 
 	reasonCheckRunning  = "CheckRunning"
 	reasonCheckJobTaken = "CheckJobNameTaken"
@@ -54,10 +51,10 @@ func buildCheckJob(line *v1alpha1.ModelLine, vw *view, n int32, reason string, n
 		numberLabel:        fmt.Sprint(n),
 	})
 	env := []corev1.EnvVar{
-		{Name: envLine, Value: line.Name},
-		{Name: envReason, Value: reason},
-		{Name: envDataFrom, Value: formatTime(lastTrainedUntil(vw, nil))},
-		{Name: envDataTo, Value: formatTime(&now)},
+		{Name: jobenv.Line, Value: line.Name},
+		{Name: jobenv.Reason, Value: reason},
+		{Name: jobenv.DataFrom, Value: formatTime(lastTrainedUntil(vw, nil))},
+		{Name: jobenv.DataTo, Value: formatTime(&now)},
 	}
 	live, refFrom, refTo := "", "", ""
 	if v := vw.live(); v != nil {
@@ -69,8 +66,8 @@ func buildCheckJob(line *v1alpha1.ModelLine, vw *view, n int32, reason string, n
 			refTo = formatTime(&v.Status.DataTo.Time)
 		}
 	}
-	env = append(env, corev1.EnvVar{Name: envLiveVersion, Value: live},
-		corev1.EnvVar{Name: envReferenceFrom, Value: refFrom}, corev1.EnvVar{Name: envReferenceTo, Value: refTo})
+	env = append(env, corev1.EnvVar{Name: jobenv.LiveVersion, Value: live},
+		corev1.EnvVar{Name: jobenv.ReferenceFrom, Value: refFrom}, corev1.EnvVar{Name: jobenv.ReferenceTo, Value: refTo})
 	injectEnv(&job.Spec.Template.Spec, env)
 	return job
 }

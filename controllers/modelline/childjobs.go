@@ -18,8 +18,8 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/contract/jobenv"
 	"plumbline.dev/plumbline/internal/engine/text"
-	"plumbline.dev/plumbline/internal/tools/evaluate"
 )
 
 // jobNamed reads a Job of the line by name, from the cache or, when the
@@ -52,23 +52,6 @@ const (
 	dataToAnnotation          = "plumbline.dev/data-to"
 	baselineVersionAnnotation = "plumbline.dev/baseline-version"
 	numberLabel               = v1alpha1.NumberLabel
-)
-
-// Environment variables the controller injects into every container.
-const (
-	envLine         = "PLUMBLINE_LINE"
-	envVersion      = "PLUMBLINE_VERSION"
-	envArtifactURI  = "PLUMBLINE_ARTIFACT_URI"
-	envReason       = "PLUMBLINE_REASON"
-	envDataFrom     = "PLUMBLINE_DATA_FROM"
-	envDataTo       = "PLUMBLINE_DATA_TO"
-	envCandidateURI = "PLUMBLINE_CANDIDATE_URI"
-	envBaselineURI  = "PLUMBLINE_BASELINE_URI"
-	// What the line's criteria judge, so plumbline evaluate puts just that
-	// in the gate report without the Job template repeating the criteria.
-	envGateMetrics    = evaluate.EnvGateMetrics
-	envGateSegments   = evaluate.EnvGateSegments
-	envGateConfidence = evaluate.EnvGateConfidence
 )
 
 // gateAsks sums up what the criteria judge: the metrics (comma-separated,
@@ -185,23 +168,23 @@ func buildGateJob(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, baseline *
 	}
 	metrics, segments, confidence := gateAsks(line.Spec.Gate.Criteria)
 	env := append(versionEnv(line, v, w),
-		corev1.EnvVar{Name: envCandidateURI, Value: v.Spec.ArtifactURI},
-		corev1.EnvVar{Name: envBaselineURI, Value: baseURI},
-		corev1.EnvVar{Name: envGateMetrics, Value: metrics},
-		corev1.EnvVar{Name: envGateSegments, Value: segments},
-		corev1.EnvVar{Name: envGateConfidence, Value: confidence})
+		corev1.EnvVar{Name: jobenv.CandidateURI, Value: v.Spec.ArtifactURI},
+		corev1.EnvVar{Name: jobenv.BaselineURI, Value: baseURI},
+		corev1.EnvVar{Name: jobenv.GateMetrics, Value: metrics},
+		corev1.EnvVar{Name: jobenv.GateSegments, Value: segments},
+		corev1.EnvVar{Name: jobenv.GateConfidence, Value: confidence})
 	injectEnv(&job.Spec.Template.Spec, env)
 	return job
 }
 
 func versionEnv(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, w dataWindow) []corev1.EnvVar {
 	return []corev1.EnvVar{
-		{Name: envLine, Value: line.Name},
-		{Name: envVersion, Value: v.Name},
-		{Name: envArtifactURI, Value: v.Spec.ArtifactURI},
-		{Name: envReason, Value: v.Spec.Reason},
-		{Name: envDataFrom, Value: formatTime(w.from)},
-		{Name: envDataTo, Value: formatTime(&w.to)},
+		{Name: jobenv.Line, Value: line.Name},
+		{Name: jobenv.Version, Value: v.Name},
+		{Name: jobenv.ArtifactURI, Value: v.Spec.ArtifactURI},
+		{Name: jobenv.Reason, Value: v.Spec.Reason},
+		{Name: jobenv.DataFrom, Value: formatTime(w.from)},
+		{Name: jobenv.DataTo, Value: formatTime(&w.to)},
 	}
 }
 

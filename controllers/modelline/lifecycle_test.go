@@ -17,6 +17,7 @@ import (
 	"k8s.io/utils/ptr"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/contract/jobenv"
 )
 
 func TestChildNames(t *testing.T) {
@@ -104,8 +105,8 @@ func TestBuildTrainingJob(t *testing.T) {
 	if job.Spec.Template.Spec.RestartPolicy != corev1.RestartPolicyNever || *job.Spec.BackoffLimit != 2 {
 		t.Errorf("spec %+v", job.Spec)
 	}
-	want := map[string]string{envLine: "late-risk", envVersion: "late-risk-v4", envArtifactURI: "s3://m/4",
-		envReason: "Trigger/auc-drop", envDataFrom: "2026-10-26T02:30:00Z", envDataTo: "2026-11-02T02:30:00Z"}
+	want := map[string]string{jobenv.Line: "late-risk", jobenv.Version: "late-risk-v4", jobenv.ArtifactURI: "s3://m/4",
+		jobenv.Reason: "Trigger/auc-drop", jobenv.DataFrom: "2026-10-26T02:30:00Z", jobenv.DataTo: "2026-11-02T02:30:00Z"}
 	pod := job.Spec.Template.Spec
 	for _, c := range append(pod.InitContainers, pod.Containers...) {
 		got := map[string]string{}
@@ -142,11 +143,11 @@ func TestBuildGateJob(t *testing.T) {
 	for _, e := range job.Spec.Template.Spec.Containers[0].Env {
 		env[e.Name] = e.Value
 	}
-	if job.Name != "late-risk-v4-gate" || env[envCandidateURI] != "s3://m/4" || env[envBaselineURI] != "s3://m/3" || job.Annotations[baselineVersionAnnotation] != "late-risk-v3" {
+	if job.Name != "late-risk-v4-gate" || env[jobenv.CandidateURI] != "s3://m/4" || env[jobenv.BaselineURI] != "s3://m/3" || job.Annotations[baselineVersionAnnotation] != "late-risk-v3" {
 		t.Errorf("gate job %s, env %v, annotations %v", job.Name, env, job.Annotations)
 	}
-	if env[envGateMetrics] != "" || env[envGateSegments] != "none" || env[envGateConfidence] != "0.95" {
-		t.Errorf("gate env with no criteria: %q %q %q", env[envGateMetrics], env[envGateSegments], env[envGateConfidence])
+	if env[jobenv.GateMetrics] != "" || env[jobenv.GateSegments] != "none" || env[jobenv.GateConfidence] != "0.95" {
+		t.Errorf("gate env with no criteria: %q %q %q", env[jobenv.GateMetrics], env[jobenv.GateSegments], env[jobenv.GateConfidence])
 	}
 	noBase := buildGateJob(line, v, nil, dataWindow{to: time.Now()})
 	if _, ok := noBase.Annotations[baselineVersionAnnotation]; ok {

@@ -10,6 +10,8 @@ import (
 	"os"
 	"strconv"
 	"time"
+
+	"plumbline.dev/plumbline/internal/contract/jobenv"
 )
 
 // The programs the demo's Jobs run (as `plumbline demo train`, `plumbline
@@ -96,16 +98,16 @@ func Train(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	uri := os.Getenv("PLUMBLINE_ARTIFACT_URI")
+	uri := os.Getenv(jobenv.ArtifactURI)
 	if uri == "" {
 		return errors.New("PLUMBLINE_ARTIFACT_URI is not set: the controller sets it in every training container")
 	}
-	from, to, err := window(w, "PLUMBLINE_DATA_FROM", "PLUMBLINE_DATA_TO", *recent)
+	from, to, err := window(w, jobenv.DataFrom, jobenv.DataTo, *recent)
 	if err != nil {
 		return err
 	}
 	n := rows(from, to, *rate, *maxRows)
-	parcels := w.Sample(from, to, n, seedOf(os.Getenv("PLUMBLINE_VERSION")+"/train"))
+	parcels := w.Sample(from, to, n, seedOf(os.Getenv(jobenv.Version)+"/train"))
 	m, err := TrainModel(parcels)
 	if err != nil {
 		return err
@@ -137,7 +139,7 @@ func Score(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	candURI := os.Getenv("PLUMBLINE_CANDIDATE_URI")
+	candURI := os.Getenv(jobenv.CandidateURI)
 	if candURI == "" {
 		return errors.New("PLUMBLINE_CANDIDATE_URI is not set: the controller sets it in every evaluation container")
 	}
@@ -146,7 +148,7 @@ func Score(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	base := cand
-	if u := os.Getenv("PLUMBLINE_BASELINE_URI"); u != "" {
+	if u := os.Getenv(jobenv.BaselineURI); u != "" {
 		if base, err = ReadArtifact(u); err != nil {
 			return err
 		}
@@ -154,7 +156,7 @@ func Score(args []string, stdout, stderr io.Writer) error {
 	// The golden set: the last half-minute's labelled parcels (the last few
 	// days', in the story's time).
 	now := time.Now()
-	parcels := w.Sample(now.Add(-30*time.Second), now, *rows, seedOf(os.Getenv("PLUMBLINE_VERSION")+"/golden"))
+	parcels := w.Sample(now.Add(-30*time.Second), now, *rows, seedOf(os.Getenv(jobenv.Version)+"/golden"))
 	err = writeCSV(*out, "parcel_id,depot,was_late,candidate_score,baseline_score", func(w io.Writer) {
 		for _, p := range parcels {
 			late := 0
@@ -169,7 +171,7 @@ func Score(args []string, stdout, stderr io.Writer) error {
 		return fmt.Errorf("--out: %w", err)
 	}
 	fmt.Fprintf(stdout, "scored %d golden-set parcels (%s) with %s and %s; wrote %s\n", len(parcels),
-		w.PhaseAt(now).Note, candURI, os.Getenv("PLUMBLINE_BASELINE_URI"), *out)
+		w.PhaseAt(now).Note, candURI, os.Getenv(jobenv.BaselineURI), *out)
 	return nil
 }
 
@@ -192,8 +194,8 @@ func Extract(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	refFrom, refTo, err := window(w, "PLUMBLINE_REFERENCE_FROM", "PLUMBLINE_REFERENCE_TO", *recent)
-	if os.Getenv("PLUMBLINE_REFERENCE_TO") == "" {
+	refFrom, refTo, err := window(w, jobenv.ReferenceFrom, jobenv.ReferenceTo, *recent)
+	if os.Getenv(jobenv.ReferenceTo) == "" {
 		// No window recorded (an imported version): what it learned from.
 		refFrom, refTo, err = w.Phases[0].At, w.Phases[0].At.Add(time.Minute), nil
 		if len(w.Phases) > 1 && w.Phases[1].At.Before(refTo) {
@@ -203,7 +205,7 @@ func Extract(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	curFrom, curTo, err := window(w, "PLUMBLINE_DATA_FROM", "PLUMBLINE_DATA_TO", *recent)
+	curFrom, curTo, err := window(w, jobenv.DataFrom, jobenv.DataTo, *recent)
 	if err != nil {
 		return err
 	}
@@ -212,7 +214,7 @@ func Extract(args []string, stdout, stderr io.Writer) error {
 		from, to time.Time
 		seed     string
 	}{{*refOut, refFrom, refTo, "/reference"}, {*curOut, curFrom, curTo, "/current"}} {
-		parcels := w.Sample(b.from, b.to, rows(b.from, b.to, *rate, 50000), seedOf(os.Getenv("PLUMBLINE_LINE")+b.seed+b.to.String()))
+		parcels := w.Sample(b.from, b.to, rows(b.from, b.to, *rate, 50000), seedOf(os.Getenv(jobenv.Line)+b.seed+b.to.String()))
 		if err := writeBatch(b.path, parcels); err != nil {
 			return fmt.Errorf("export a batch: %w", err)
 		}

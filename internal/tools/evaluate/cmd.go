@@ -8,18 +8,19 @@ import (
 	"os"
 	"strings"
 
+	"plumbline.dev/plumbline/internal/contract/jobenv"
 	"plumbline.dev/plumbline/internal/contract/termination"
 	"plumbline.dev/plumbline/internal/tools/outfile"
 	"plumbline.dev/plumbline/internal/tools/stats"
 )
 
-// Environment variables the controller sets on a gate Job, so the Job's
-// template need not repeat the line's criteria: the metrics and segments
-// the criteria judge, and the highest confidence they ask.
+// The variables the controller sets on a gate Job, so the Job's template
+// need not repeat the line's criteria: the metrics and segments the
+// criteria judge, and the highest confidence they ask.
 const (
-	EnvGateMetrics    = "PLUMBLINE_GATE_METRICS"
-	EnvGateSegments   = "PLUMBLINE_GATE_SEGMENTS"
-	EnvGateConfidence = "PLUMBLINE_GATE_CONFIDENCE"
+	EnvGateMetrics    = jobenv.GateMetrics
+	EnvGateSegments   = jobenv.GateSegments
+	EnvGateConfidence = jobenv.GateConfidence
 )
 
 var defaultReportMetrics = map[string][]string{
