@@ -199,6 +199,8 @@ func awaitingApprovalCondition(vw *view) metav1.Condition {
 //	NeedsReview      judgeConditions, from the judgements of the guard,
 //	                 the alternatives, the start decisions and the triggers
 //	                 falling quiet
+//
+// A version's conditions have theirs in versionconditions.go.
 
 // A judgement is what a phase found that one of the conditions Degraded,
 // Blocked and NeedsReview reports. Phases record judgements in the pass,

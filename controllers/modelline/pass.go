@@ -200,7 +200,3 @@ func (p *pass) eventFor(action string, regarding, related runtime.Object, kind, 
 func (p *pass) setPhase(v *v1alpha1.ModelVersion, phase v1alpha1.VersionPhase, reason, message string) {
 	v.Status.Phase, v.Status.Reason, v.Status.Message = phase, reason, text.Truncate(message, 2000)
 }
-
-func (p *pass) setCond(v *v1alpha1.ModelVersion, typ string, status metav1.ConditionStatus, reason, message string) {
-	setCondition(&v.Status.Conditions, metav1.Condition{Type: typ, Status: status, Reason: reason, Message: text.Truncate(message, 2000)}, v.Generation, p.now)
-}

@@ -360,3 +360,14 @@ func refuseFirstVersionStatus(refused *int) interceptor.Funcs {
 func conflict(obj client.Object) error {
 	return apierrors.NewConflict(schema.GroupResource{Group: v1alpha1.GroupVersion.Group, Resource: "modelversions"}, obj.GetName(), fmt.Errorf("the object has been modified"))
 }
+
+const time1h = time.Hour
+
+func clientMergeFrom(obj client.Object) client.Patch { return client.MergeFrom(obj) }
+
+// passingGateReport is a report that meets passLine's criterion (ROC AUC no
+// more than 0.01 worse than live, at 95%).
+func passingGateReport(t *testing.T) string {
+	t.Helper()
+	return `{"schema":"plumbline.dev/gate-report/v1","rows":4000,"metrics":[{"metric":"roc_auc","segment":"","candidate":0.81,"baseline":0.8,"delta":0.01,"deltaLow":0.002,"deltaHigh":0.018,"confidence":0.95,"pValue":0.02,"test":"delong","n":4000}],"mustPass":{"total":0,"failed":0},"truncated":false}`
+}

@@ -8,7 +8,6 @@ import (
 	appsv1 "k8s.io/api/apps/v1"
 	corev1 "k8s.io/api/core/v1"
 	"k8s.io/apimachinery/pkg/api/meta"
-	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
@@ -37,7 +36,6 @@ func settle(line *v1alpha1.ModelLine, vw *view, p *pass) {
 				v.Status.ArchivedTime = &p.now
 				p.setPhase(v, v1alpha1.PhaseArchived, reason, msg)
 			}
-			p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reason, msg)
 			p.event(v, line, corev1.EventTypeNormal, "Archived", "%s", msg)
 		case v.Spec.Source == v1alpha1.SourceRuleBased && (v.Status.Phase == "" || v.Status.Phase == v1alpha1.PhasePending):
 			p.setPhase(v, v1alpha1.PhaseStandby, reasonStandby, "rule-based version held in reserve as the line's fallback")
@@ -80,7 +78,6 @@ func startPromotionAs(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersi
 	p.rolloutDecided[v.Name] = true
 	msg := fmt.Sprintf("%s; rolling out to Deployment %s", why, line.Spec.Serving.DeploymentName)
 	p.setPhase(v, v1alpha1.PhasePromoting, reason, msg)
-	p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionUnknown, reasonRollingOut, msg)
 	p.event(v, line, corev1.EventTypeNormal, "PromotionStarted", "rolling out %s to Deployment %s (replacing %s)", v.Spec.ArtifactURI, line.Spec.Serving.DeploymentName, orNone(from.FromVersion))
 }
 
@@ -114,7 +111,6 @@ func (r *Reconciler) promote(ctx context.Context, line *v1alpha1.ModelLine, vw *
 		v.Status.Message = "rolling out: " + msg
 	case rolloutFailed:
 		p.setPhase(v, v1alpha1.PhaseFailed, reasonRolloutFailed, msg+"; the Deployment is being restored to "+orNone(v.Status.Promotion.FromVersion))
-		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionFalse, reasonRolloutFailed, msg)
 		p.event(v, line, corev1.EventTypeWarning, reasonRolloutFailed, "%s", msg)
 		p.event(line, v, corev1.EventTypeWarning, reasonRolloutFailed, "version %s: %s; restoring %s", v.Name, msg, orNone(v.Status.Promotion.FromVersion))
 		p.countFor(v.Name, func() { rolloutFailures.WithLabelValues(line.Namespace, line.Name).Inc() })
@@ -124,7 +120,6 @@ func (r *Reconciler) promote(ctx context.Context, line *v1alpha1.ModelLine, vw *
 		v.Status.ArchivedTime = nil
 		msg := fmt.Sprintf("serving on Deployment %s (%s)", dep.Name, msg)
 		p.setPhase(v, v1alpha1.PhaseLive, reasonPromoted, msg)
-		p.setCond(v, v1alpha1.ConditionLive, metav1.ConditionTrue, reasonPromoted, msg)
 		p.event(v, line, corev1.EventTypeNormal, reasonPromoted, "%s", msg)
 		from := orNone(v.Status.Promotion.FromVersion)
 		switch promotionKind(v) {

@@ -119,6 +119,9 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 	denied := apierrors.IsForbidden(phaseErr)
 	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs, phaseErr), line.Generation, p.now)
 	p.events = append(p.events, judgeConditions(&line.Status.Conditions, p.judgements, line.Generation, p.now)...)
+	for _, v := range vw.versions {
+		versionConditions(&line, v, p.now)
+	}
 	summarize(&line, vw, p.now)
 	if phaseErr == nil {
 		line.Status.ObservedGeneration = line.Generation

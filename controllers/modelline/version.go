@@ -71,7 +71,6 @@ func (r *Reconciler) step(ctx context.Context, line *v1alpha1.ModelLine, vw *vie
 	case v1alpha1.PhaseAwaitingApproval:
 		if v.Spec.Decision == v1alpha1.DecisionApproved {
 			v.Status.DecisionTime = &p.now
-			p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedByPerson, noteOr(v.Spec.DecisionNote, "approved by a person"))
 			p.event(v, line, corev1.EventTypeNormal, reasonApprovedByPerson, "approved: %s", noteOr(v.Spec.DecisionNote, "no note"))
 			startPromotion(line, vw, v, p, reasonApprovedByPerson, "approved by a person")
 		}
@@ -103,7 +102,6 @@ func (r *Reconciler) rejectByPerson(ctx context.Context, line *v1alpha1.ModelLin
 	}
 	v.Status.DecisionTime = &p.now
 	msg := noteOr(v.Spec.DecisionNote, "rejected by a person")
-	p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionFalse, reasonRejectedByPerson, msg)
 	p.setPhase(v, v1alpha1.PhaseRejected, reasonRejectedByPerson, msg)
 	p.event(v, line, corev1.EventTypeNormal, reasonRejectedByPerson, "rejected: %s", msg)
 	finished(line, v, p, "Rejected")
@@ -121,7 +119,6 @@ func finished(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, resul
 func (r *Reconciler) startTraining(ctx context.Context, line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) error {
 	if line.Spec.Training == nil {
 		p.setPhase(v, v1alpha1.PhaseFailed, "NoTraining", "the line has no spec.training, so a Trained version cannot be trained")
-		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionFalse, "NoTraining", v.Status.Message)
 		p.event(v, line, corev1.EventTypeWarning, "NoTraining", "%s", v.Status.Message)
 		finished(line, v, p, "Failed")
 		return nil
@@ -158,7 +155,6 @@ func (r *Reconciler) startTraining(ctx context.Context, line *v1alpha1.ModelLine
 	}
 	msg := fmt.Sprintf("training Job %s runs on %s to %s", job.Name, window, formatTime(&w.to))
 	p.setPhase(v, v1alpha1.PhaseTraining, reasonTrainingStarted, msg)
-	p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionUnknown, reasonTrainingStarted, msg)
 	if created {
 		p.event(v, line, corev1.EventTypeNormal, reasonTrainingStarted, "%s", msg)
 		reason := v.Spec.Reason
@@ -222,7 +218,6 @@ func (r *Reconciler) watchTraining(ctx context.Context, line *v1alpha1.ModelLine
 	if job == nil || !metav1.IsControlledBy(job, v) {
 		msg := fmt.Sprintf("training Job %s was deleted before it finished", jobName(v.Name, roleTraining))
 		p.setPhase(v, v1alpha1.PhaseFailed, reasonTrainingLost, msg)
-		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionFalse, reasonTrainingLost, msg)
 		p.event(v, line, corev1.EventTypeWarning, reasonTrainingLost, "%s", msg)
 		p.event(line, v, corev1.EventTypeWarning, "TrainingFailed", "version %s: %s", v.Name, msg)
 		finished(line, v, p, "Failed")
@@ -232,12 +227,10 @@ func (r *Reconciler) watchTraining(ctx context.Context, line *v1alpha1.ModelLine
 	case jobFailed:
 		msg := fmt.Sprintf("training Job %s failed: %s: %s", job.Name, reason, message)
 		p.setPhase(v, v1alpha1.PhaseFailed, reason, msg)
-		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionFalse, reason, msg)
 		p.event(v, line, corev1.EventTypeWarning, "TrainingFailed", "%s", msg)
 		p.event(line, v, corev1.EventTypeWarning, "TrainingFailed", "version %s: %s", v.Name, msg)
 		finished(line, v, p, "Failed")
 	case jobSucceeded:
-		p.setCond(v, v1alpha1.ConditionTrained, metav1.ConditionTrue, "TrainingSucceeded", fmt.Sprintf("training Job %s succeeded; artifact %s", job.Name, v.Spec.ArtifactURI))
 		p.event(v, line, corev1.EventTypeNormal, "TrainingSucceeded", "training Job %s succeeded", job.Name)
 		w := dataWindow{to: p.now.Time}
 		if v.Status.DataTo != nil {
@@ -275,7 +268,6 @@ func (r *Reconciler) startEvaluation(ctx context.Context, line *v1alpha1.ModelLi
 	v.Status.GateJob = job.Name
 	msg := fmt.Sprintf("evaluation Job %s compares it with %s on the golden set", job.Name, against)
 	p.setPhase(v, v1alpha1.PhaseEvaluating, "EvaluationStarted", msg)
-	p.setCond(v, v1alpha1.ConditionEvaluated, metav1.ConditionUnknown, "EvaluationStarted", msg)
 	if created {
 		p.event(v, line, corev1.EventTypeNormal, "EvaluationStarted", "%s", msg)
 	}
@@ -346,33 +338,23 @@ func (r *Reconciler) judged(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.Mode
 	p.countFor(v.Name, func() {
 		gateDecisions.WithLabelValues(line.Namespace, line.Name, string(res.Verdict), res.Reason).Inc()
 	})
-	evaluated := metav1.ConditionTrue
-	if res.Reason == reasonEvaluationFailed || res.Reason == reasonEvaluationLost || res.Reason == gatereport.ReasonMissing {
-		evaluated = metav1.ConditionFalse
-	}
-	p.setCond(v, v1alpha1.ConditionEvaluated, evaluated, res.Reason, res.Message)
 	if res.Verdict != v1alpha1.GatePassed {
-		p.setCond(v, v1alpha1.ConditionGatePassed, metav1.ConditionFalse, res.Reason, res.Message)
 		p.setPhase(v, v1alpha1.PhaseRejected, res.Reason, "gate failed: "+res.Message)
 		p.event(v, line, corev1.EventTypeWarning, "GateFailed", "%s: %s", res.Reason, res.Message)
 		p.event(line, v, corev1.EventTypeWarning, "GateFailed", "version %s rejected, live version unchanged: %s: %s", v.Name, res.Reason, res.Message)
 		finished(line, v, p, "Rejected")
 		return
 	}
-	p.setCond(v, v1alpha1.ConditionGatePassed, metav1.ConditionTrue, res.Reason, res.Message)
 	p.event(v, line, corev1.EventTypeNormal, "GatePassed", "%s", res.Message)
 	switch {
 	case line.Spec.Gate.Approval == v1alpha1.ApprovalManual && v.Spec.Decision != v1alpha1.DecisionApproved:
 		msg := fmt.Sprintf("passed the gate; waiting for a person: kubectl patch modelversion %s -n %s --type=merge -p '{\"spec\":{\"decision\":\"Approved\"}}' (or \"Rejected\")", v.Name, v.Namespace)
 		p.setPhase(v, v1alpha1.PhaseAwaitingApproval, reasonWaitingDecision, msg)
-		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionUnknown, reasonWaitingDecision, "waiting for spec.decision")
 		p.event(line, v, corev1.EventTypeNormal, "AwaitingApproval", "version %s passed the gate and waits for a person's decision", v.Name)
 	case line.Spec.Gate.Approval == v1alpha1.ApprovalManual:
 		v.Status.DecisionTime = &p.now
-		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedByPerson, noteOr(v.Spec.DecisionNote, "approved by a person before the gate decided"))
 		startPromotion(line, vw, v, p, reasonApprovedByPerson, "passed the gate, approved beforehand")
 	default:
-		p.setCond(v, v1alpha1.ConditionApproved, metav1.ConditionTrue, reasonApprovedAuto, "the line's approval is Automatic")
 		startPromotion(line, vw, v, p, reasonApprovedAuto, "passed the gate")
 	}
 }
