@@ -7,8 +7,12 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 fuzztime=${FUZZTIME:-3s}
-log=$(mktemp)
-trap 'rm -f "$log"' EXIT
+# The fuzzing engine stops its workers mid-input when the time is up, so a
+# target's t.TempDir may outlive it: keep them all in one directory of ours.
+work=$(mktemp -d)
+trap 'rm -rf "$work"' EXIT
+export TMPDIR=$work
+log=$work/log
 n=0
 while read -r file; do
   dir=./$(dirname "$file")
