@@ -79,10 +79,11 @@ type lineObservation struct {
 	fallbackMissing string
 }
 
-// Reconcile reads a line and everything it refers to, computes what should
-// happen next, does at most one outside action per version (create a Job,
-// patch the Deployment), writes each changed status once, then emits the
-// events and metrics for what changed.
+// Reconcile is one pass over a line: it reads the line and everything it
+// refers to (observe), runs the pass's phases in order (phases.go; at most
+// one outside action per version: create a Job, patch the Deployment),
+// concludes each status by its one writer, writes each changed status once
+// (write), then emits the events and metrics for what changed.
 func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
 	var line v1alpha1.ModelLine
 	if err := r.Get(ctx, req.NamespacedName, &line); err != nil {
@@ -116,31 +117,9 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 	if readyCondition(line.Spec.Suspend, obs, nil).Status == metav1.ConditionTrue {
 		phaseErr = r.runPhases(ctx, p)
 	}
-	denied := apierrors.IsForbidden(phaseErr)
-	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs, phaseErr), line.Generation, p.now)
-	p.events = append(p.events, judgeConditions(&line.Status.Conditions, p.judgements, line.Generation, p.now)...)
-	for _, v := range vw.versions {
-		versionConditions(&line, v, p.now)
-	}
-	summarize(&line, vw, p.now)
-	if phaseErr == nil {
-		line.Status.ObservedGeneration = line.Generation
-	}
+	readyChanged := conclude(p, obs, phaseErr)
 
-	// Versions first: a line's summary is derived from them, so a crash
-	// between the two writes is mended by the next pass.
-	written, err := r.writeVersions(ctx, vw, before)
-	if err == nil && !equality.Semantic.DeepEqual(orig.Status, line.Status) {
-		// The optimistic lock refuses a write computed from a stale copy;
-		// the pass is then redone on fresh data.
-		err = r.Status().Patch(ctx, &line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{}))
-		if err == nil {
-			r.written.Store(req.NamespacedName, line.ResourceVersion)
-		} else {
-			err = fmt.Errorf("write status of ModelLine %s: %w", req.NamespacedName, err)
-		}
-	}
-	if err != nil {
+	if written, err := r.write(ctx, p, orig, before); err != nil {
 		// Tell what the written and the created versions went through,
 		// and count it; the rest is recomputed by the pass that follows.
 		for name := range p.created {
@@ -167,7 +146,7 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		m.inc()
 	}
 	recordLineMetrics(&line, vw.live())
-	if denied {
+	if apierrors.IsForbidden(phaseErr) {
 		// Not a transient error: a person must grant the permission. The
 		// line says so and tries again calmly, without a growing backoff,
 		// so it goes on soon after the RBAC is fixed.
@@ -182,6 +161,44 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 	// The next pass comes from a change to the line, its Deployment, its
 	// versions or their Jobs, or when a trigger or a scheduled start is due.
 	return ctrl.Result{RequeueAfter: r.requeue(p)}, nil
+}
+
+// conclude computes the statuses the pass leaves, each condition by its one
+// writer: the line's Ready (with a permission the phases were refused), the
+// conditions the phases judged, every version's conditions from its
+// record, and the line's summary of its versions. It reports whether Ready
+// changed.
+func conclude(p *pass, obs lineObservation, phaseErr error) bool {
+	line, vw := p.line, p.vw
+	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs, phaseErr), line.Generation, p.now)
+	p.events = append(p.events, judgeConditions(&line.Status.Conditions, p.judgements, line.Generation, p.now)...)
+	for _, v := range vw.versions {
+		versionConditions(line, v, p.now)
+	}
+	summarize(line, vw, p.now)
+	if phaseErr == nil {
+		line.Status.ObservedGeneration = line.Generation
+	}
+	return readyChanged
+}
+
+// write writes each status the pass changed, once: the versions first (the
+// line's summary is derived from them, so a crash between the two writes
+// is mended by the next pass), then the line's. It returns the versions it
+// wrote.
+func (r *Reconciler) write(ctx context.Context, p *pass, orig *v1alpha1.ModelLine, before map[string]v1alpha1.ModelVersionStatus) (map[string]bool, error) {
+	written, err := r.writeVersions(ctx, p.vw, before)
+	if err != nil || equality.Semantic.DeepEqual(orig.Status, p.line.Status) {
+		return written, err
+	}
+	// The optimistic lock refuses a write computed from a stale copy; the
+	// pass is then redone on fresh data.
+	key := client.ObjectKeyFromObject(p.line)
+	if err := r.Status().Patch(ctx, p.line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
+		return written, fmt.Errorf("write status of ModelLine %s: %w", key, err)
+	}
+	r.written.Store(key, p.line.ResourceVersion)
+	return written, nil
 }
 
 // requeue turns the pass's wake time into the real time to wait.
