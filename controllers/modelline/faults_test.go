@@ -251,3 +251,28 @@ func TestMissingPermissionIsAConditionNotALoop(t *testing.T) {
 		t.Errorf("no event for the recovery: %v", evs)
 	}
 }
+
+// A refusal of a read the pass needs before it can do anything (listing
+// the line's Jobs) is reported the same way: Ready says what is missing,
+// and the line is tried again calmly.
+func TestMissingReadPermissionIsACondition(t *testing.T) {
+	refuseList := interceptor.Funcs{List: func(ctx context.Context, c client.WithWatch, list client.ObjectList, opts ...client.ListOption) error {
+		if _, ok := list.(*batchv1.JobList); ok {
+			return apierrors.NewForbidden(schema.GroupResource{Group: "batch", Resource: "jobs"}, "",
+				errors.New(`User "system:serviceaccount:plumbline-system:plumbline-manager" cannot list resource "jobs" in API group "batch" in the namespace "larkspur"`))
+		}
+		return c.List(ctx, list, opts...)
+	}}
+	w := newWorld(t, refuseList, passLine(), scorerDeployment("", "s3://larkspur/rules"))
+	res, err := w.pass()
+	if err != nil || res.RequeueAfter != permissionRetry {
+		t.Fatalf("a refused list gave %+v, %v; want a calm retry in %s and no error", res, err, permissionRetry)
+	}
+	ready := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady)
+	if ready == nil || ready.Reason != v1alpha1.ReasonPermissionDenied || !strings.Contains(ready.Message, `cannot list resource "jobs"`) {
+		t.Fatalf("Ready %+v", ready)
+	}
+	if evs := w.events(); !hasEvent(evs, "Warning", "PermissionDenied") {
+		t.Errorf("no PermissionDenied event: %v", evs)
+	}
+}

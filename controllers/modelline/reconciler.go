@@ -224,12 +224,10 @@ const permissionRetry = 30 * time.Second
 // denied writes only the Ready condition of a line the manager could not
 // even read the parts of (a list or get refused), and tries again calmly.
 func (r *Reconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine, err error) (ctrl.Result, error) {
-	changed := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, lineObservation{}, err), line.Generation, metav1.NewTime(r.Clock.Now()))
-	if !equality.Semantic.DeepEqual(orig.Status, line.Status) {
-		if err := r.Status().Patch(ctx, line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
-			return ctrl.Result{}, fmt.Errorf("write status of ModelLine %s: %w", client.ObjectKeyFromObject(line), err)
-		}
-		r.written.Store(client.ObjectKeyFromObject(line), line.ResourceVersion)
+	p := &pass{now: metav1.NewTime(r.Clock.Now()), line: line, vw: &view{}}
+	changed := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, lineObservation{}, err), line.Generation, p.now)
+	if _, err := r.write(ctx, p, orig, nil); err != nil {
+		return ctrl.Result{}, err
 	}
 	if changed {
 		r.eventForReady(orig, line)
