@@ -276,3 +276,69 @@ func TestMissingReadPermissionIsACondition(t *testing.T) {
 		t.Errorf("no PermissionDenied event: %v", evs)
 	}
 }
+
+// Objects gone under the pass: a training Job deleted before it finished
+// fails its version (TrainingJobLost) and starts nothing else; the serving
+// Deployment deleted in the middle of a rollout stops the line
+// (ServingNotFound) without touching the version, and the rollout goes on
+// once a Deployment is back.
+func TestObjectsGone(t *testing.T) {
+	line := passLine()
+	v0 := modelVersion("late-risk-v0", 0, v1alpha1.PhaseLive, v1alpha1.SourceImported)
+	v0.Status.PromotedTime = at(-time.Hour)
+	v0.Status.Promotion = &v1alpha1.PromotionStatus{Sequence: 1}
+	w := newWorld(t, interceptor.Funcs{}, line, v0, scorerDeployment("late-risk-v0", v0.Spec.ArtifactURI))
+	ctx := context.Background()
+
+	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-1")
+	w.mustPass()
+	var job batchv1.Job
+	job.Namespace, job.Name = passNS, "late-risk-v1-train"
+	if err := w.c.Delete(ctx, &job); err != nil {
+		t.Fatal(err)
+	}
+	w.mustPass()
+	v1 := w.version("late-risk-v1")
+	if v1.Status.Phase != v1alpha1.PhaseFailed || v1.Status.Reason != reasonTrainingLost {
+		t.Fatalf("after its training Job was deleted, late-risk-v1 is %s/%s", v1.Status.Phase, v1.Status.Reason)
+	}
+	if c := meta.FindStatusCondition(v1.Status.Conditions, v1alpha1.ConditionTrained); c == nil || c.Status != metav1.ConditionFalse || c.Reason != reasonTrainingLost {
+		t.Errorf("Trained %+v", c)
+	}
+	if n := len(w.jobs()); n != 0 {
+		t.Errorf("%d Jobs after the training Job was lost; nothing else should start", n)
+	}
+
+	// A rollout whose Deployment goes away.
+	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-2")
+	w.mustPass()
+	w.finishJob("late-risk-v2-train", true, "")
+	w.mustPass()
+	w.finishJob("late-risk-v2-gate", true, passingGateReport(t))
+	w.mustPass() // records the promotion
+	if err := w.c.Delete(ctx, w.deployment()); err != nil {
+		t.Fatal(err)
+	}
+	w.mustPass()
+	ready := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady)
+	if ready == nil || ready.Status != metav1.ConditionFalse || ready.Reason != v1alpha1.ReasonServingNotFound {
+		t.Fatalf("Ready %+v with the Deployment gone", ready)
+	}
+	if v2 := w.version("late-risk-v2"); v2.Status.Phase != v1alpha1.PhasePromoting {
+		t.Fatalf("late-risk-v2 is %s with the Deployment gone; it waits, Promoting", v2.Status.Phase)
+	}
+	d := scorerDeployment("late-risk-v0", v0.Spec.ArtifactURI)
+	d.ResourceVersion = ""
+	if err := w.c.Create(ctx, d); err != nil {
+		t.Fatal(err)
+	}
+	w.mustPass()
+	if got := servedBy(w.deployment(), w.line().Spec.Serving); got.version != "late-risk-v2" {
+		t.Fatalf("the new Deployment serves %+v; the recorded rollout should go on", got)
+	}
+	w.rolledOut()
+	w.mustPass()
+	if v2 := w.version("late-risk-v2"); v2.Status.Phase != v1alpha1.PhaseLive {
+		t.Errorf("late-risk-v2 is %s after the rollout", v2.Status.Phase)
+	}
+}
