@@ -137,6 +137,12 @@ const (
 	ConditionGatePassed = "GatePassed"
 	ConditionApproved   = "Approved"
 	ConditionLive       = "Live"
+	// ConditionSettled is True once the version's way has ended, whatever
+	// the outcome (Live, Archived, Rejected, Failed; Standby for a
+	// rule-based version), with the outcome as its reason; False while it
+	// is on its way. A script waits for it: kubectl wait
+	// --for=condition=Settled modelversion/NAME.
+	ConditionSettled = "Settled"
 )
 
 // GateVerdict is the controller's judgement of a candidate.

@@ -19,7 +19,7 @@ import (
 // condition keeps the message of its last change while its status and
 // reason hold.
 func versionConditions(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, now metav1.Time) {
-	for _, c := range []*metav1.Condition{trainedCondition(v), evaluatedCondition(v), gatePassedCondition(v), approvedCondition(line, v), liveCondition(v)} {
+	for _, c := range []*metav1.Condition{trainedCondition(v), evaluatedCondition(v), gatePassedCondition(v), approvedCondition(line, v), liveCondition(v), settledCondition(v)} {
 		if c != nil {
 			setConditionSticky(&v.Status.Conditions, *c, v.Generation, now)
 		}
@@ -129,4 +129,18 @@ func liveCondition(v *v1alpha1.ModelVersion) *metav1.Condition {
 		}
 	}
 	return nil
+}
+
+// settledCondition: False while the version is on its way (its phase the
+// reason), True once its way has ended, whatever the outcome (the phase
+// again): what a script waits on.
+func settledCondition(v *v1alpha1.ModelVersion) *metav1.Condition {
+	phase := v.Status.Phase
+	if phase == "" {
+		phase = v1alpha1.PhasePending
+	}
+	if phase.InFlight() {
+		return cond(v1alpha1.ConditionSettled, metav1.ConditionFalse, string(phase), v.Status.Message)
+	}
+	return cond(v1alpha1.ConditionSettled, metav1.ConditionTrue, string(phase), v.Status.Message)
 }

@@ -80,6 +80,18 @@ func TestVersionConditions(t *testing.T) {
 		if strings.Join(got, " ") != strings.Join(want, " ") {
 			t.Errorf("%s:\n got Trained Evaluated GatePassed Approved Live = %v\nwant %v", c.name, got, want)
 		}
+		// Settled: True exactly when the version's way has ended, its phase
+		// the reason.
+		wantSettled := "False/" + string(c.v.Status.Phase)
+		if !c.v.Status.Phase.InFlight() {
+			wantSettled = "True/" + string(c.v.Status.Phase)
+		}
+		if got := show(settledCondition(c.v)); got != wantSettled {
+			t.Errorf("%s: Settled %s, want %s", c.name, got, wantSettled)
+		}
+	}
+	if got := show(settledCondition(&v1alpha1.ModelVersion{})); got != "False/Pending" {
+		t.Errorf("a new version: Settled %s, want False/Pending", got)
 	}
 }
 
@@ -115,6 +127,9 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 	w.finishJob("late-risk-v1-gate", true, passingGateReport(t))
 	w.mustPass()
 	expect("waiting", "Trained=True/TrainingSucceeded Evaluated=True/CriteriaMet GatePassed=True/CriteriaMet Approved=Unknown/WaitingForDecision Live=-")
+	if c := meta.FindStatusCondition(w.version("late-risk-v1").Status.Conditions, v1alpha1.ConditionSettled); c == nil || c.Status != metav1.ConditionFalse || c.Reason != "AwaitingApproval" {
+		t.Errorf("Settled %+v while a person decides", c)
+	}
 	v1 := w.version("late-risk-v1")
 	orig := v1.DeepCopy()
 	v1.Spec.Decision, v1.Spec.DecisionNote = v1alpha1.DecisionApproved, "looked at the depots"
@@ -130,6 +145,9 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 	w.rolledOut()
 	w.mustPass()
 	expect("live", "Trained=True/TrainingSucceeded Evaluated=True/CriteriaMet GatePassed=True/CriteriaMet Approved=True/ApprovedByPerson Live=True/Promoted")
+	if c := meta.FindStatusCondition(w.version("late-risk-v1").Status.Conditions, v1alpha1.ConditionSettled); c == nil || c.Status != metav1.ConditionTrue || c.Reason != "Live" {
+		t.Errorf("Settled %+v once live", c)
+	}
 	if c := meta.FindStatusCondition(w.version("late-risk-v0").Status.Conditions, v1alpha1.ConditionLive); c == nil || c.Status != metav1.ConditionFalse || c.Reason != reasonReplaced {
 		t.Errorf("the replaced version's Live: %+v", c)
 	}

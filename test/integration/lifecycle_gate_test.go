@@ -2,6 +2,7 @@ package integration
 
 import (
 	"fmt"
+	"os/exec"
 	"strings"
 	"testing"
 
@@ -91,6 +92,18 @@ func TestGateRejects(t *testing.T) {
 				t.Errorf("Deployment touched: serves %s / %s, generation %d (was %d)", a, ver, deployment(t, ns).Generation, gen)
 			}
 		})
+	}
+	// A script waits for a version to settle, whatever the outcome: a
+	// rejected candidate settles (its Live condition never comes).
+	if err := expectCondition(getVersion(t, ns, "late-risk-v1").Status.Conditions, v1alpha1.ConditionSettled, metav1.ConditionTrue, string(v1alpha1.PhaseRejected)); err != nil {
+		t.Error(err)
+	}
+	if kubectl, err := exec.LookPath("kubectl"); err == nil && kubeconfigPath != "" {
+		out, err := exec.Command(kubectl, "--kubeconfig", kubeconfigPath, "-n", ns, "wait", "modelversion/late-risk-v1",
+			"--for=condition=Settled", "--timeout=20s").CombinedOutput()
+		if err != nil || !strings.Contains(string(out), "condition met") {
+			t.Errorf("kubectl wait --for=condition=Settled on a rejected candidate: %v\n%s", err, out)
+		}
 	}
 	ev := waitEvent(t, ns, lineName, "GateFailed")
 	if ev.Type != "Warning" {
