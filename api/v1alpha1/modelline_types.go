@@ -11,8 +11,10 @@ const (
 	// token, and each distinct token acts once.
 	RetrainRequestAnnotation = "plumbline.dev/retrain-request"
 	// RollbackRequestAnnotation on a ModelLine asks to serve a named version
-	// of the line again (an archived one, or the rule-based fallback). Each
-	// distinct value acts once.
+	// of the line again (an archived one, or the rule-based fallback): its
+	// value is the version's name, optionally followed by "/" and a token
+	// (late-risk-v4/2026-12-02T10:00). Each distinct value acts once, so a
+	// token lets the same version be asked for again.
 	RollbackRequestAnnotation = "plumbline.dev/rollback-to"
 	// VersionAnnotation is stamped on the serving Deployment's pod template on
 	// promotion, naming the ModelVersion it serves.

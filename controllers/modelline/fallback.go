@@ -335,12 +335,16 @@ func (r *Reconciler) guard(_ context.Context, p *pass) error {
 // plumbline.dev/rollback-to annotation again: an archived version of the
 // line (even one the guard rolled back) or its rule-based version. It goes
 // through the same promotion path, with its revert on a failed rollout.
+// Each distinct value acts once.
 func (r *Reconciler) handleRollbackRequest(_ context.Context, p *pass) error {
 	line, vw := p.line, p.vw
-	name, ok := line.Annotations[v1alpha1.RollbackRequestAnnotation]
-	if !ok || name == line.Status.LastRollbackRequest {
+	value, ok := line.Annotations[v1alpha1.RollbackRequestAnnotation]
+	if !ok || value == line.Status.LastRollbackRequest {
 		return nil
 	}
+	// VERSION, or VERSION/TOKEN: a token makes a second request for the
+	// same version a new value.
+	name, _, _ := strings.Cut(value, "/")
 	if v := vw.promoting(); v != nil {
 		return nil // waits for that rollout; the Deployment's changes wake the line
 	}
@@ -354,7 +358,7 @@ func (r *Reconciler) handleRollbackRequest(_ context.Context, p *pass) error {
 	case target.Status.Phase != v1alpha1.PhaseArchived && target.Status.Phase != v1alpha1.PhaseStandby:
 		why = fmt.Sprintf("%s is %s; only an archived version (one that served before) or the rule-based version can be rolled back to", name, target.Status.Phase)
 	}
-	line.Status.LastRollbackRequest = text.Truncate(name, 253)
+	line.Status.LastRollbackRequest = text.Truncate(value, 253)
 	if why != "" {
 		p.eventFor("Rollback/"+text.Truncate(name, 100), line, nil, corev1.EventTypeWarning, "RollbackRequestInvalid", "rollback to %q refused: %s", name, why)
 		return nil

@@ -342,3 +342,30 @@ func TestObjectsGone(t *testing.T) {
 		t.Errorf("late-risk-v2 is %s after the rollout", v2.Status.Phase)
 	}
 }
+
+// A person may roll back to the same version more than once: a request is
+// the version's name, optionally followed by "/" and a token, and each
+// distinct value acts once.
+func TestRollbackToTheSameVersionTwice(t *testing.T) {
+	w := guardedWorld(t, interceptor.Funcs{})
+	switchTo := func(value, version string) {
+		t.Helper()
+		w.annotate(v1alpha1.RollbackRequestAnnotation, value)
+		w.mustPass() // recorded
+		if v := w.version(version); v.Status.Phase != v1alpha1.PhasePromoting {
+			t.Fatalf("after %s=%s, %s is %s, want Promoting (events %v)", v1alpha1.RollbackRequestAnnotation, value, version, v.Status.Phase, w.events())
+		}
+		w.mustPass() // patched
+		w.rolledOut()
+		w.mustPass()
+		if v := w.version(version); v.Status.Phase != v1alpha1.PhaseLive {
+			t.Fatalf("%s is %s after its rollout", version, v.Status.Phase)
+		}
+	}
+	switchTo("late-risk-v0", "late-risk-v0")
+	switchTo("late-risk-v1", "late-risk-v1")
+	switchTo("late-risk-v0/second-time", "late-risk-v0")
+	if got := w.line().Status.LastRollbackRequest; got != "late-risk-v0/second-time" {
+		t.Errorf("lastRollbackRequest %q", got)
+	}
+}

@@ -100,6 +100,18 @@ func TestKubectlPlumbline(t *testing.T) {
 	if a, _ := served(t, ns); a != initialURI {
 		t.Errorf("Deployment serves %s after the rollback", a)
 	}
+	// Forward to v1 and back to the imported version again: the same
+	// version twice, each request its own token.
+	mustRun(t, ns, "rollback", lineName, "--to", "late-risk-v1", "--token", "forward")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhasePromoting)
+	rollOutTo(t, ns, "late-risk-v1")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
+	out = mustRun(t, ns, "rollback", lineName, "--to", initial, "--token", "again")
+	mustContain(t, "second rollback output", out, "asked late-risk to serve "+initial+" again")
+	waitPhase(t, ns, initial, v1alpha1.PhasePromoting)
+	rollOutTo(t, ns, initial)
+	waitPhase(t, ns, initial, v1alpha1.PhaseLive)
+
 	if _, err := kubectlPlumbline(t, ns, "status", "no-such-line"); err == nil || !strings.Contains(err.Error(), "not found") {
 		t.Errorf("status of a missing line: %v", err)
 	}

@@ -231,7 +231,7 @@ func (e *env) decide(ctx context.Context, name string, d v1alpha1.Decision, allo
 		return fmt.Errorf("%s is %s: %s", name, dash(string(v.Status.Phase)), rule)
 	}
 	if v.Spec.Decision != "" && v.Spec.Decision != d {
-		return fmt.Errorf("%s already has spec.decision %s; a decision is not changed from here (kubectl edit if you must)", name, v.Spec.Decision)
+		return fmt.Errorf("%s already has spec.decision %s: a decision is made once (the API server refuses a change); to try again, retrain for a new version", name, v.Spec.Decision)
 	}
 	spec := map[string]any{"decision": d}
 	if e.o.note != "" {
@@ -297,10 +297,18 @@ func runRollback(ctx context.Context, e *env, pos []string) error {
 		return fmt.Errorf("%s is already live on %s", v.Name, l.Name)
 	case v.Status.Phase != v1alpha1.PhaseArchived && v.Spec.Source != v1alpha1.SourceRuleBased:
 		return fmt.Errorf("%s is %s: a rollback serves an archived version or the rule-based one", v.Name, dash(string(v.Status.Phase)))
-	case l.Status.LastRollbackRequest == v.Name:
-		return fmt.Errorf("a rollback to %s was already handled on %s, and each value acts once: roll to another version first, or edit the annotation by hand", v.Name, l.Name)
 	}
-	if err := e.patch(ctx, l, map[string]any{"metadata": map[string]any{"annotations": map[string]string{v1alpha1.RollbackRequestAnnotation: v.Name}}}); err != nil {
+	// The version and a token: each value acts once, so the same version can
+	// be asked for again.
+	token := e.o.token
+	if token == "" {
+		token = "kubectl-" + e.o.now().UTC().Format("20060102-150405")
+	}
+	value := v.Name + "/" + token
+	if value == l.Status.LastRollbackRequest || value == l.Annotations[v1alpha1.RollbackRequestAnnotation] {
+		return fmt.Errorf("token %q was already used on %s: each token acts once; give another with --token", token, l.Name)
+	}
+	if err := e.patch(ctx, l, map[string]any{"metadata": map[string]any{"annotations": map[string]string{v1alpha1.RollbackRequestAnnotation: value}}}); err != nil {
 		return err
 	}
 	fmt.Fprintf(e.out, "asked %s to serve %s again: the controller rolls the Deployment to it\n", l.Name, v.Name)

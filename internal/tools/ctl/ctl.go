@@ -56,6 +56,7 @@ var commands = []command{
 	{"rollback", "LINE --to VERSION", "serve an archived or the rule-based version again (the plumbline.dev/rollback-to annotation)", runRollback,
 		func(fs *flag.FlagSet, o *opts) {
 			fs.StringVar(&o.to, "to", "", "the archived or rule-based version to serve (required)")
+			fs.StringVar(&o.token, "token", "", "the request's token, acted on once, so the same version can be asked for again (default: from the time)")
 		}, [2]int{1, 1}},
 }
 
