@@ -460,3 +460,19 @@ func TestGateReportsAreConsistent(t *testing.T) {
 			"--report-metrics", strings.Join(metricNames[Multiclass], ",")), nil)
 	}
 }
+
+// One model ranks every pair of a segment right and the other every pair
+// wrong: DeLong's variance of the difference is zero and its z infinite.
+// The tool still writes its full report (z null, the p-value 0) and a gate
+// report the controller accepts.
+func TestDeLongPerfectAgainstReversed(t *testing.T) {
+	csv := "y,seg,a,b\n0,tiny,.1,.9\n0,tiny,.2,.8\n1,tiny,.8,.2\n1,tiny,.9,.1\n" +
+		"0,big,.3,.4\n1,big,.6,.5\n0,big,.5,.3\n1,big,.4,.6\n0,big,.2,.1\n1,big,.7,.8\n"
+	full, _, _ := run(t, []string{"--input", file(t, "d.csv", csv), "--label", "y", "--candidate", "a", "--baseline", "b",
+		"--segment", "seg", "--resamples", "100"}, nil)
+	auc := metric(t, full, "tiny", "roc_auc")
+	d := auc.PairedTests.DeLong
+	if d == nil || d.Z != nil || d.PValue != 0 || d.AUCCandidate != 1 || d.AUCBaseline != 0 {
+		t.Fatalf("DeLong on the tiny segment: %+v", d)
+	}
+}

@@ -29,6 +29,13 @@ type fastCSV struct {
 
 func newFastCSV(f *os.File, name string) (*fastCSV, error) {
 	c := &fastCSV{f: f, name: name, r: bufio.NewReaderSize(f, 1<<20), next: 1}
+	// A byte-order mark goes before the header is parsed, so a quoted first
+	// column name reads as quoted.
+	if bom, err := c.r.Peek(3); err == nil && string(bom) == "\ufeff" {
+		if _, err := c.r.Discard(3); err != nil {
+			return nil, fmt.Errorf("%s: %w", name, err)
+		}
+	}
 	var head []string
 	var err error
 	for head == nil && err == nil {
@@ -42,7 +49,7 @@ func newFastCSV(f *os.File, name string) (*fastCSV, error) {
 	}
 	c.cols = make([]string, len(head))
 	for i, h := range head {
-		c.cols[i] = strings.TrimSpace(strings.TrimPrefix(h, "\ufeff"))
+		c.cols[i] = strings.TrimSpace(h)
 	}
 	if err := checkColumns(name, c.cols); err != nil {
 		return nil, err

@@ -199,7 +199,11 @@ func newJSONL(f *os.File, name string) (*jsonlReader, error) {
 func (j *jsonlReader) object() (map[string]json.RawMessage, error) {
 	for j.sc.Scan() {
 		j.line++
-		b := bytes.TrimSpace(j.sc.Bytes())
+		b := j.sc.Bytes()
+		if j.line == 1 {
+			b = bytes.TrimPrefix(b, []byte("\ufeff")) // a byte-order mark
+		}
+		b = bytes.TrimSpace(b)
 		if len(b) == 0 {
 			continue
 		}

@@ -317,3 +317,23 @@ func TestTrimIsTrimSpace(t *testing.T) {
 		}
 	}
 }
+
+// A CSV that starts with a byte-order mark and quotes its header (what a
+// dataframe library writes with the utf-8-sig encoding and quoted headers)
+// reads like any other: the mark is dropped before the header is parsed.
+func TestCSVByteOrderMarkBeforeAQuotedHeader(t *testing.T) {
+	p := write(t, "golden.csv", "\ufeff\"parcel_id\",\"was_late\",\"score\"\n\"LK-1\",1,0.91\n")
+	cols, rows, err := readAll(t, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if strings.Join(cols, "|") != "parcel_id|was_late|score" || len(rows) != 1 || rows[0][0].S != "LK-1" {
+		t.Fatalf("cols %q rows %+v", cols, rows)
+	}
+	// The same for JSON Lines.
+	p = write(t, "golden.jsonl", "\ufeff"+`{"parcel_id":"LK-1","was_late":1,"score":0.91}`+"\n")
+	cols, rows, err = readAll(t, p)
+	if err != nil || strings.Join(cols, "|") != "parcel_id|score|was_late" || len(rows) != 1 {
+		t.Fatalf("JSON Lines with a byte-order mark: cols %q rows %+v err %v", cols, rows, err)
+	}
+}
