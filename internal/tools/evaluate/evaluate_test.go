@@ -476,3 +476,20 @@ func TestDeLongPerfectAgainstReversed(t *testing.T) {
 		t.Fatalf("DeLong on the tiny segment: %+v", d)
 	}
 }
+
+// Hard 0/1 predictions in a binary golden set are scored as probabilities
+// by log loss and Brier; the report and the table say so.
+func TestHardPredictionsWarned(t *testing.T) {
+	csv := "y,a,b\n0,0,.2\n1,1,.7\n0,1,.4\n1,1,.9\n0,0,.1\n"
+	full, _, out := run(t, []string{"--input", file(t, "h.csv", csv), "--label", "y", "--candidate", "a", "--baseline", "b", "--resamples", "100"}, nil)
+	if len(full.Warnings) != 1 || !strings.Contains(full.Warnings[0], "candidate's scores are all 0 or 1") {
+		t.Fatalf("warnings %q", full.Warnings)
+	}
+	if !strings.Contains(out, "warning: the candidate's scores are all 0 or 1") {
+		t.Errorf("the table does not warn:\n%s", out)
+	}
+	// One mistake at certainty: log loss is the clipped -ln(eps)/5, with
+	// eps the machine epsilon (scikit-learn's default clipping, from
+	// memory): -ln(2.220446049250313e-16) = 36.04365338911715.
+	near(t, "log loss of hard predictions", metric(t, full, "", "log_loss").Candidate, 36.04365338911715/5, 1e-9)
+}

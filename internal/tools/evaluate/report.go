@@ -31,6 +31,9 @@ type Report struct {
 	MultipleTesting string        `json:"multipleTesting"`
 	Groups          []GroupReport `json:"groups"`
 	MustPass        MustPass      `json:"mustPass"`
+	// Warnings say what in the input makes some figures mean less than
+	// they seem.
+	Warnings []string `json:"warnings,omitempty"`
 }
 
 // BootstrapInfo says how the paired bootstrap was run.
@@ -142,6 +145,14 @@ func Build(input string, ds *Dataset, s Settings, groups []GroupResult, failed [
 		MustPass:        MustPass{Total: len(ds.MustPass), Failed: len(failed), FailedIDs: failed}}
 	if ds.Task == Binary {
 		r.Threshold = &s.Threshold
+		for _, m := range []struct {
+			name   string
+			scores []float64
+		}{{"candidate", ds.Cand}, {"baseline", ds.Base}} {
+			if hardPredictions(m.scores) {
+				r.Warnings = append(r.Warnings, fmt.Sprintf("the %s's scores are all 0 or 1: hard predictions, not probabilities; log_loss and brier score them as certainties (one mistake costs log loss about 36), and roc_auc and average_precision rank only two values", m.name))
+			}
+		}
 	}
 	if ds.Task == Multiclass {
 		r.Classes = ds.Classes
@@ -291,7 +302,11 @@ func WriteTable(w io.Writer, r Report) error {
 	if r.Threshold != nil {
 		fmt.Fprintf(w, ", threshold %g", *r.Threshold)
 	}
-	fmt.Fprintf(w, "; intervals at %g%%, %d paired bootstrap resamples\n\n", r.Confidence*100, r.Bootstrap.Resamples)
+	fmt.Fprintf(w, "; intervals at %g%%, %d paired bootstrap resamples\n", r.Confidence*100, r.Bootstrap.Resamples)
+	for _, warn := range r.Warnings {
+		fmt.Fprintf(w, "warning: %s\n", warn)
+	}
+	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "SEGMENT\tMETRIC\tCANDIDATE\tBASELINE\tDELTA\tINTERVAL\tP\tTEST\tROWS")
 	for _, g := range r.Groups {
@@ -347,4 +362,14 @@ func segName(s string) string {
 		return "(all)"
 	}
 	return s
+}
+
+// hardPredictions says every score is exactly 0 or 1.
+func hardPredictions(scores []float64) bool {
+	for _, v := range scores {
+		if v != 0 && v != 1 {
+			return false
+		}
+	}
+	return len(scores) > 0
 }

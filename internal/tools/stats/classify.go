@@ -320,9 +320,12 @@ func AveragePrecision(label []uint8, score []float64, order []int32, w []float64
 	return defined(ap)
 }
 
-// LogEps bounds probabilities away from 0 and 1 in the log loss, as
-// scikit-learn does (common practice).
-const LogEps = 1e-15
+// LogEps bounds probabilities away from 0 and 1 in the log loss: the
+// machine epsilon of float64, as scikit-learn's log_loss clips by default
+// since version 1.5 (eps="auto"; before, 1e-15). From memory of its
+// documentation; a log loss of predictions away from 0 and 1 does not
+// depend on it.
+const LogEps = 2.220446049250313e-16
 
 // LogLoss is the mean negative log likelihood of the labels under the
 // probabilities of the positive class.
