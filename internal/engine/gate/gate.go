@@ -188,16 +188,25 @@ func nonInferior(c v1alpha1.GateCriterion, m *gatereport.Metric) (bool, string) 
 	maxReg := *c.MaxRegression
 	if c.EffectiveDirection() == v1alpha1.LowerIsBetter {
 		if m.DeltaHigh == nil {
-			return false, fmt.Sprintf("the report gives no deltaHigh for %s", c.Metric)
+			return false, fmt.Sprintf("the report gives no deltaHigh for %s%s", c.Metric, rowsNote(m))
 		}
 		hi := *m.DeltaHigh
 		return hi <= maxReg, fmt.Sprintf("upper bound of the change in %s %s %s %s (maxRegression, %s)", c.Metric, num(hi), cmp(hi <= maxReg, "<=", ">"), num(maxReg), pct(*m.Confidence))
 	}
 	if m.DeltaLow == nil {
-		return false, fmt.Sprintf("the report gives no deltaLow for %s", c.Metric)
+		return false, fmt.Sprintf("the report gives no deltaLow for %s%s", c.Metric, rowsNote(m))
 	}
 	lo := *m.DeltaLow
 	return lo >= -maxReg, fmt.Sprintf("lower bound of the change in %s %s %s %s (maxRegression, %s)", c.Metric, num(lo), cmp(lo >= -maxReg, ">=", "<"), num(-maxReg), pct(*m.Confidence))
+}
+
+// rowsNote says how many rows a metric had, when the report says: an
+// interval missing for a handful of rows is no surprise.
+func rowsNote(m *gatereport.Metric) string {
+	if m.N <= 0 {
+		return ""
+	}
+	return fmt.Sprintf(" (%d rows)", m.N)
 }
 
 func describe(r v1alpha1.CriterionResult) string {

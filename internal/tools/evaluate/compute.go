@@ -1,6 +1,7 @@
 package evaluate
 
 import (
+	"fmt"
 	"math"
 	"runtime"
 	"sort"
@@ -194,7 +195,16 @@ type BootResult struct {
 	Resamples    int
 	Rows         int
 	Defined      bool
+	// Undefined says why there is no interval (too few rows).
+	Undefined string
 }
+
+// MinBootstrapRows is the fewest rows of a group the paired bootstrap gives
+// an interval and a p-value for: resamples of fewer rows say next to
+// nothing about the spread, and a zero-width interval from one row would
+// pass a non-inferiority criterion on nothing (common practice; there is
+// no single published bound).
+const MinBootstrapRows = 10
 
 // GroupResult is every metric on one group.
 type GroupResult struct {
@@ -230,6 +240,14 @@ func evaluate(g *group, s Settings, seed uint64) GroupResult {
 	}
 
 	// The paired bootstrap, every metric on the same resamples.
+	if g.n < MinBootstrapRows {
+		why := fmt.Sprintf("%d rows: a paired bootstrap interval needs at least %d", g.n, MinBootstrapRows)
+		for i := range res.Results {
+			res.Results[i].Boot = &BootResult{Resamples: s.Bootstrap.Resamples, Rows: g.n, Low: math.NaN(), High: math.NaN(), P: math.NaN(), Undefined: why}
+		}
+		tests(g, s, res.Results)
+		return res
+	}
 	rows := s.Bootstrap.Rows(g.n)
 	sub := g
 	if len(rows) < g.n {
@@ -257,10 +275,15 @@ func evaluate(g *group, s Settings, seed uint64) GroupResult {
 		r.Boot = br
 		r.Low, r.High, r.P = br.Low, br.High, br.P
 	}
+	tests(g, s, res.Results)
+	return res
+}
 
-	// McNemar for accuracy; DeLong for ROC AUC.
-	for i := range res.Results {
-		r := &res.Results[i]
+// tests runs the paired tests of their own: McNemar for accuracy, DeLong
+// for ROC AUC.
+func tests(g *group, s Settings, results []Result) {
+	for i := range results {
+		r := &results[i]
 		switch {
 		case r.Metric == "accuracy":
 			var b, c int64
@@ -282,7 +305,6 @@ func evaluate(g *group, s Settings, seed uint64) GroupResult {
 			}
 		}
 	}
-	return res
 }
 
 // asDataset views a group as a dataset, to subset it again.

@@ -371,7 +371,18 @@ func TestFormatsAgree(t *testing.T) {
 		for _, name := range []string{"accuracy", "roc_auc", "log_loss"} {
 			for _, seg := range []string{"", "a", "b"} {
 				x, y := metric(t, a, seg, name), metric(t, other, seg, name)
-				if fmt.Sprint(*x.Candidate, *x.Baseline, *x.DeltaLow) != fmt.Sprint(*y.Candidate, *y.Baseline, *y.DeltaLow) {
+				str := func(m MetricReport) string {
+					s := ""
+					for _, p := range []*float64{m.Candidate, m.Baseline, m.DeltaLow} {
+						if p == nil {
+							s += " nil"
+						} else {
+							s += fmt.Sprint(" ", *p)
+						}
+					}
+					return s
+				}
+				if str(x) != str(y) {
 					t.Errorf("%s/%s differs between formats", seg, name)
 				}
 			}
@@ -492,4 +503,31 @@ func TestHardPredictionsWarned(t *testing.T) {
 	// eps the machine epsilon (scikit-learn's default clipping, from
 	// memory): -ln(2.220446049250313e-16) = 36.04365338911715.
 	near(t, "log loss of hard predictions", metric(t, full, "", "log_loss").Candidate, 36.04365338911715/5, 1e-9)
+}
+
+// A segment too small for a paired bootstrap gets no interval and no
+// bootstrap p-value, with the reason, instead of a zero-width interval and
+// a non-inferiority verdict from one row.
+func TestBootstrapMinimum(t *testing.T) {
+	csv := "y,seg,a,b\n1,lone,.9,.2\n"
+	for i := 0; i < 30; i++ {
+		csv += fmt.Sprintf("%d,many,.%d,.%d\n", i%2, 2+i%2*6, 3+i%2*4)
+	}
+	full, gr, _ := run(t, []string{"--input", file(t, "m.csv", csv), "--label", "y", "--candidate", "a", "--baseline", "b",
+		"--segment", "seg", "--resamples", "100", "--max-regression", "0.05", "--report-metrics", "recall,f1", "--report-segments", "*"}, nil)
+	lone := metric(t, full, "lone", "recall")
+	if lone.DeltaLow != nil || lone.DeltaHigh != nil || lone.PValue != nil || lone.NonInferior != nil {
+		t.Errorf("a 1-row segment: interval [%v, %v], p %v, non-inferior %v; want none", lone.DeltaLow, lone.DeltaHigh, lone.PValue, lone.NonInferior)
+	}
+	if b := lone.PairedTests.Bootstrap; b == nil || !strings.Contains(b.Undefined, "1 rows: a paired bootstrap interval needs at least 10") {
+		t.Errorf("bootstrap %+v: no reason given", b)
+	}
+	if many := metric(t, full, "many", "recall"); many.DeltaLow == nil || many.PairedTests.Bootstrap.Undefined != "" {
+		t.Errorf("30 rows: %+v", many.PairedTests.Bootstrap)
+	}
+	for _, m := range gr.Metrics {
+		if m.Segment == "lone" && (m.DeltaLow != nil || m.PValue != nil) {
+			t.Errorf("the gate report claims an interval for the 1-row segment: %+v", m)
+		}
+	}
 }

@@ -112,6 +112,8 @@ type BootstrapReport struct {
 	PValue    *float64 `json:"pValue"`
 	Resamples int      `json:"resamples"`
 	Rows      int      `json:"rows"`
+	// Undefined says why there is no interval.
+	Undefined string `json:"undefined,omitempty"`
 }
 
 // MustPass counts the must-pass rows.
@@ -189,7 +191,7 @@ func metricReport(segment string, res Result, s Settings) MetricReport {
 		m.PairedTests.DeLong = &DeLongReport{AUCCandidate: d.AUCA, AUCBaseline: d.AUCB, VarCandidate: d.VarA, VarBaseline: d.VarB, Covariance: d.Cov, Z: num(d.Z), PValue: d.PValue}
 	}
 	if b := res.Boot; b != nil {
-		m.PairedTests.Bootstrap = &BootstrapReport{Low: num(b.Low), High: num(b.High), PValue: num(b.P), Resamples: b.Resamples, Rows: b.Rows}
+		m.PairedTests.Bootstrap = &BootstrapReport{Low: num(b.Low), High: num(b.High), PValue: num(b.P), Resamples: b.Resamples, Rows: b.Rows, Undefined: b.Undefined}
 	}
 	return m
 }
