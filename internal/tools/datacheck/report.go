@@ -223,7 +223,7 @@ func build(res *result) (*Report, error) {
 		}
 	}
 	r.Notes = append(r.Notes, fmt.Sprintf("KS, Wasserstein-1 and the numeric PSI use a uniform random sample of at most %d values per column and batch (reservoir sampling, seed %d): "+
-		"the KS p-value is exact for the sample, with the power of that many rows; counts of missing, wrong, out-of-range, unseen and duplicate values are over every row", o.SampleSize, o.Seed))
+		"the KS p-value is exact while both samples hold at most %d values and asymptotic above (SciPy's ks_2samp default), with the power of that many rows; counts of missing, wrong, out-of-range, unseen and duplicate values are over every row", o.SampleSize, o.Seed, stats.KSExactUpTo))
 	return r, nil
 }
 
