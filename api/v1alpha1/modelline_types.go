@@ -738,14 +738,15 @@ type ModelLineStatus struct {
 //
 // +kubebuilder:object:root=true
 // +kubebuilder:subresource:status
-// +kubebuilder:resource:shortName=ml;mline,categories=plumbline
+// +kubebuilder:resource:shortName=mline,categories=plumbline
 // +kubebuilder:printcolumn:name="Live",type=string,JSONPath=`.status.liveVersion`
 // +kubebuilder:printcolumn:name="Ready",type=string,JSONPath=`.status.conditions[?(@.type=="Ready")].status`
 // +kubebuilder:printcolumn:name="Retraining",type=string,JSONPath=`.status.conditions[?(@.type=="Retraining")].status`
+// +kubebuilder:printcolumn:name="Awaiting Approval",type=string,JSONPath=`.status.conditions[?(@.type=="AwaitingApproval")].status`
 // +kubebuilder:printcolumn:name="Fallback",type=string,JSONPath=`.status.conditions[?(@.type=="FallbackActive")].status`
 // +kubebuilder:printcolumn:name="Reason",type=string,priority=1,JSONPath=`.status.conditions[?(@.type=="Ready")].reason`
 // +kubebuilder:printcolumn:name="Previous",type=string,priority=1,JSONPath=`.status.previousVersion`
-// +kubebuilder:printcolumn:name="Next Schedule",type=date,priority=1,JSONPath=`.status.nextScheduleTime`
+// +kubebuilder:printcolumn:name="Next Schedule",type=string,priority=1,JSONPath=`.status.nextScheduleTime`
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
 type ModelLine struct {
 	metav1.TypeMeta   `json:",inline"`

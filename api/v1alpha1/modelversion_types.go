@@ -65,12 +65,13 @@ type ModelVersionSpec struct {
 	// +kubebuilder:validation:MaxLength=2048
 	ArtifactURI string `json:"artifactURI,omitempty"`
 
-	// reason the version exists: Schedule, Manual, Initial or
-	// Trigger/<trigger name>.
+	// cause is what asked for the version: Schedule, Manual (a person's
+	// request), Initial, or Trigger/<trigger name>. (The version's status
+	// reason says where it stands.)
 	// +optional
 	// +kubebuilder:validation:MaxLength=80
 	// +kubebuilder:validation:Pattern=`^(Schedule|Manual|Initial|Trigger/[a-z0-9]([-a-z0-9]*[a-z0-9])?)$`
-	Reason string `json:"reason,omitempty"`
+	Cause string `json:"cause,omitempty"`
 
 	// decision is set by a person on a candidate that waits for approval:
 	// Approved or Rejected. It cannot be changed once made.
@@ -360,11 +361,13 @@ type ModelVersionStatus struct {
 //
 // +kubebuilder:object:root=true
 // +kubebuilder:subresource:status
-// +kubebuilder:resource:shortName=mv;mver,categories=plumbline
+// +kubebuilder:resource:shortName=mver,categories=plumbline
 // +kubebuilder:printcolumn:name="Line",type=string,JSONPath=`.spec.line`
+// +kubebuilder:printcolumn:name="Number",type=integer,JSONPath=`.status.number`
 // +kubebuilder:printcolumn:name="Phase",type=string,JSONPath=`.status.phase`
-// +kubebuilder:printcolumn:name="Reason",type=string,JSONPath=`.spec.reason`
+// +kubebuilder:printcolumn:name="Reason",type=string,JSONPath=`.status.reason`
 // +kubebuilder:printcolumn:name="Gate",type=string,JSONPath=`.status.gate.verdict`
+// +kubebuilder:printcolumn:name="Cause",type=string,JSONPath=`.spec.cause`
 // +kubebuilder:printcolumn:name="Source",type=string,priority=1,JSONPath=`.spec.source`
 // +kubebuilder:printcolumn:name="Artifact",type=string,priority=1,JSONPath=`.spec.artifactURI`
 // +kubebuilder:printcolumn:name="Message",type=string,priority=1,JSONPath=`.status.message`

@@ -182,7 +182,7 @@ func versionEnv(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, w dataWindow
 		{Name: jobenv.Line, Value: line.Name},
 		{Name: jobenv.Version, Value: v.Name},
 		{Name: jobenv.ArtifactURI, Value: v.Spec.ArtifactURI},
-		{Name: jobenv.Reason, Value: v.Spec.Reason},
+		{Name: jobenv.Reason, Value: v.Spec.Cause},
 		{Name: jobenv.DataFrom, Value: formatTime(w.from)},
 		{Name: jobenv.DataTo, Value: formatTime(&w.to)},
 	}

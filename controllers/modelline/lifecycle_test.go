@@ -85,7 +85,7 @@ func trainingLine() *v1alpha1.ModelLine {
 func TestBuildTrainingJob(t *testing.T) {
 	line := trainingLine()
 	v := &v1alpha1.ModelVersion{ObjectMeta: metav1.ObjectMeta{Name: "late-risk-v4", Namespace: "larkspur", UID: types.UID("v4-uid")},
-		Spec: v1alpha1.ModelVersionSpec{Line: "late-risk", Source: v1alpha1.SourceTrained, Reason: "Trigger/auc-drop", ArtifactURI: "s3://m/4"}}
+		Spec: v1alpha1.ModelVersionSpec{Line: "late-risk", Source: v1alpha1.SourceTrained, Cause: "Trigger/auc-drop", ArtifactURI: "s3://m/4"}}
 	from := time.Date(2026, 10, 26, 2, 30, 0, 0, time.UTC)
 	to := time.Date(2026, 11, 2, 2, 30, 0, 0, time.UTC)
 	job := buildTrainingJob(line, v, dataWindow{from: &from, to: to})

@@ -315,7 +315,7 @@ func modelVersion(name string, m int, phase v1alpha1.VersionPhase, source v1alph
 		Status: v1alpha1.ModelVersionStatus{Phase: phase},
 	}
 	if source == v1alpha1.SourceTrained {
-		v.Spec.Reason = v1alpha1.ReasonManual
+		v.Spec.Cause = v1alpha1.ReasonManual
 	}
 	return v
 }

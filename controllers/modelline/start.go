@@ -75,7 +75,7 @@ func (r *Reconciler) StartVersion(ctx context.Context, line *v1alpha1.ModelLine,
 			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(line,
 				v1alpha1.GroupVersion.WithKind("ModelLine"))},
 		},
-		Spec: v1alpha1.ModelVersionSpec{Line: line.Name, Source: v1alpha1.SourceTrained, ArtifactURI: uri, Reason: reason},
+		Spec: v1alpha1.ModelVersionSpec{Line: line.Name, Source: v1alpha1.SourceTrained, ArtifactURI: uri, Cause: reason},
 	}
 	// The marks (a person's token, a scheduled start) say what the version
 	// answers, so a pass that crashed before recording it knows it was done.

@@ -110,7 +110,7 @@ func (r *Reconciler) rejectByPerson(ctx context.Context, line *v1alpha1.ModelLin
 
 // finished counts a version that will not go further.
 func finished(line *v1alpha1.ModelLine, v *v1alpha1.ModelVersion, p *pass, result string) {
-	reason := v.Spec.Reason
+	reason := v.Spec.Cause
 	p.countFor(v.Name, func() { retrainsFinished.WithLabelValues(line.Namespace, line.Name, reason, result).Inc() })
 }
 
@@ -157,7 +157,7 @@ func (r *Reconciler) startTraining(ctx context.Context, line *v1alpha1.ModelLine
 	p.setPhase(v, v1alpha1.PhaseTraining, reasonTrainingStarted, msg)
 	if created {
 		p.event(v, line, corev1.EventTypeNormal, reasonTrainingStarted, "%s", msg)
-		reason := v.Spec.Reason
+		reason := v.Spec.Cause
 		p.countFor(v.Name, func() { retrainsStarted.WithLabelValues(line.Namespace, line.Name, reason).Inc() })
 	}
 	return nil

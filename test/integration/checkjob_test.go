@@ -186,8 +186,8 @@ func TestCheckJobRefusesBrokenData(t *testing.T) {
 	requestRetrain(t, key, "check-2")
 	runCheckJob(t, ns, "late-risk-check-2", b.reference, b.current)
 	v := waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseTraining)
-	if v.Spec.Reason != v1alpha1.ReasonManual {
-		t.Errorf("reason %q", v.Spec.Reason)
+	if v.Spec.Cause != v1alpha1.ReasonManual {
+		t.Errorf("reason %q", v.Spec.Cause)
 	}
 	waitLineCondition(t, key, v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed")
 	st = waitLastCheck(t, key, func(s *v1alpha1.CheckRunStatus) bool { return s.Number == 2 && s.Used })
@@ -283,8 +283,8 @@ func TestCheckJobDriftOnTrigger(t *testing.T) {
 	stateAt(t, key, hm(5, 10), v1alpha1.TriggerFiring)
 	runCheckJob(t, key.Namespace, "late-risk-check-2", b.reference, b.drifted)
 	v := waitPhase(t, key.Namespace, "late-risk-v1", v1alpha1.PhaseTraining)
-	if v.Spec.Reason != "Trigger/auc-drop" {
-		t.Errorf("reason %q", v.Spec.Reason)
+	if v.Spec.Cause != "Trigger/auc-drop" {
+		t.Errorf("reason %q", v.Spec.Cause)
 	}
 	st := waitLastCheck(t, key, func(s *v1alpha1.CheckRunStatus) bool { return s.Number == 2 && s.Used })
 	if st.Drift != v1alpha1.CheckDetected || st.DataQuality != v1alpha1.CheckOK {

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"os/exec"
 	"strings"
 	"testing"
 
@@ -53,10 +54,19 @@ func TestKubectlPlumbline(t *testing.T) {
 	waitLineCondition(t, key, v1alpha1.ConditionAwaitingApproval, metav1.ConditionTrue, "WaitingForDecision")
 
 	out = mustRun(t, ns, "status")
-	mustContain(t, "status table", out, "LINE", "IN FLIGHT", "late-risk", initial, "late-risk-v1")
+	mustContain(t, "status table", out, "LINE", "IN FLIGHT", "AWAITING APPROVAL", "late-risk", initial, "late-risk-v1")
+	if lines := strings.Split(out, "\n"); len(lines) < 2 || strings.Count(lines[1], "late-risk-v1") != 2 {
+		t.Errorf("the line's row does not name late-risk-v1 as in flight and awaiting approval:\n%s", out)
+	}
 	out = mustRun(t, ns, "status", lineName)
 	mustContain(t, "status of the line", out, "ModelLine kubectl-plugin/late-risk", "Live:       "+initial,
-		"In flight:  late-risk-v1", "AwaitingApproval", "WaitingForDecision")
+		"In flight:  late-risk-v1", "Waiting for a person: late-risk-v1 passed the gate", "AwaitingApproval", "WaitingForDecision")
+	if kubectl, err := exec.LookPath("kubectl"); err == nil {
+		got, err := exec.Command(kubectl, "--kubeconfig", kubeconfigPath, "-n", ns, "get", "mline").CombinedOutput()
+		if err != nil || !strings.Contains(string(got), "AWAITING APPROVAL") || !strings.Contains(string(got), "True") {
+			t.Errorf("kubectl get mline does not show the candidate waiting: %v\n%s", err, got)
+		}
+	}
 
 	if _, err := kubectlPlumbline(t, ns, "approve", initial); err == nil || !strings.Contains(err.Error(), "AwaitingApproval") {
 		t.Errorf("approving the live version: %v, want a refusal naming AwaitingApproval", err)

@@ -119,7 +119,7 @@ func TestAdoptsJobCreatedBeforeACrash(t *testing.T) {
 	// pass made for it.
 	v := &v1alpha1.ModelVersion{
 		ObjectMeta: metav1.ObjectMeta{Namespace: ns, Name: "late-risk-v5", Labels: map[string]string{"plumbline.dev/number": "5"}},
-		Spec:       v1alpha1.ModelVersionSpec{Line: lineName, Source: v1alpha1.SourceTrained, Reason: v1alpha1.ReasonManual, ArtifactURI: trainPrefix + "5"},
+		Spec:       v1alpha1.ModelVersionSpec{Line: lineName, Source: v1alpha1.SourceTrained, Cause: v1alpha1.ReasonManual, ArtifactURI: trainPrefix + "5"},
 	}
 	if err := k8s.Create(ctx, v); err != nil {
 		t.Fatal(err)
@@ -155,7 +155,7 @@ func TestAdoptsJobCreatedBeforeACrash(t *testing.T) {
 	}
 	v6 := &v1alpha1.ModelVersion{
 		ObjectMeta: metav1.ObjectMeta{Namespace: ns, Name: "late-risk-v6", Labels: map[string]string{"plumbline.dev/number": "6"}},
-		Spec:       v1alpha1.ModelVersionSpec{Line: lineName, Source: v1alpha1.SourceTrained, Reason: v1alpha1.ReasonManual, ArtifactURI: trainPrefix + "6"},
+		Spec:       v1alpha1.ModelVersionSpec{Line: lineName, Source: v1alpha1.SourceTrained, Cause: v1alpha1.ReasonManual, ArtifactURI: trainPrefix + "6"},
 	}
 	if err := k8s.Create(ctx, v6); err != nil {
 		t.Fatal(err)

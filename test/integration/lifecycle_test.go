@@ -273,7 +273,7 @@ func TestLifecycleHappyPath(t *testing.T) {
 	// A person asks for a retrain.
 	requestRetrain(t, key, "2026-11-02T09:30")
 	v1 := waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseTraining)
-	if v1.Spec.Source != v1alpha1.SourceTrained || v1.Spec.Reason != v1alpha1.ReasonManual || v1.Spec.ArtifactURI != trainPrefix+"1" {
+	if v1.Spec.Source != v1alpha1.SourceTrained || v1.Spec.Cause != v1alpha1.ReasonManual || v1.Spec.ArtifactURI != trainPrefix+"1" {
 		t.Errorf("v1 spec %+v", v1.Spec)
 	}
 	if ref := metav1.GetControllerOf(v1); ref == nil || ref.Name != lineName {
@@ -450,4 +450,48 @@ func equalJSON(t *testing.T, a, b any) bool { return toJSON(t, a) == toJSON(t, b
 func conditionIs(conds []metav1.Condition, typ string) bool {
 	c := meta.FindStatusCondition(conds, typ)
 	return c != nil && c.Status == metav1.ConditionTrue
+}
+
+// What a person scans with kubectl get: our own short names, the next
+// scheduled start as a time (a date column shows "<invalid>" for a future
+// time), versions with their number, the status reason and the cause.
+func TestKubectlColumns(t *testing.T) {
+	kubectl, err := exec.LookPath("kubectl")
+	if err != nil || kubeconfigPath == "" {
+		t.Skip("kubectl is not installed")
+	}
+	ns := "kubectl-columns"
+	key := liveLine(t, ns, func(o *unstructured.Unstructured) {
+		mustSet(t, o, "spec.schedule", map[string]any{"cron": "0 3 * * *", "timeZone": "Europe/London"})
+	})
+	requestRetrain(t, key, "columns")
+	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseTraining)
+	eventually(t, waitFor, func() error {
+		if getLine(t, key).Status.NextScheduleTime == nil {
+			return fmt.Errorf("no nextScheduleTime yet")
+		}
+		return nil
+	})
+	get := func(args ...string) string {
+		t.Helper()
+		out, err := exec.Command(kubectl, append([]string{"--kubeconfig", kubeconfigPath, "-n", ns, "get"}, args...)...).CombinedOutput()
+		if err != nil {
+			t.Fatalf("kubectl get %v: %v\n%s", args, err, out)
+		}
+		return string(out)
+	}
+	wide := get("mline", "-o", "wide")
+	next := getLine(t, key).Status.NextScheduleTime.UTC().Format("2006-01-02T15:04:05Z")
+	if strings.Contains(wide, "<invalid>") || !strings.Contains(wide, "NEXT SCHEDULE") || !strings.Contains(wide, next) {
+		t.Errorf("kubectl get mline -o wide shows no next scheduled start %s:\n%s", next, wide)
+	}
+	versions := get("mver")
+	for _, want := range []string{"NUMBER", "PHASE", "REASON", "CAUSE", "late-risk-v1", "TrainingStarted", "Manual", "Initial"} {
+		if !strings.Contains(versions, want) {
+			t.Errorf("kubectl get mver lacks %q:\n%s", want, versions)
+		}
+	}
+	if out, err := exec.Command(kubectl, "--kubeconfig", kubeconfigPath, "-n", ns, "get", "ml").CombinedOutput(); err == nil {
+		t.Errorf("ml is still a short name of ours:\n%s", out)
+	}
 }

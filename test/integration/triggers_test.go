@@ -328,8 +328,8 @@ func TestTriggerSustainedDropFiresOnce(t *testing.T) {
 	}
 	mustContain(t, "message", st.Message, "below 0.78 at all 61 points over 1h0m0s")
 	v := waitPhase(t, key.Namespace, "late-risk-v1", v1alpha1.PhaseTraining)
-	if v.Spec.Reason != "Trigger/auc-drop" {
-		t.Errorf("reason %q", v.Spec.Reason)
+	if v.Spec.Cause != "Trigger/auc-drop" {
+		t.Errorf("reason %q", v.Spec.Cause)
 	}
 	waitLineCondition(t, key, v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed")
 	waitEvent(t, key.Namespace, lineName, "RetrainStarted")
@@ -380,8 +380,8 @@ func TestTriggerWaitsForAWholeWindowOfTheLiveVersion(t *testing.T) {
 	}
 	stateAt(t, key, hm(4, 31), v1alpha1.TriggerFiring)
 	v := waitPhase(t, ns, "late-risk-v2", v1alpha1.PhaseTraining)
-	if v.Spec.Reason != "Trigger/auc-drop" {
-		t.Errorf("reason %q", v.Spec.Reason)
+	if v.Spec.Cause != "Trigger/auc-drop" {
+		t.Errorf("reason %q", v.Spec.Cause)
 	}
 }
 
@@ -551,8 +551,8 @@ func TestScheduleWithMissedStarts(t *testing.T) {
 	// 04:00, five minutes late: runs, without a drift check.
 	waitScheduled(t, key, hm(4, 5), hm(4, 0))
 	v1 := waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseTraining)
-	if v1.Spec.Reason != "Schedule" {
-		t.Errorf("reason %q", v1.Spec.Reason)
+	if v1.Spec.Cause != "Schedule" {
+		t.Errorf("reason %q", v1.Spec.Cause)
 	}
 
 	// 05:00 while v1 trains: skipped.

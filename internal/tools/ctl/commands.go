@@ -106,15 +106,15 @@ func runStatus(ctx context.Context, e *env, pos []string) error {
 		return nil
 	}
 	tw := tabwriter.NewWriter(e.out, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "LINE\tLIVE\tREADY\tIN FLIGHT\tFALLBACK\tBLOCKED\tNEEDS REVIEW\tTRIGGERS\tGUARD\tAGE")
+	fmt.Fprintln(tw, "LINE\tLIVE\tREADY\tIN FLIGHT\tAWAITING APPROVAL\tFALLBACK\tBLOCKED\tNEEDS REVIEW\tTRIGGERS\tGUARD\tAGE")
 	for i := range lines.Items {
 		l := &lines.Items[i]
 		guard := "-"
 		if l.Status.Guard != nil {
 			guard = string(l.Status.Guard.State)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, dash(l.Status.LiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionReady),
-			dash(l.Status.ActiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionFallbackActive), condStatus(l.Status.Conditions, v1alpha1.ConditionBlocked),
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, dash(l.Status.LiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionReady),
+			dash(l.Status.ActiveVersion), dash(awaiting(l)), condStatus(l.Status.Conditions, v1alpha1.ConditionFallbackActive), condStatus(l.Status.Conditions, v1alpha1.ConditionBlocked),
 			condStatus(l.Status.Conditions, v1alpha1.ConditionNeedsReview), triggerStates(l), guard, e.age(&l.CreationTimestamp))
 	}
 	return tw.Flush()
@@ -130,6 +130,9 @@ func (e *env) describe(l *v1alpha1.ModelLine) error {
 	}
 	fmt.Fprintln(e.out)
 	fmt.Fprintf(e.out, "  In flight:  %s\n", dash(st.ActiveVersion))
+	if v := awaiting(l); v != "" {
+		fmt.Fprintf(e.out, "  Waiting for a person: %s passed the gate (kubectl plumbline approve %s, or reject %s)\n", v, v, v)
+	}
 	fmt.Fprintf(e.out, "  Serving:    Deployment %s, container %s, env %s\n", l.Spec.Serving.DeploymentName, l.Spec.Serving.ContainerName, l.Spec.Serving.ArtifactEnv)
 	if st.NextScheduleTime != nil {
 		fmt.Fprintf(e.out, "  Next scheduled start: %s\n", st.NextScheduleTime.UTC().Format(time.RFC3339))
@@ -201,7 +204,7 @@ func runHistory(ctx context.Context, e *env, pos []string) error {
 		if v.Status.Reason != "" {
 			why = v.Status.Reason + ": " + why
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\n", v.Name, v.Spec.Source, dash(v.Spec.Reason), dash(phase), gate, e.age(&v.CreationTimestamp), clip(why, 100))
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\n", v.Name, v.Spec.Source, dash(v.Spec.Cause), dash(phase), gate, e.age(&v.CreationTimestamp), clip(why, 100))
 	}
 	return tw.Flush()
 }
@@ -313,4 +316,12 @@ func runRollback(ctx context.Context, e *env, pos []string) error {
 	}
 	fmt.Fprintf(e.out, "asked %s to serve %s again: the controller rolls the Deployment to it\n", l.Name, v.Name)
 	return nil
+}
+
+// awaiting is the candidate that waits for a person's decision, if any.
+func awaiting(l *v1alpha1.ModelLine) string {
+	if condStatus(l.Status.Conditions, v1alpha1.ConditionAwaitingApproval) != string(metav1.ConditionTrue) {
+		return ""
+	}
+	return l.Status.ActiveVersion
 }

@@ -59,13 +59,13 @@ func (d *player) summary(metricsAddr string) error {
 		return fmt.Errorf("list versions: %w", err)
 	}
 	d.result.ServedBy = d.sim.servedBy()
-	fmt.Fprintln(tw, "MODELVERSION\tSOURCE\tREASON\tPHASE\tGATE\tPARCELS SCORED")
+	fmt.Fprintln(tw, "MODELVERSION\tSOURCE\tCAUSE\tPHASE\tGATE\tPARCELS SCORED")
 	for _, v := range versions.Items {
 		verdict := "-"
 		if v.Status.Gate != nil {
 			verdict = string(v.Status.Gate.Verdict)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%d\n", v.Name, v.Spec.Source, orDash(v.Spec.Reason), v.Status.Phase, verdict, d.result.ServedBy[v.Name])
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%d\n", v.Name, v.Spec.Source, orDash(v.Spec.Cause), v.Status.Phase, verdict, d.result.ServedBy[v.Name])
 	}
 	fmt.Fprintln(tw)
 	var jobs batchv1.JobList
