@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"os/exec"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -123,8 +124,8 @@ func TestGuardRollsBackToPrevious(t *testing.T) {
 			t.Fatalf("kubectl: %v\n%s", err, out)
 		}
 		t.Logf("after the rollback:\n%s", out)
-		if !strings.Contains(string(out), "late-risk-v0   True    False        True") {
-			t.Errorf("kubectl get modellines does not show FALLBACK True:\n%s", out)
+		if got := tableCell(string(out), "modelline.plumbline.dev/late-risk", "FALLBACK"); got != "True" {
+			t.Errorf("kubectl get modellines shows FALLBACK %q, want True:\n%s", got, out)
 		}
 	}
 
@@ -321,4 +322,27 @@ func setAnnotation(t *testing.T, key client.ObjectKey, name, value string) {
 	if err := k8s.Patch(context.Background(), line, client.RawPatch("application/merge-patch+json", []byte(patch))); err != nil {
 		t.Fatal(err)
 	}
+}
+
+// tableCell reads one cell of kubectl's table output: the row whose first
+// column is name, under the header column. Headers are split on runs of two
+// or more spaces, so a header of two words ("AWAITING APPROVAL") stays one.
+func tableCell(out, name, column string) string {
+	split := regexp.MustCompile(`\s{2,}`)
+	var header []string
+	for _, l := range strings.Split(out, "\n") {
+		f := split.Split(strings.TrimSpace(l), -1)
+		if len(f) > 0 && f[0] == "NAME" {
+			header = f
+			continue
+		}
+		if len(f) == len(header) && f[0] == name {
+			for i, h := range header {
+				if h == column {
+					return f[i]
+				}
+			}
+		}
+	}
+	return ""
 }
