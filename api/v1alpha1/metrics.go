@@ -1,31 +1,31 @@
 package v1alpha1
 
 // knownMetrics are the metrics plumbline evaluate reports, with the way each
-// improves. A gate criterion on one of them needs no direction; the CEL rule
+// improves. A gate criterion on one of them needs no `better`; the CEL rule
 // on GateCriterion lists the same names (a test keeps the two in step).
-var knownMetrics = map[string]MetricDirection{
-	"accuracy":          HigherIsBetter,
-	"balanced_accuracy": HigherIsBetter,
-	"precision":         HigherIsBetter,
-	"recall":            HigherIsBetter,
-	"f1":                HigherIsBetter,
-	"f1_macro":          HigherIsBetter,
-	"f1_micro":          HigherIsBetter,
-	"f1_weighted":       HigherIsBetter,
-	"mcc":               HigherIsBetter,
-	"roc_auc":           HigherIsBetter,
-	"average_precision": HigherIsBetter,
-	"log_loss":          LowerIsBetter,
-	"brier":             LowerIsBetter,
-	"mae":               LowerIsBetter,
-	"rmse":              LowerIsBetter,
-	"mape":              LowerIsBetter,
-	"r2":                HigherIsBetter,
+var knownMetrics = map[string]Better{
+	"accuracy":          HigherBetter,
+	"balanced_accuracy": HigherBetter,
+	"precision":         HigherBetter,
+	"recall":            HigherBetter,
+	"f1":                HigherBetter,
+	"f1_macro":          HigherBetter,
+	"f1_micro":          HigherBetter,
+	"f1_weighted":       HigherBetter,
+	"mcc":               HigherBetter,
+	"roc_auc":           HigherBetter,
+	"average_precision": HigherBetter,
+	"log_loss":          LowerBetter,
+	"brier":             LowerBetter,
+	"mae":               LowerBetter,
+	"rmse":              LowerBetter,
+	"mape":              LowerBetter,
+	"r2":                HigherBetter,
 }
 
-// KnownMetricDirection returns the direction of a metric plumbline evaluate
+// KnownBetter returns which way is better for a metric plumbline evaluate
 // reports, and false for any other name.
-func KnownMetricDirection(metric string) (MetricDirection, bool) {
+func KnownBetter(metric string) (Better, bool) {
 	d, ok := knownMetrics[metric]
 	return d, ok
 }
@@ -39,16 +39,16 @@ func KnownMetrics() []string {
 	return names
 }
 
-// EffectiveDirection is the criterion's direction: the one it sets, else the
-// known direction of its metric, else HigherIsBetter (admission refuses an
-// unknown metric without a direction, so the last case is not reached for a
+// EffectiveBetter is which way is better for the criterion's metric: the way
+// it sets, else the metric's known way, else HigherBetter (admission refuses an
+// unknown metric without `better`, so the last case is not reached for a
 // stored object).
-func (c GateCriterion) EffectiveDirection() MetricDirection {
-	if c.Direction != "" {
-		return c.Direction
+func (c GateCriterion) EffectiveBetter() Better {
+	if c.Better != "" {
+		return c.Better
 	}
 	if d, ok := knownMetrics[c.Metric]; ok {
 		return d
 	}
-	return HigherIsBetter
+	return HigherBetter
 }

@@ -31,19 +31,19 @@ func TestCELMetricListMatchesTable(t *testing.T) {
 	}
 }
 
-func TestEffectiveDirection(t *testing.T) {
+func TestEffectiveBetter(t *testing.T) {
 	cases := []struct {
 		c    GateCriterion
-		want MetricDirection
+		want Better
 	}{
-		{GateCriterion{Metric: "accuracy"}, HigherIsBetter},
-		{GateCriterion{Metric: "rmse"}, LowerIsBetter},
-		{GateCriterion{Metric: "log_loss"}, LowerIsBetter},
-		{GateCriterion{Metric: "revenue_loss", Direction: LowerIsBetter}, LowerIsBetter},
-		{GateCriterion{Metric: "rmse", Direction: HigherIsBetter}, HigherIsBetter},
+		{GateCriterion{Metric: "accuracy"}, HigherBetter},
+		{GateCriterion{Metric: "rmse"}, LowerBetter},
+		{GateCriterion{Metric: "log_loss"}, LowerBetter},
+		{GateCriterion{Metric: "revenue_loss", Better: LowerBetter}, LowerBetter},
+		{GateCriterion{Metric: "rmse", Better: HigherBetter}, HigherBetter},
 	}
 	for _, tc := range cases {
-		if got := tc.c.EffectiveDirection(); got != tc.want {
+		if got := tc.c.EffectiveBetter(); got != tc.want {
 			t.Errorf("%+v: got %s, want %s", tc.c, got, tc.want)
 		}
 	}

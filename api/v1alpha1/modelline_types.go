@@ -313,22 +313,23 @@ type GateSpec struct {
 	Approval ApprovalMode `json:"approval,omitempty"`
 }
 
-// MetricDirection says which way a metric improves.
-// +kubebuilder:validation:Enum=HigherIsBetter;LowerIsBetter
-type MetricDirection string
+// Better says which way a metric improves: Higher or Lower values are the
+// better ones.
+// +kubebuilder:validation:Enum=Higher;Lower
+type Better string
 
 const (
-	// HigherIsBetter metrics: accuracy, ROC AUC, R2, ...
-	HigherIsBetter MetricDirection = "HigherIsBetter"
-	// LowerIsBetter metrics: log loss, RMSE, ...
-	LowerIsBetter MetricDirection = "LowerIsBetter"
+	// HigherBetter metrics: accuracy, ROC AUC, R2, ...
+	HigherBetter Better = "Higher"
+	// LowerBetter metrics: log loss, RMSE, ...
+	LowerBetter Better = "Lower"
 )
 
 // GateCriterion is one thing a candidate must meet on the golden set.
 //
 // +kubebuilder:validation:XValidation:rule="has(self.minimum) || has(self.maximum) || has(self.maxRegression)",message="set at least one of minimum, maximum and maxRegression: a criterion with none judges nothing"
 // +kubebuilder:validation:XValidation:rule="!has(self.confidence) || (self.confidence > 0.5 && self.confidence < 1.0)",message="confidence must be strictly between 0.5 and 1, for example 0.95"
-// +kubebuilder:validation:XValidation:rule="has(self.direction) || self.metric in ['accuracy','balanced_accuracy','precision','recall','f1','f1_macro','f1_micro','f1_weighted','mcc','roc_auc','average_precision','log_loss','brier','mae','rmse','mape','r2']",message="metric is not one that plumbline evaluate reports: set direction (HigherIsBetter or LowerIsBetter) so the gate knows which way is better"
+// +kubebuilder:validation:XValidation:rule="has(self.better) || self.metric in ['accuracy','balanced_accuracy','precision','recall','f1','f1_macro','f1_micro','f1_weighted','mcc','roc_auc','average_precision','log_loss','brier','mae','rmse','mape','r2']",message="metric is not one that plumbline evaluate reports: set better (Higher or Lower) so the gate knows which way is better"
 type GateCriterion struct {
 	// metric is the name of a metric in the gate report, for example accuracy,
 	// roc_auc or rmse.
@@ -344,10 +345,11 @@ type GateCriterion struct {
 	// +kubebuilder:validation:MaxLength=253
 	Segment string `json:"segment,omitempty"`
 
-	// direction says which way the metric improves. Optional for the metrics
-	// plumbline evaluate reports, whose direction is known.
+	// better says which way the metric improves: Higher (accuracy, ROC AUC)
+	// or Lower (log loss, RMSE). Optional for the metrics plumbline evaluate
+	// reports, whose way is known.
 	// +optional
-	Direction MetricDirection `json:"direction,omitempty"`
+	Better Better `json:"better,omitempty"`
 
 	// minimum the candidate's value must reach (for metrics where higher is
 	// better).

@@ -230,9 +230,9 @@ func summarise(rep *checkreport.Report) string {
 		}
 	}
 	if rep.Drift.Detected {
-		fmt.Fprintf(&b, "; drift detected (weighted share %s of features, threshold %s): %s", promq.Format(rep.Drift.Share), promq.Format(rep.Drift.Threshold), strings.Join(drifted, ", "))
+		fmt.Fprintf(&b, "; drift detected (the drifted features carry %s of the weight, limit %s): %s", promq.Format(rep.Drift.DriftedWeight), promq.Format(rep.Drift.Limit), strings.Join(drifted, ", "))
 	} else {
-		fmt.Fprintf(&b, "; no drift (weighted share %s, threshold %s)", promq.Format(rep.Drift.Share), promq.Format(rep.Drift.Threshold))
+		fmt.Fprintf(&b, "; no drift to act on (the drifted features carry %s of the weight, limit %s)", promq.Format(rep.Drift.DriftedWeight), promq.Format(rep.Drift.Limit))
 		if len(drifted) > 0 {
 			b.WriteString(": only " + strings.Join(drifted, ", "))
 		}

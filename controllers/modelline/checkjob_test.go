@@ -62,7 +62,7 @@ func TestCheckAnswersDecide(t *testing.T) {
 	share, limit := 0.197, 0.05
 	rep := &checkreport.Report{Schema: checkreport.Schema, Rows: 20000, ReferenceRows: 20000,
 		DataQuality: checkreport.Quality{OK: false, Findings: []checkreport.Finding{{Check: "missing", Column: "postcode", Count: 3949, Share: &share, Limit: &limit, Example: "current.csv:2"}}},
-		Drift:       checkreport.Drift{Threshold: 0.25}}
+		Drift:       checkreport.Drift{Limit: 0.25}}
 	rows := rep.Rows
 	st := &v1alpha1.CheckRunStatus{Number: 2, Job: "late-risk-check-2", DataQuality: v1alpha1.CheckFailed, Drift: v1alpha1.CheckNotDetected, Rows: &rows, Message: summarise(rep)}
 	jc := answers(st)
@@ -71,7 +71,7 @@ func TestCheckAnswersDecide(t *testing.T) {
 		t.Errorf("broken data: %s %q", v.Outcome, v.Message)
 	}
 	st.DataQuality = v1alpha1.CheckOK
-	st.Message = "20000 rows against 20000 in the reference; data quality ok; no drift (weighted share 0, threshold 0.25)"
+	st.Message = "20000 rows against 20000 in the reference; data quality ok; no drift to act on (the drifted features carry 0 of the weight, limit 0.25)"
 	jc = answers(st)
 	v = policy.DecideStart(pathTrigger, checkResults{DataQuality: []check{jc.dataQuality}, Drift: []check{jc.drift}})
 	if v.Outcome != outcomeNoDrift || !strings.Contains(v.Message, "check Job late-risk-check-2: 20000 rows") {
@@ -99,9 +99,9 @@ func TestCheckAnswersDecide(t *testing.T) {
 func TestSummarise(t *testing.T) {
 	psi := 2.8
 	rep := &checkreport.Report{Rows: 100, ReferenceRows: 120, DataQuality: checkreport.Quality{OK: true},
-		Drift: checkreport.Drift{Detected: true, Share: 0.4, Threshold: 0.25, Features: []checkreport.Feature{{Feature: "depot", PSI: &psi, Drifted: true}, {Feature: "weight_kg"}}}}
+		Drift: checkreport.Drift{Detected: true, DriftedWeight: 0.4, Limit: 0.25, Features: []checkreport.Feature{{Feature: "depot", PSI: &psi, Drifted: true}, {Feature: "weight_kg"}}}}
 	got := summarise(rep)
-	want := "100 rows against 120 in the reference; data quality ok; drift detected (weighted share 0.4 of features, threshold 0.25): depot"
+	want := "100 rows against 120 in the reference; data quality ok; drift detected (the drifted features carry 0.4 of the weight, limit 0.25): depot"
 	if got != want {
 		t.Errorf("summary %q\nwant    %q", got, want)
 	}

@@ -164,18 +164,18 @@ func altReasonText(reason string) string {
 }
 
 // bestAlternative is the passing alternative with the best score on the
-// first criterion's metric (in its direction), the first listed on a tie.
+// first criterion's metric (higher or lower, as is better for it), the first listed on a tie.
 func bestAlternative(line *v1alpha1.ModelLine, cs []v1alpha1.AlternativeResult) *v1alpha1.AlternativeResult {
-	dir := v1alpha1.HigherIsBetter
+	dir := v1alpha1.HigherBetter
 	if len(line.Spec.Gate.Criteria) > 0 {
-		dir = line.Spec.Gate.Criteria[0].EffectiveDirection()
+		dir = line.Spec.Gate.Criteria[0].EffectiveBetter()
 	}
 	score := func(c v1alpha1.AlternativeResult) float64 {
 		v, err := strconv.ParseFloat(c.Score, 64)
 		if err != nil || math.IsNaN(v) {
 			return math.Inf(-1)
 		}
-		if dir == v1alpha1.LowerIsBetter {
+		if dir == v1alpha1.LowerBetter {
 			return -v
 		}
 		return v

@@ -142,8 +142,8 @@ func malformedCases() []malformed {
 			[]string{"spec.gate.criteria[1]", "confidence must be strictly between 0.5 and 1"}},
 		{"confidence of 0.5", lineSample, set("spec.gate.criteria[1].confidence", 0.5),
 			[]string{"spec.gate.criteria[1]", "confidence must be strictly between 0.5 and 1"}},
-		{"unknown metric without direction", lineSample, set("spec.gate.criteria[0].metric", "on_time_share"),
-			[]string{"spec.gate.criteria[0]", "set direction"}},
+		{"unknown metric without better", lineSample, set("spec.gate.criteria[0].metric", "on_time_share"),
+			[]string{"spec.gate.criteria[0]", "set better (Higher or Lower)"}},
 		{"negative maxRegression", lineSample, set("spec.gate.criteria[1].maxRegression", -0.01),
 			[]string{"spec.gate.criteria[1].maxRegression", "greater than or equal to 0"}},
 		{"no gate criteria", lineSample, set("spec.gate.criteria", []any{}),
@@ -182,8 +182,8 @@ func malformedCases() []malformed {
 			[]string{"spec", "artifactURI is required for an Imported version"}},
 		{"decision other than Approved or Rejected", importedSample, set("spec.decision", "Maybe"),
 			[]string{"spec.decision", "Unsupported value", "Approved", "Rejected"}},
-		{"version reason unknown", importedSample, set("spec.reason", "Because"),
-			[]string{"spec.reason", "should match"}},
+		{"version cause unknown", importedSample, set("spec.cause", "Because"),
+			[]string{"spec.cause", "should match"}},
 		{"version without line", importedSample, set("spec.line", nil),
 			[]string{"spec.line", "Required value"}},
 	}
@@ -336,9 +336,9 @@ spec:
 	}
 }
 
-// Every metric plumbline evaluate reports is accepted without a direction;
+// Every metric plumbline evaluate reports is accepted without better;
 // the CEL rule and the Go table are the same list.
-func TestKnownMetricsNeedNoDirection(t *testing.T) {
+func TestKnownMetricsNeedNoBetter(t *testing.T) {
 	for _, m := range v1alpha1.KnownMetrics() {
 		o := sample(t, lineSample)
 		o.SetName("metric-" + strings.ReplaceAll(m, "_", "-"))
@@ -350,9 +350,9 @@ func TestKnownMetricsNeedNoDirection(t *testing.T) {
 	}
 	o := sample(t, lineSample)
 	o.SetName("own-metric")
-	mustSet(t, o, "spec.gate.criteria", []any{map[string]any{"metric": "on_time_share", "direction": "HigherIsBetter", "minimum": 0.9}})
+	mustSet(t, o, "spec.gate.criteria", []any{map[string]any{"metric": "on_time_share", "better": "Higher", "minimum": 0.9}})
 	if err := k8s.Create(context.Background(), o, client.DryRunAll); err != nil {
-		t.Errorf("own metric with a direction refused: %v", err)
+		t.Errorf("own metric with better set refused: %v", err)
 	}
 }
 

@@ -45,13 +45,14 @@ type Finding struct {
 	Example string   `json:"example,omitempty"`
 }
 
-// Drift is the drift answer: the weighted share of drifted features against
-// the threshold, and the features that drifted.
+// Drift is the drift answer: how much of the features' weight the drifted
+// features carry, against the limit at which the dataset counts as
+// drifted, and the features that drifted.
 type Drift struct {
-	Detected  bool      `json:"detected"`
-	Share     float64   `json:"share"`
-	Threshold float64   `json:"threshold"`
-	Features  []Feature `json:"features,omitempty"`
+	Detected      bool      `json:"detected"`
+	DriftedWeight float64   `json:"driftedWeight"`
+	Limit         float64   `json:"limit"`
+	Features      []Feature `json:"features,omitempty"`
 }
 
 // Feature is one feature's drift figures.
@@ -100,10 +101,10 @@ func Parse(raw []byte) (*Report, error) {
 		return nil, refuse(ReasonMalformed, "negative row counts")
 	case !r.DataQuality.OK && len(r.DataQuality.Findings) == 0 && !r.Truncated:
 		return nil, refuse(ReasonMalformed, "dataQuality is not ok but lists no finding")
-	case r.Drift.Share < 0 || r.Drift.Share > 1:
-		return nil, refuse(ReasonMalformed, "drift.share %v is not a share", r.Drift.Share)
-	case r.Drift.Threshold < 0 || r.Drift.Threshold > 1:
-		return nil, refuse(ReasonMalformed, "drift.threshold %v is not a share", r.Drift.Threshold)
+	case r.Drift.DriftedWeight < 0 || r.Drift.DriftedWeight > 1:
+		return nil, refuse(ReasonMalformed, "drift.driftedWeight %v is not a part of the whole (0 to 1)", r.Drift.DriftedWeight)
+	case r.Drift.Limit < 0 || r.Drift.Limit > 1:
+		return nil, refuse(ReasonMalformed, "drift.limit %v is not a part of the whole (0 to 1)", r.Drift.Limit)
 	}
 	isShare := func(p *float64) bool { return p == nil || *p >= 0 && *p <= 1 }
 	for i, f := range r.DataQuality.Findings {

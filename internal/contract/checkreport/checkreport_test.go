@@ -11,7 +11,7 @@ func TestEncodeParseRoundTrip(t *testing.T) {
 	share, limit, psi, p := 0.12, 0.05, 0.31, 1e-6
 	r := &Report{Schema: Schema, Rows: 48210, ReferenceRows: 51877,
 		DataQuality: Quality{OK: false, Findings: []Finding{{Check: "missing", Column: "postcode", Count: 5785, Share: &share, Limit: &limit, Example: "current.csv:17"}}},
-		Drift:       Drift{Detected: true, Share: 0.4, Threshold: 0.25, Features: []Feature{{Feature: "depot", PSI: &psi, PAdjusted: &p, Drifted: true}}}}
+		Drift:       Drift{Detected: true, DriftedWeight: 0.4, Limit: 0.25, Features: []Feature{{Feature: "depot", PSI: &psi, PAdjusted: &p, Drifted: true}}}}
 	b, err := Encode(r)
 	if err != nil {
 		t.Fatal(err)
@@ -28,7 +28,7 @@ func TestEncodeParseRoundTrip(t *testing.T) {
 // A report with more findings than fit keeps its answers and says it was
 // truncated.
 func TestEncodeFits(t *testing.T) {
-	r := &Report{Schema: Schema, Rows: 10, DataQuality: Quality{OK: false}, Drift: Drift{Detected: true, Share: 1, Threshold: 0.25}}
+	r := &Report{Schema: Schema, Rows: 10, DataQuality: Quality{OK: false}, Drift: Drift{Detected: true, DriftedWeight: 1, Limit: 0.25}}
 	for i := 0; i < 200; i++ {
 		r.DataQuality.Findings = append(r.DataQuality.Findings, Finding{Check: "out_of_range", Column: fmt.Sprintf("feature_%03d", i), Count: 3, Example: "current.csv:12345"})
 		r.Drift.Features = append(r.Drift.Features, Feature{Feature: fmt.Sprintf("feature_%03d", i), Drifted: true})
@@ -65,7 +65,7 @@ func TestParseRefuses(t *testing.T) {
 		{"other schema", `{"schema":"plumbline.dev/check-report/v2","dataQuality":{"ok":true},"drift":{}}`, ReasonUnknownSchema, "is not"},
 		{"negative rows", `{"schema":"plumbline.dev/check-report/v1","rows":-1,"dataQuality":{"ok":true},"drift":{}}`, ReasonMalformed, "negative"},
 		{"not ok without findings", `{"schema":"plumbline.dev/check-report/v1","rows":1,"dataQuality":{"ok":false},"drift":{}}`, ReasonMalformed, "lists no finding"},
-		{"share out of range", `{"schema":"plumbline.dev/check-report/v1","rows":1,"dataQuality":{"ok":true},"drift":{"share":1.5}}`, ReasonMalformed, "not a share"},
+		{"share out of range", `{"schema":"plumbline.dev/check-report/v1","rows":1,"dataQuality":{"ok":true},"drift":{"driftedWeight":1.5}}`, ReasonMalformed, "not a part of the whole"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

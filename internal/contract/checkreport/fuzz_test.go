@@ -12,9 +12,9 @@ import (
 // shares and p-values between 0 and 1) and survives a round trip.
 func FuzzParse(f *testing.F) {
 	for _, s := range []string{
-		`{"schema":"plumbline.dev/check-report/v1","rows":4500,"referenceRows":9000,"dataQuality":{"ok":true},"drift":{"detected":true,"share":0.5,"threshold":0.2,"features":[{"feature":"depot","psi":0.61,"pAdjusted":0.0001,"drifted":true},{"feature":"weight_kg","drifted":false}]},"truncated":false}`,
-		`{"schema":"plumbline.dev/check-report/v1","rows":100,"referenceRows":100,"dataQuality":{"ok":false,"findings":[{"check":"missing","column":"address","count":31,"share":0.31,"limit":0.05,"example":"row 7"}]},"drift":{"detected":false,"share":0,"threshold":0.2}}`,
-		``, `{}`, `{"schema":"plumbline.dev/check-report/v1","rows":-1}`, `{"schema":"plumbline.dev/check-report/v1","drift":{"share":2}}`,
+		`{"schema":"plumbline.dev/check-report/v1","rows":4500,"referenceRows":9000,"dataQuality":{"ok":true},"drift":{"detected":true,"driftedWeight":0.5,"limit":0.2,"features":[{"feature":"depot","psi":0.61,"pAdjusted":0.0001,"drifted":true},{"feature":"weight_kg","drifted":false}]},"truncated":false}`,
+		`{"schema":"plumbline.dev/check-report/v1","rows":100,"referenceRows":100,"dataQuality":{"ok":false,"findings":[{"check":"missing","column":"address","count":31,"share":0.31,"limit":0.05,"example":"row 7"}]},"drift":{"detected":false,"driftedWeight":0,"limit":0.2}}`,
+		``, `{}`, `{"schema":"plumbline.dev/check-report/v1","rows":-1}`, `{"schema":"plumbline.dev/check-report/v1","drift":{"driftedWeight":2}}`,
 	} {
 		f.Add([]byte(s))
 	}
@@ -29,8 +29,8 @@ func FuzzParse(f *testing.F) {
 			}
 			return
 		}
-		if r.Rows < 0 || r.ReferenceRows < 0 || r.Drift.Share < 0 || r.Drift.Share > 1 || r.Drift.Threshold < 0 || r.Drift.Threshold > 1 {
-			t.Fatalf("accepted rows %d/%d, drift share %v threshold %v", r.Rows, r.ReferenceRows, r.Drift.Share, r.Drift.Threshold)
+		if r.Rows < 0 || r.ReferenceRows < 0 || r.Drift.DriftedWeight < 0 || r.Drift.DriftedWeight > 1 || r.Drift.Limit < 0 || r.Drift.Limit > 1 {
+			t.Fatalf("accepted rows %d/%d, drifted weight %v limit %v", r.Rows, r.ReferenceRows, r.Drift.DriftedWeight, r.Drift.Limit)
 		}
 		for _, fd := range r.DataQuality.Findings {
 			if fd.Count < 0 || !share(fd.Share) || !share(fd.Limit) || fd.Check == "" {

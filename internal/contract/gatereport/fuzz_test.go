@@ -29,7 +29,7 @@ func FuzzParse(f *testing.F) {
 	criteria := []v1alpha1.GateCriterion{
 		{Metric: "accuracy", Minimum: ptr.To(0.8), MaxRegression: ptr.To(0.01)},
 		{Metric: "roc_auc", Segment: "*", MaxRegression: ptr.To(0.02), Confidence: ptr.To(0.9)},
-		{Metric: "rmse", Direction: v1alpha1.LowerIsBetter, Maximum: ptr.To(2.0), MaxRegression: ptr.To(0.1)},
+		{Metric: "rmse", Better: v1alpha1.LowerBetter, Maximum: ptr.To(2.0), MaxRegression: ptr.To(0.1)},
 	}
 	f.Fuzz(func(t *testing.T, raw []byte) {
 		r, err := gatereport.Parse(raw)

@@ -186,7 +186,7 @@ func nonInferior(c v1alpha1.GateCriterion, m *gatereport.Metric) (bool, string) 
 		return false, fmt.Sprintf("the report's interval for %s is at %s confidence; the criterion asks for %s", c.Metric, pct(*m.Confidence), pct(want))
 	}
 	maxReg := *c.MaxRegression
-	if c.EffectiveDirection() == v1alpha1.LowerIsBetter {
+	if c.EffectiveBetter() == v1alpha1.LowerBetter {
 		if m.DeltaHigh == nil {
 			return false, fmt.Sprintf("the report gives no deltaHigh for %s%s", c.Metric, rowsNote(m))
 		}

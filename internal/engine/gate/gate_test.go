@@ -58,11 +58,11 @@ func TestDecide(t *testing.T) {
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 1, []string{"lower bound of the change in roc_auc -0.003 < -0.002 (maxRegression, 95%)"}},
 		{"no worse at all", []v1alpha1.GateCriterion{{Metric: "accuracy", MaxRegression: ptr.To(0.0), Confidence: ptr.To(0.9)}}, nil, false,
 			v1alpha1.GatePassed, ReasonCriteriaMet, 1, nil},
-		{"lower-is-better non-inferior", []v1alpha1.GateCriterion{{Metric: "log_loss", MaxRegression: ptr.To(0.005)}}, nil, false,
+		{"lower better, non-inferior", []v1alpha1.GateCriterion{{Metric: "log_loss", MaxRegression: ptr.To(0.005)}}, nil, false,
 			v1alpha1.GatePassed, ReasonCriteriaMet, 1, nil},
-		{"lower-is-better inferior", []v1alpha1.GateCriterion{{Metric: "log_loss", MaxRegression: ptr.To(0.003)}}, nil, false,
+		{"lower better, inferior", []v1alpha1.GateCriterion{{Metric: "log_loss", MaxRegression: ptr.To(0.003)}}, nil, false,
 			v1alpha1.GateFailed, ReasonCriteriaNotMet, 1, []string{"upper bound of the change in log_loss 0.004 > 0.003"}},
-		{"own metric with direction", []v1alpha1.GateCriterion{{Metric: "late_minutes", Direction: v1alpha1.LowerIsBetter, MaxRegression: ptr.To(1.0)}},
+		{"own metric, lower better", []v1alpha1.GateCriterion{{Metric: "late_minutes", Better: v1alpha1.LowerBetter, MaxRegression: ptr.To(1.0)}},
 			func(r *gatereport.Report) {
 				r.Metrics = append(r.Metrics, metric("late_minutes", "", 12, -0.5, 1.5, 0.95))
 			}, false,

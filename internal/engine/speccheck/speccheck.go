@@ -1,6 +1,6 @@
 // Package speccheck judges the parts of a ModelLine spec that the API server's
 // CEL rules cannot: cron syntax, IANA time zones, PromQL syntax, the artifact
-// URI template, Job template settings and metric directions. Each problem
+// URI template, Job template settings and which way a metric is better. Each problem
 // names the field and what to do about it.
 package speccheck
 
@@ -200,13 +200,13 @@ func jobTemplate(field string, jt *batchv1.JobTemplateSpec) []Problem {
 	return ps
 }
 
-// criterion checks that the bound a criterion sets suits the metric's
-// direction: a minimum for metrics where higher is better, a maximum for
-// those where lower is better.
+// criterion checks that the bound a criterion sets suits which way is
+// better for the metric: a minimum where higher is better, a maximum where
+// lower is better.
 func criterion(field string, c v1alpha1.GateCriterion) []Problem {
 	var ps []Problem
-	switch c.EffectiveDirection() {
-	case v1alpha1.LowerIsBetter:
+	switch c.EffectiveBetter() {
+	case v1alpha1.LowerBetter:
 		if c.Minimum != nil {
 			ps = append(ps, Problem{field + ".minimum", fmt.Sprintf("%s is better when lower, so a minimum does not guard it: use maximum", c.Metric)})
 		}

@@ -90,10 +90,10 @@ func TestLineProblems(t *testing.T) {
 		}, "spec.training.jobTemplate.spec.template.spec.restartPolicy", "use Never or OnFailure"},
 		{"gate without containers", func(s *v1alpha1.ModelLineSpec) { s.Gate.JobTemplate = job() }, "spec.gate.jobTemplate.spec.template.spec.containers", "at least one container"},
 		{"check job duplicate container", func(s *v1alpha1.ModelLineSpec) { s.Checks.JobTemplate = ptr.To(job("a", "a")) }, "spec.checks.jobTemplate.spec.template.spec.containers[1].name", "used twice"},
-		{"minimum on lower-is-better", func(s *v1alpha1.ModelLineSpec) { s.Gate.Criteria[1].Minimum = ptr.To(0.1) }, "spec.gate.criteria[1].minimum", "use maximum"},
+		{"minimum where lower is better", func(s *v1alpha1.ModelLineSpec) { s.Gate.Criteria[1].Minimum = ptr.To(0.1) }, "spec.gate.criteria[1].minimum", "use maximum"},
 		{"maximum on higher-is-better", func(s *v1alpha1.ModelLineSpec) { s.Gate.Criteria[0].Maximum = ptr.To(0.99) }, "spec.gate.criteria[0].maximum", "use minimum"},
 		{"maximum on own metric said higher", func(s *v1alpha1.ModelLineSpec) {
-			s.Gate.Criteria = append(s.Gate.Criteria, v1alpha1.GateCriterion{Metric: "on_time_share", Direction: v1alpha1.HigherIsBetter, Maximum: ptr.To(1.0)})
+			s.Gate.Criteria = append(s.Gate.Criteria, v1alpha1.GateCriterion{Metric: "on_time_share", Better: v1alpha1.HigherBetter, Maximum: ptr.To(1.0)})
 		}, "spec.gate.criteria[3].maximum", "use minimum"},
 	}
 	for _, tc := range cases {

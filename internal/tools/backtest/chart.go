@@ -175,7 +175,7 @@ func ChartStaleness(path string, h *History, s *Staleness) error {
 		p.Legend.Add(fmt.Sprintf("%s fit (R² %.3f)", f.Model, f.R2), l)
 	}
 	bound := s.Target + s.Margin
-	if s.LowerIsBetter {
+	if s.Better == "lower" {
 		bound = s.Target - s.Margin
 	}
 	b, err := plotter.NewLine(plotter.XYs{{X: 0, Y: bound}, {X: maxAge, Y: bound}})

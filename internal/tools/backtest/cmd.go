@@ -86,7 +86,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		schedules, triggers, cusums                           list
 		target, afterRetrain                                  float64
 		costRetrain, costHour                                 float64
-		lowerIsBetter                                         bool
+		lowerIsBetter                                         better
 		o                                                     = DefaultOptions()
 		afterRetrainSet, targetSet, chartPolicySet            bool
 	)
@@ -98,7 +98,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	fs.Var(&triggers, "trigger", "a trigger to compare, such as below=0.80,for=6h,every=5m (repeatable)")
 	fs.Var(&cusums, "cusum", "a CUSUM detector to compare, such as k=0.005,h=0.05 (repeatable; target defaults to the after-retrain level)")
 	fs.Float64Var(&target, "target", 0, "the quality to keep (default: the threshold of the line's first trigger)")
-	fs.BoolVar(&lowerIsBetter, "lower-is-better", false, "the metric is an error: above target is bad")
+	fs.Var(&lowerIsBetter, "better", "which way is better for the metric: higher (a score; the default) or lower (an error: above target is bad)")
 	fs.DurationVar(&o.RetrainTakes, "retrain-takes", o.RetrainTakes, "from a retrain's start to its version serving")
 	fs.Float64Var(&afterRetrain, "after-retrain", 0, "quality a retrained model starts at (default: the level the history held after its own retrains, or in its first day)")
 	fs.Float64Var(&o.Coverage, "coverage", o.Coverage, "share of a trigger window's points that must be there (the manager's --trigger-coverage)")
@@ -162,7 +162,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 			if t.Below != nil {
 				target = *t.Below
 			} else {
-				target, lowerIsBetter = *t.Above, true
+				target, lowerIsBetter = *t.Above, better(true)
 			}
 			targetSet = true
 			fmt.Fprintf(stdout, "target %g from the line's trigger %s\n", target, t.Name)
@@ -205,7 +205,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	if math.IsNaN(target) || math.IsInf(target, 0) {
 		return usage("--target %v: want a number", target)
 	}
-	o.Target, o.LowerIsBetter = target, lowerIsBetter
+	o.Target, o.LowerBetter = target, bool(lowerIsBetter)
 	o.CostRetrain, o.CostHourBelow = costRetrain, costHour
 	if afterRetrainSet {
 		o.AfterRetrain = &afterRetrain
@@ -246,14 +246,14 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 		hf                    historyFlags
 		trainedAt, out, chart string
 		target, margin        float64
-		lowerIsBetter         bool
+		lowerIsBetter         better
 		takes                 = 3 * time.Hour
 	)
 	hf.register(fs)
 	fs.StringVar(&trainedAt, "trained-at", "", "when the model was trained (RFC 3339); the history is its per-batch quality since (required)")
 	fs.Float64Var(&target, "target", math.NaN(), "the quality to keep (required)")
 	fs.Float64Var(&margin, "margin", 0.01, "how far on the good side of target to stay")
-	fs.BoolVar(&lowerIsBetter, "lower-is-better", false, "the metric is an error: above target is bad")
+	fs.Var(&lowerIsBetter, "better", "which way is better for the metric: higher (a score; the default) or lower (an error: above target is bad)")
 	fs.DurationVar(&takes, "retrain-takes", takes, "from a retrain's start to its version serving")
 	fs.StringVar(&out, "out", "", "write the JSON analysis here")
 	fs.StringVar(&chart, "chart", "", "draw the fits to this .svg or .png file")
@@ -287,7 +287,7 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 	if err != nil {
 		return err
 	}
-	s, err := Stale(h, at, target, margin, lowerIsBetter, takes)
+	s, err := Stale(h, at, target, margin, bool(lowerIsBetter), takes)
 	if err != nil {
 		return err
 	}
@@ -306,4 +306,34 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 		fmt.Fprintf(stdout, "chart: %s\n", chart)
 	}
 	return nil
+}
+
+// better is the --better flag: true when lower values are the better ones.
+type better bool
+
+func (b *better) String() string {
+	if *b {
+		return "lower"
+	}
+	return "higher"
+}
+
+func (b *better) Set(v string) error {
+	switch strings.ToLower(v) {
+	case "higher":
+		*b = false
+	case "lower":
+		*b = true
+	default:
+		return fmt.Errorf("%q: want higher or lower", v)
+	}
+	return nil
+}
+
+// betterWord says which way is better, for the reports.
+func betterWord(lower bool) string {
+	if lower {
+		return "lower"
+	}
+	return "higher"
 }

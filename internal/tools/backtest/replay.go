@@ -40,10 +40,10 @@ type CUSUMRule struct {
 
 // Options are the model of the world the replay assumes.
 type Options struct {
-	// Target is the quality the model should keep; LowerIsBetter says the
+	// Target is the quality the model should keep; LowerBetter says the
 	// metric is an error (below target is then good).
-	Target        float64
-	LowerIsBetter bool
+	Target      float64
+	LowerBetter bool
 	// RetrainTakes is how long from a retrain's start to its new version
 	// serving (training, the gate, the rollout).
 	RetrainTakes time.Duration
@@ -132,7 +132,7 @@ func HeldLevel(h *History) (float64, string) {
 }
 
 func (o Options) bad(v float64) bool {
-	if o.LowerIsBetter {
+	if o.LowerBetter {
 		return v > o.Target
 	}
 	return v < o.Target
@@ -286,7 +286,7 @@ func (r *replayer) run() error {
 				continue
 			}
 			up, down := cusum.Add(r.sim[nextPoint].V)
-			if r.o.LowerIsBetter && up || !r.o.LowerIsBetter && down {
+			if r.o.LowerBetter && up || !r.o.LowerBetter && down {
 				st, _ := policy.StepTriggers([]policy.Firing{{Name: "CUSUM"}}, r.inFlight != nil, r.last, cooldown, r.liveSince, now)
 				if r.startIfMay(now, st, "CUSUM") {
 					cusum.Reset()

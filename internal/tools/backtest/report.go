@@ -35,8 +35,9 @@ type HistoryInfo struct {
 
 // ModelInfo is the stated model of the world the replay assumed.
 type ModelInfo struct {
-	Target              float64  `json:"target"`
-	LowerIsBetter       bool     `json:"lowerIsBetter"`
+	Target float64 `json:"target"`
+	// Better says which way is better for the metric: higher or lower.
+	Better              string   `json:"better"`
 	RetrainTakesSeconds float64  `json:"retrainTakesSeconds"`
 	AfterRetrain        float64  `json:"afterRetrain"`
 	AfterRetrainFrom    string   `json:"afterRetrainFrom"`
@@ -62,7 +63,7 @@ func Backtest(h *History, policies []Policy, o Options) (*Report, error) {
 	}
 	r := &Report{Schema: ReportSchema,
 		History: HistoryInfo{Source: h.Source, Points: len(h.Points), From: h.Points[0].T, To: h.Points[len(h.Points)-1].T, StepSeconds: h.Step().Seconds()},
-		Model: ModelInfo{Target: o.Target, LowerIsBetter: o.LowerIsBetter, RetrainTakesSeconds: o.RetrainTakes.Seconds(), AfterRetrain: level, AfterRetrainFrom: why,
+		Model: ModelInfo{Target: o.Target, Better: betterWord(o.LowerBetter), RetrainTakesSeconds: o.RetrainTakes.Seconds(), AfterRetrain: level, AfterRetrainFrom: why,
 			Coverage: o.Coverage, MinEpisodeSeconds: o.MinEpisode.Seconds(), MaxPerMonth: o.MaxPerMonth}}
 	if o.CostRetrain != 0 || o.CostHourBelow != 0 {
 		r.Model.CostRetrain, r.Model.CostHourBelow = &o.CostRetrain, &o.CostHourBelow
@@ -197,7 +198,7 @@ func dur(seconds float64) string {
 // WriteTable prints the report as a person reads it.
 func WriteTable(w io.Writer, r *Report) error {
 	dir := "below"
-	if r.Model.LowerIsBetter {
+	if r.Model.Better == "lower" {
 		dir = "above"
 	}
 	fmt.Fprintf(w, "history %s: %d points from %s to %s; target %g (quality %s it is bad)\n\n", r.History.Source, r.History.Points,

@@ -41,16 +41,17 @@ type Suggestion struct {
 
 // Staleness is how a model's quality decays with its age.
 type Staleness struct {
-	TrainedAt     time.Time  `json:"trainedAt"`
-	Points        int        `json:"points"`
-	Linear        Fit        `json:"linear"`
-	Exponential   Fit        `json:"exponential"`
-	Best          string     `json:"best"`
-	Target        float64    `json:"target"`
-	Margin        float64    `json:"margin"`
-	LowerIsBetter bool       `json:"lowerIsBetter"`
-	ReachDays     *float64   `json:"reachDays,omitempty"`
-	Suggestion    Suggestion `json:"suggestion"`
+	TrainedAt   time.Time `json:"trainedAt"`
+	Points      int       `json:"points"`
+	Linear      Fit       `json:"linear"`
+	Exponential Fit       `json:"exponential"`
+	Best        string    `json:"best"`
+	Target      float64   `json:"target"`
+	Margin      float64   `json:"margin"`
+	// Better says which way is better for the metric: higher or lower.
+	Better     string     `json:"better"`
+	ReachDays  *float64   `json:"reachDays,omitempty"`
+	Suggestion Suggestion `json:"suggestion"`
 }
 
 // ols fits y = a + b*x by least squares, with b's standard error.
@@ -131,7 +132,7 @@ func Stale(h *History, trainedAt time.Time, target, margin float64, lowerIsBette
 	if x[len(x)-1]-x[0] <= 0 {
 		return nil, inputErr("%s: every point is at the same age", h.Source)
 	}
-	s := &Staleness{TrainedAt: trainedAt, Points: len(x), Target: target, Margin: margin, LowerIsBetter: lowerIsBetter}
+	s := &Staleness{TrainedAt: trainedAt, Points: len(x), Target: target, Margin: margin, Better: betterWord(lowerIsBetter)}
 	a, b, se := ols(x, y)
 	s.Linear = Fit{Model: "linear", A: a, B: b, SlopeSE: se}
 	goodness(&s.Linear, x, y)

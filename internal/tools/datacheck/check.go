@@ -70,10 +70,10 @@ type Options struct {
 	// PSIThreshold is the effect a feature's drift must reach as well:
 	// with many rows a test finds differences too small to matter.
 	PSIThreshold float64
-	// DriftShare is the weighted share of drifted features at which the
-	// dataset has drifted.
-	DriftShare float64
-	// Weights weigh features in that share (default 1 each).
+	// DriftedWeightLimit is the part of the features' weight the drifted
+	// features must carry for the dataset to have drifted.
+	DriftedWeightLimit float64
+	// Weights weigh the features (default 1 each).
 	Weights map[string]float64
 	// SampleSize bounds the values kept per numeric column and batch for
 	// KS, Wasserstein-1 and PSI.
@@ -87,7 +87,7 @@ type Options struct {
 
 // DefaultOptions are the settings of plumbline datacheck without flags.
 func DefaultOptions() Options {
-	return Options{Limits: DefaultLimits(), Alpha: 0.05, PSIThreshold: 0.1, DriftShare: 0.25,
+	return Options{Limits: DefaultLimits(), Alpha: 0.05, PSIThreshold: 0.1, DriftedWeightLimit: 0.25,
 		SampleSize: 100_000, Bins: 10, Seed: 1}
 }
 

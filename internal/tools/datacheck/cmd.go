@@ -35,8 +35,8 @@ func Command(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&termFile, "termination-file", termination.Default(), "write the compact check report here (default /dev/termination-log when it exists)")
 	fs.Float64Var(&o.Alpha, "alpha", o.Alpha, "level of the drift tests after the Benjamini-Hochberg correction")
 	fs.Float64Var(&o.PSIThreshold, "psi-threshold", o.PSIThreshold, "PSI a feature must reach as well to count as drifted (common practice: 0.1 a moderate shift, 0.25 a large one)")
-	fs.Float64Var(&o.DriftShare, "drift-share", o.DriftShare, "weighted share of drifted features at which the dataset has drifted")
-	fs.StringVar(&weights, "weights", "", "feature weights in the drift share, such as depot=3,distance_km=2 (default 1 each)")
+	fs.Float64Var(&o.DriftedWeightLimit, "drifted-weight-limit", o.DriftedWeightLimit, "the dataset has drifted when the drifted features carry at least this part of the features' weight (see --weights)")
+	fs.StringVar(&weights, "weights", "", "feature weights in the drifted weight, such as depot=3,distance_km=2 (default 1 each)")
 	fs.IntVar(&o.SampleSize, "sample-size", o.SampleSize, "values kept per numeric column and batch for KS, Wasserstein-1 and PSI")
 	fs.IntVar(&o.Bins, "bins", o.Bins, "reference-quantile bins of the numeric PSI")
 	fs.Uint64Var(&o.Seed, "seed", o.Seed, "seed of the sampling")
@@ -81,8 +81,8 @@ func Command(args []string, stdout, stderr io.Writer) error {
 		return usage("--alpha %v: want a level strictly between 0 and 1, such as 0.05", o.Alpha)
 	case !(o.PSIThreshold >= 0) || math.IsInf(o.PSIThreshold, 0):
 		return usage("--psi-threshold %v: want 0 or more, such as 0.1", o.PSIThreshold)
-	case !(o.DriftShare > 0 && o.DriftShare <= 1):
-		return usage("--drift-share %v: want a share above 0 and at most 1, such as 0.25", o.DriftShare)
+	case !(o.DriftedWeightLimit > 0 && o.DriftedWeightLimit <= 1):
+		return usage("--drifted-weight-limit %v: want a part of the whole above 0 and at most 1, such as 0.25", o.DriftedWeightLimit)
 	case o.SampleSize < 1000:
 		return usage("--sample-size %d: want at least 1000", o.SampleSize)
 	case o.Bins < 2 || o.Bins > 100:

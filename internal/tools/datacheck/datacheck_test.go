@@ -392,7 +392,7 @@ func TestWeights(t *testing.T) {
 	cur := write(t, dir, "cur.csv", rows(header, 4000, gen(5)))
 	for _, c := range []struct {
 		weights  string
-		share    float64
+		weight   float64
 		detected bool
 	}{{"", 0.25, true}, {"distance_km=3", 0.5, true}, {"distance_km=0", 0, false}, {"depot=3,postcode=2", 1.0 / 7, false}} {
 		o := opts(ref, cur)
@@ -405,8 +405,8 @@ func TestWeights(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		if math.Abs(rep.Drift.Share-c.share) > 1e-12 || rep.Drift.Detected != c.detected || strings.Join(rep.Drift.Drifted, ",") != "distance_km" {
-			t.Errorf("weights %q: share %v detected %v drifted %v; want %v, %v, [distance_km]", c.weights, rep.Drift.Share, rep.Drift.Detected, rep.Drift.Drifted, c.share, c.detected)
+		if math.Abs(rep.Drift.DriftedWeight-c.weight) > 1e-12 || rep.Drift.Detected != c.detected || strings.Join(rep.Drift.Drifted, ",") != "distance_km" {
+			t.Errorf("weights %q: drifted weight %v detected %v drifted %v; want %v, %v, [distance_km]", c.weights, rep.Drift.DriftedWeight, rep.Drift.Detected, rep.Drift.Drifted, c.weight, c.detected)
 		}
 	}
 	o := opts(ref, cur)
@@ -578,7 +578,7 @@ func TestCommand(t *testing.T) {
 			}
 		}
 	}
-	mustHave("table", stdout.String(), "data quality: ok", "drift: none: 0 of 4 features drifted", "kolmogorov-smirnov", "chi-square", "check report:")
+	mustHave("table", stdout.String(), "data quality: ok", "drift: not enough to act on: 0 of 4 features drifted", "kolmogorov-smirnov", "chi-square", "check report:")
 	full, _ := os.ReadFile(out)
 	var rep Report
 	if err := json.Unmarshal(full, &rep); err != nil || rep.Schema != ReportSchema || len(rep.Columns) != 4 {

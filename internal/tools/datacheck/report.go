@@ -45,15 +45,15 @@ type BatchInfo struct {
 
 // Settings are the thresholds and methods used.
 type Settings struct {
-	Limits       Limits  `json:"limits"`
-	Alpha        float64 `json:"alpha"`
-	Correction   string  `json:"correction"`
-	PSIThreshold float64 `json:"psiThreshold"`
-	PSIFloor     float64 `json:"psiFloor"`
-	Bins         int     `json:"bins"`
-	DriftShare   float64 `json:"driftShare"`
-	SampleSize   int     `json:"sampleSize"`
-	Seed         uint64  `json:"seed"`
+	Limits             Limits  `json:"limits"`
+	Alpha              float64 `json:"alpha"`
+	Correction         string  `json:"correction"`
+	PSIThreshold       float64 `json:"psiThreshold"`
+	PSIFloor           float64 `json:"psiFloor"`
+	Bins               int     `json:"bins"`
+	DriftedWeightLimit float64 `json:"driftedWeightLimit"`
+	SampleSize         int     `json:"sampleSize"`
+	Seed               uint64  `json:"seed"`
 }
 
 // Quality is the data-quality verdict.
@@ -97,12 +97,14 @@ const (
 
 // DriftVerdict is the dataset-level drift verdict.
 type DriftVerdict struct {
-	Detected  bool     `json:"detected"`
-	Share     float64  `json:"share"`
-	Threshold float64  `json:"threshold"`
-	Tested    int      `json:"tested"`
-	Drifted   []string `json:"drifted"`
-	Why       string   `json:"why,omitempty"`
+	Detected bool `json:"detected"`
+	// DriftedWeight is the part of the features' weight the drifted ones
+	// carry; the dataset has drifted when it reaches Limit.
+	DriftedWeight float64  `json:"driftedWeight"`
+	Limit         float64  `json:"limit"`
+	Tested        int      `json:"tested"`
+	Drifted       []string `json:"drifted"`
+	Why           string   `json:"why,omitempty"`
 }
 
 // Column is one column's figures.
@@ -192,7 +194,7 @@ func build(res *result) (*Report, error) {
 		Reference: BatchInfo{File: o.Reference, Rows: res.ref.rows, MalformedRows: res.ref.malformed},
 		Current:   BatchInfo{File: o.Current, Rows: res.cur.rows, MalformedRows: res.cur.malformed},
 		Settings: Settings{Limits: o.Limits, Alpha: o.Alpha, Correction: correctionBH, PSIThreshold: o.PSIThreshold,
-			PSIFloor: stats.PSIFloor, Bins: o.Bins, DriftShare: o.DriftShare, SampleSize: o.SampleSize, Seed: o.Seed},
+			PSIFloor: stats.PSIFloor, Bins: o.Bins, DriftedWeightLimit: o.DriftedWeightLimit, SampleSize: o.SampleSize, Seed: o.Seed},
 		Decided: res.schema, Inferred: res.inferred}
 	if res.inferred {
 		r.ColumnSchema = "inferred from the reference"
@@ -575,9 +577,9 @@ func clip(s string, n int) string {
 }
 
 // driftVerdict weighs the drifted features: the dataset has drifted when
-// their weighted share reaches the threshold.
+// they carry at least the limit of the features' weight.
 func driftVerdict(res *result, cols []Column) DriftVerdict {
-	v := DriftVerdict{Threshold: res.opts.DriftShare, Drifted: []string{}}
+	v := DriftVerdict{Limit: res.opts.DriftedWeightLimit, Drifted: []string{}}
 	var total, drifted float64
 	for _, c := range cols {
 		if c.Drift == nil || !c.Drift.Tested {
@@ -596,8 +598,8 @@ func driftVerdict(res *result, cols []Column) DriftVerdict {
 	case v.Tested == 0:
 		v.Why = "no feature could be tested"
 	case total > 0:
-		v.Share = drifted / total
-		v.Detected = v.Share >= v.Threshold
+		v.DriftedWeight = drifted / total
+		v.Detected = v.DriftedWeight >= v.Limit
 	}
 	return v
 }
@@ -610,7 +612,7 @@ func WriteJSON(w io.Writer, r *Report) error { return outfile.JSON(w, r) }
 func Compact(r *Report) ([]byte, *checkreport.Report, error) {
 	c := &checkreport.Report{Schema: checkreport.Schema, Rows: r.Current.Rows, ReferenceRows: r.Reference.Rows,
 		DataQuality: checkreport.Quality{OK: r.DataQuality.OK},
-		Drift:       checkreport.Drift{Detected: r.Drift.Detected, Share: r.Drift.Share, Threshold: r.Drift.Threshold}}
+		Drift:       checkreport.Drift{Detected: r.Drift.Detected, DriftedWeight: r.Drift.DriftedWeight, Limit: r.Drift.Limit}}
 	for _, f := range r.DataQuality.Findings {
 		c.DataQuality.Findings = append(c.DataQuality.Findings, checkreport.Finding{Check: f.Check, Column: f.Column, Count: f.Count,
 			Share: f.Share, Limit: f.Limit, Example: clip(f.Example, 120)})
@@ -677,11 +679,11 @@ func WriteTable(w io.Writer, r *Report) error {
 	case r.Drift.Why != "":
 		fmt.Fprintf(w, "drift: not judged: %s\n", r.Drift.Why)
 	default:
-		word := "none"
+		word := "not enough to act on"
 		if r.Drift.Detected {
-			word = "DETECTED"
+			word = "THE INPUTS MOVED"
 		}
-		fmt.Fprintf(w, "drift: %s: %d of %d features drifted, weighted share %.2f (threshold %.2f)\n", word, len(r.Drift.Drifted), r.Drift.Tested, r.Drift.Share, r.Drift.Threshold)
+		fmt.Fprintf(w, "drift: %s: %d of %d features drifted, carrying %.2f of the features' weight (limit %.2f)\n", word, len(r.Drift.Drifted), r.Drift.Tested, r.Drift.DriftedWeight, r.Drift.Limit)
 	}
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "  FEATURE\tTYPE\tWEIGHT\tMISSING REF\tMISSING CUR\tTEST\tSTATISTIC\tP ADJ.\tPSI\tW1 / JS\tDRIFTED")

@@ -395,8 +395,8 @@ func NonInferior(metric string, low, high, maxRegression float64) (bool, bool) {
 	if math.IsNaN(low) || math.IsNaN(high) {
 		return false, false
 	}
-	dir, _ := v1alpha1.KnownMetricDirection(metric)
-	if dir == v1alpha1.LowerIsBetter {
+	dir, _ := v1alpha1.KnownBetter(metric)
+	if dir == v1alpha1.LowerBetter {
 		return high <= maxRegression, true
 	}
 	return low >= -maxRegression, true

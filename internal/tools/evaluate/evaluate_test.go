@@ -145,8 +145,8 @@ func TestRegressionThroughTheTool(t *testing.T) {
 	near(t, "R2", metric(t, full, "", "r2").Candidate, 0.9486081370449679, 1e-12)
 	near(t, "RMSE", metric(t, full, "", "rmse").Candidate, 0.6123724356957945, 1e-12)
 	near(t, "MAE", metric(t, full, "", "mae").Candidate, 0.5, 1e-12)
-	if metric(t, full, "", "rmse").Direction != "LowerIsBetter" {
-		t.Error("rmse direction")
+	if metric(t, full, "", "rmse").Better != "Lower" {
+		t.Error("rmse: lower is better")
 	}
 	if len(gr.Metrics) != 3 || gr.Metrics[0].Metric != "mae" {
 		t.Errorf("gate report metrics %+v", gr.Metrics)

@@ -55,7 +55,7 @@ type GroupReport struct {
 type MetricReport struct {
 	Metric            string      `json:"metric"`
 	Segment           string      `json:"segment"`
-	Direction         string      `json:"direction"`
+	Better            string      `json:"better"`
 	Candidate         *float64    `json:"candidate"`
 	Baseline          *float64    `json:"baseline"`
 	Undefined         string      `json:"undefined,omitempty"`
@@ -176,8 +176,8 @@ func Build(input string, ds *Dataset, s Settings, groups []GroupResult, failed [
 }
 
 func metricReport(segment string, res Result, s Settings) MetricReport {
-	dir, _ := v1alpha1.KnownMetricDirection(res.Metric)
-	m := MetricReport{Metric: res.Metric, Segment: segment, Direction: string(dir), Candidate: num(res.Cand.V), Baseline: num(res.Base.V),
+	dir, _ := v1alpha1.KnownBetter(res.Metric)
+	m := MetricReport{Metric: res.Metric, Segment: segment, Better: string(dir), Candidate: num(res.Cand.V), Baseline: num(res.Base.V),
 		Undefined: res.Cand.Undefined, BaselineUndefined: res.Base.Undefined, Delta: num(res.Delta), DeltaLow: num(res.Low), DeltaHigh: num(res.High),
 		Confidence: s.Confidence, PValue: num(res.P), PValueAdjusted: num(res.PAdjusted), Test: res.Test, N: res.N,
 		CandidateInterval: res.CandCI, BaselineInterval: res.BaseCI}
