@@ -314,7 +314,7 @@ func TestObjectsGone(t *testing.T) {
 	w.mustPass()
 	w.finishJob("late-risk-v2-train", true, "")
 	w.mustPass()
-	w.finishJob("late-risk-v2-gate", true, passingGateReport(t))
+	w.finishJob("late-risk-v2-gate", true, passingGateReport())
 	w.mustPass() // records the promotion
 	if err := w.c.Delete(ctx, w.deployment()); err != nil {
 		t.Fatal(err)

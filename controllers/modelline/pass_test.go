@@ -345,7 +345,7 @@ func guardedWorld(t *testing.T, funcs interceptor.Funcs) *world {
 	return newWorld(t, funcs, line, v0, v1, rules, scorerDeployment("late-risk-v1", v1.Spec.ArtifactURI))
 }
 
-// refuseFirst returns interceptor funcs that answer the first status write
+// refuseFirstVersionStatus returns interceptor funcs that answer the first status write
 // of a ModelVersion with a conflict, and lets every other write through.
 func refuseFirstVersionStatus(refused *int) interceptor.Funcs {
 	return interceptor.Funcs{SubResourcePatch: func(ctx context.Context, c client.Client, sub string, obj client.Object, patch client.Patch, opts ...client.SubResourcePatchOption) error {
@@ -361,13 +361,8 @@ func conflict(obj client.Object) error {
 	return apierrors.NewConflict(schema.GroupResource{Group: v1alpha1.GroupVersion.Group, Resource: "modelversions"}, obj.GetName(), fmt.Errorf("the object has been modified"))
 }
 
-const time1h = time.Hour
-
-func clientMergeFrom(obj client.Object) client.Patch { return client.MergeFrom(obj) }
-
 // passingGateReport is a report that meets passLine's criterion (ROC AUC no
 // more than 0.01 worse than live, at 95%).
-func passingGateReport(t *testing.T) string {
-	t.Helper()
+func passingGateReport() string {
 	return `{"schema":"plumbline.dev/gate-report/v1","rows":4000,"metrics":[{"metric":"roc_auc","segment":"","candidate":0.81,"baseline":0.8,"delta":0.01,"deltaLow":0.002,"deltaHigh":0.018,"confidence":0.95,"pValue":0.02,"test":"delong","n":4000}],"mustPass":{"total":0,"failed":0},"truncated":false}`
 }

@@ -4,9 +4,11 @@ import (
 	"fmt"
 	"strings"
 	"testing"
+	"time"
 
 	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/client/interceptor"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
@@ -101,7 +103,7 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 	line := passLine()
 	line.Spec.Gate.Approval = v1alpha1.ApprovalManual
 	v0 := modelVersion("late-risk-v0", 0, v1alpha1.PhaseLive, v1alpha1.SourceImported)
-	v0.Status.PromotedTime = at(-time1h)
+	v0.Status.PromotedTime = at(-time.Hour)
 	v0.Status.Promotion = &v1alpha1.PromotionStatus{Sequence: 1}
 	w := newWorld(t, interceptor.Funcs{}, line, v0, scorerDeployment("late-risk-v0", v0.Spec.ArtifactURI))
 	conds := func() string {
@@ -124,7 +126,7 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 	w.finishJob("late-risk-v1-train", true, "")
 	w.mustPass()
 	expect("evaluating", "Trained=True/TrainingSucceeded Evaluated=Unknown/EvaluationStarted GatePassed=- Approved=- Live=-")
-	w.finishJob("late-risk-v1-gate", true, passingGateReport(t))
+	w.finishJob("late-risk-v1-gate", true, passingGateReport())
 	w.mustPass()
 	expect("waiting", "Trained=True/TrainingSucceeded Evaluated=True/CriteriaMet GatePassed=True/CriteriaMet Approved=Unknown/WaitingForDecision Live=-")
 	if c := meta.FindStatusCondition(w.version("late-risk-v1").Status.Conditions, v1alpha1.ConditionSettled); c == nil || c.Status != metav1.ConditionFalse || c.Reason != "AwaitingApproval" {
@@ -133,7 +135,7 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 	v1 := w.version("late-risk-v1")
 	orig := v1.DeepCopy()
 	v1.Spec.Decision, v1.Spec.DecisionNote = v1alpha1.DecisionApproved, "looked at the depots"
-	if err := w.c.Patch(t.Context(), v1, clientMergeFrom(orig)); err != nil {
+	if err := w.c.Patch(t.Context(), v1, client.MergeFrom(orig)); err != nil {
 		t.Fatal(err)
 	}
 	w.mustPass()

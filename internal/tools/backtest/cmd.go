@@ -311,12 +311,7 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 // better is the --better flag: true when lower values are the better ones.
 type better bool
 
-func (b *better) String() string {
-	if *b {
-		return "lower"
-	}
-	return "higher"
-}
+func (b *better) String() string { return betterWord(bool(*b)) }
 
 func (b *better) Set(v string) error {
 	switch strings.ToLower(v) {

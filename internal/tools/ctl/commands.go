@@ -267,10 +267,7 @@ func runRetrain(ctx context.Context, e *env, pos []string) error {
 	if err != nil {
 		return err
 	}
-	token := e.o.token
-	if token == "" {
-		token = "kubectl-" + e.o.now().UTC().Format("20060102-150405")
-	}
+	token := e.token()
 	if token == l.Status.LastRetrainRequest || token == l.Annotations[v1alpha1.RetrainRequestAnnotation] {
 		return fmt.Errorf("token %q was already used on %s: each token acts once; give another with --token", token, l.Name)
 	}
@@ -303,10 +300,7 @@ func runRollback(ctx context.Context, e *env, pos []string) error {
 	}
 	// The version and a token: each value acts once, so the same version can
 	// be asked for again.
-	token := e.o.token
-	if token == "" {
-		token = "kubectl-" + e.o.now().UTC().Format("20060102-150405")
-	}
+	token := e.token()
 	value := v.Name + "/" + token
 	if value == l.Status.LastRollbackRequest || value == l.Annotations[v1alpha1.RollbackRequestAnnotation] {
 		return fmt.Errorf("token %q was already used on %s: each token acts once; give another with --token", token, l.Name)
@@ -324,4 +318,12 @@ func awaiting(l *v1alpha1.ModelLine) string {
 		return ""
 	}
 	return l.Status.ActiveVersion
+}
+
+// token is a request's token: --token, else one from the time.
+func (e *env) token() string {
+	if e.o.token != "" {
+		return e.o.token
+	}
+	return "kubectl-" + e.o.now().UTC().Format("20060102-150405")
 }
