@@ -29,11 +29,16 @@ demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a sim
 	$(BIN)/plumbline demo --assets $(K8S_BIN) --crds config/crd/bases
 
 .PHONY: test
-test: controlplane simcluster prometheus ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster), then each fuzz target briefly.
+test: controlplane simcluster prometheus alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster), then each fuzz target briefly.
 	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 go test -count=1 $(GO_PACKAGES)
 	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
 
 ##@ Development
+
+.PHONY: alerts
+alerts: prometheus ## Check the example alerting rules (config/prometheus) and run their promtool unit tests.
+	promtool check rules config/prometheus/alerts.yaml
+	promtool test rules config/prometheus/alerts_test.yaml
 
 .PHONY: prometheus
 prometheus: ## Make prometheus and promtool available: on the PATH, else Debian's package (as root), else built into bin/prom.

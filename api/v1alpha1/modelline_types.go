@@ -616,8 +616,18 @@ type AlternativeResult struct {
 
 // ModelLine condition types.
 const (
-	// ConditionReady: the spec is valid and the serving Deployment is there.
+	// ConditionReady: a version serves, the controller runs the line
+	// unattended, and nothing waits for a person. False while the spec is
+	// invalid, something it names is missing, a permission is refused, a
+	// person must act (ActionRequired), the line is suspended, the live
+	// version is degraded, or nothing serves yet. A retrain under way does
+	// not make a line unready.
 	ConditionReady = "Ready"
+	// ConditionActionRequired: True exactly when a person must act: a setup
+	// problem, a candidate waiting for a decision, NeedsReview, Blocked, or
+	// a regression after probation. Its reason names the first; its message
+	// lists them all with what to do.
+	ConditionActionRequired = "ActionRequired"
 	// ConditionDegraded: production quality is below the guard's threshold.
 	ConditionDegraded = "Degraded"
 	// ConditionRetraining: a version is being trained or evaluated.
@@ -634,7 +644,13 @@ const (
 
 // ModelLine condition reasons.
 const (
-	ReasonSpecValid        = "SpecValid"
+	// ReasonServing: Ready, a version serves and nothing waits for a person.
+	ReasonServing = "Serving"
+	// ReasonNothingLive: not Ready, no version serves yet.
+	ReasonNothingLive = "NothingLive"
+	// ReasonNothingRequired: ActionRequired is False, nothing waits for a
+	// person.
+	ReasonNothingRequired  = "NothingRequired"
 	ReasonInvalidSpec      = "InvalidSpec"
 	ReasonServingNotFound  = "ServingNotFound"
 	ReasonFallbackNotFound = "FallbackNotFound"
@@ -727,8 +743,8 @@ type ModelLineStatus struct {
 	// +kubebuilder:validation:MaxItems=16
 	Triggers []TriggerStatus `json:"triggers,omitempty"`
 
-	// conditions: Ready, Degraded, Retraining, AwaitingApproval,
-	// FallbackActive, Blocked, NeedsReview.
+	// conditions: Ready, ActionRequired, Degraded, Retraining,
+	// AwaitingApproval, FallbackActive, Blocked, NeedsReview.
 	// +optional
 	// +listType=map
 	// +listMapKey=type
@@ -743,6 +759,7 @@ type ModelLineStatus struct {
 // +kubebuilder:resource:shortName=mline,categories=plumbline
 // +kubebuilder:printcolumn:name="Live",type=string,JSONPath=`.status.liveVersion`
 // +kubebuilder:printcolumn:name="Ready",type=string,JSONPath=`.status.conditions[?(@.type=="Ready")].status`
+// +kubebuilder:printcolumn:name="Action Required",type=string,JSONPath=`.status.conditions[?(@.type=="ActionRequired")].status`
 // +kubebuilder:printcolumn:name="Retraining",type=string,JSONPath=`.status.conditions[?(@.type=="Retraining")].status`
 // +kubebuilder:printcolumn:name="Awaiting Approval",type=string,JSONPath=`.status.conditions[?(@.type=="AwaitingApproval")].status`
 // +kubebuilder:printcolumn:name="Fallback",type=string,JSONPath=`.status.conditions[?(@.type=="FallbackActive")].status`

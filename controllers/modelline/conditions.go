@@ -3,6 +3,7 @@ package modelline
 import (
 	"fmt"
 	"slices"
+	"strings"
 	"time"
 
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
@@ -57,25 +58,108 @@ func permissionDenied(err error) metav1.Condition {
 		Message: text.Truncate(fmt.Sprintf("the API server refused the manager a request this line needs: %v; grant it to the manager's ServiceAccount (config/rbac holds the ClusterRole generated from the code's RBAC markers; kubectl auth can-i --as=system:serviceaccount:NAMESPACE:NAME checks it); the line tries again every %s", err, permissionRetry), 2000)}
 }
 
-// readyCondition is the line's Ready condition: spec problems first (a person
-// must edit the line), then a missing Deployment or fallback (something else
-// must appear), then a permission the API server refused the manager (err,
-// the pass's error, when it is one), then suspension.
-func readyCondition(suspended bool, obs lineObservation, err error) metav1.Condition {
-	c := metav1.Condition{Type: v1alpha1.ConditionReady}
+// setupProblem is what keeps the controller from acting on the line at all,
+// as the Ready condition it makes: spec problems first (a person must edit
+// the line), then a missing Deployment or fallback (something else must
+// appear), then a permission the API server refused the manager (err, the
+// pass's error, when it is one). Nil when there is none.
+func setupProblem(obs lineObservation, err error) *metav1.Condition {
+	c := &metav1.Condition{Type: v1alpha1.ConditionReady, Status: metav1.ConditionFalse}
 	switch {
 	case len(obs.problems) > 0:
-		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, speccheck.Join(obs.problems)
+		c.Reason, c.Message = v1alpha1.ReasonInvalidSpec, speccheck.Join(obs.problems)
 	case obs.servingMissing != "":
-		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, obs.servingMissing
+		c.Reason, c.Message = v1alpha1.ReasonServingNotFound, obs.servingMissing
 	case obs.fallbackMissing != "":
-		c.Status, c.Reason, c.Message = metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, obs.fallbackMissing
+		c.Reason, c.Message = v1alpha1.ReasonFallbackNotFound, obs.fallbackMissing
 	case apierrors.IsForbidden(err):
-		return permissionDenied(err)
-	case suspended:
-		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend is true: the controller reports status but does not act on this line"
+		d := permissionDenied(err)
+		return &d
 	default:
-		c.Status, c.Reason, c.Message = metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "the spec is valid and the serving Deployment is there"
+		return nil
+	}
+	return c
+}
+
+// isSetupReason reports whether a Ready reason is a setup problem's.
+func isSetupReason(reason string) bool {
+	switch reason {
+	case v1alpha1.ReasonInvalidSpec, v1alpha1.ReasonServingNotFound, v1alpha1.ReasonFallbackNotFound, v1alpha1.ReasonPermissionDenied:
+		return true
+	}
+	return false
+}
+
+// actionRequiredCondition is True exactly when a person must act on the
+// line, and says what: a setup problem (edit the line, create what it names,
+// grant a permission), a candidate waiting for a decision, a question the
+// controller leaves to a person (NeedsReview), a retrain refused on broken
+// data (Blocked), or a regression after probation, which nothing rolls back
+// automatically. Its reason is the first of these; its message lists them
+// all. It reads the line's other conditions, so it is computed after them.
+func actionRequiredCondition(conds []metav1.Condition, setup *metav1.Condition) metav1.Condition {
+	type cause struct{ reason, message string }
+	var causes []cause
+	if setup != nil {
+		causes = append(causes, cause{setup.Reason, setup.Message})
+	}
+	for _, w := range []struct {
+		cond    string
+		reasons []string // any reason when empty
+	}{
+		{v1alpha1.ConditionAwaitingApproval, nil},
+		{v1alpha1.ConditionNeedsReview, nil},
+		{v1alpha1.ConditionBlocked, nil},
+		{v1alpha1.ConditionDegraded, []string{reasonRegressedLate}},
+	} {
+		c := meta.FindStatusCondition(conds, w.cond)
+		if !isTrue(c) || (w.reasons != nil && !slices.Contains(w.reasons, c.Reason)) {
+			continue
+		}
+		reason := w.cond
+		if w.cond == v1alpha1.ConditionDegraded {
+			reason = c.Reason
+		}
+		causes = append(causes, cause{reason, fmt.Sprintf("%s (%s): %s", w.cond, c.Reason, c.Message)})
+	}
+	if len(causes) == 0 {
+		return metav1.Condition{Type: v1alpha1.ConditionActionRequired, Status: metav1.ConditionFalse, Reason: v1alpha1.ReasonNothingRequired,
+			Message: "nothing waits for a person"}
+	}
+	msgs := make([]string, len(causes))
+	for i, c := range causes {
+		msgs[i] = c.message
+	}
+	return metav1.Condition{Type: v1alpha1.ConditionActionRequired, Status: metav1.ConditionTrue, Reason: causes[0].reason,
+		Message: text.Truncate(strings.Join(msgs, "; "), 2000)}
+}
+
+// readyCondition is the line's Ready condition: True exactly when a version
+// serves, the controller runs the line unattended and nothing waits for a
+// person; otherwise False with the first thing in the way: a setup problem,
+// what a person must do (ActionRequired's reason), suspension, a degraded
+// live version, or no version live yet. A retrain under way does not make a
+// line unready: the live version serves meanwhile. conds are the line's
+// other conditions, computed first.
+func readyCondition(suspended bool, setup *metav1.Condition, conds []metav1.Condition, live *v1alpha1.ModelVersion) metav1.Condition {
+	if setup != nil {
+		return *setup
+	}
+	c := metav1.Condition{Type: v1alpha1.ConditionReady, Status: metav1.ConditionFalse}
+	action := meta.FindStatusCondition(conds, v1alpha1.ConditionActionRequired)
+	degraded := meta.FindStatusCondition(conds, v1alpha1.ConditionDegraded)
+	switch {
+	case isTrue(action):
+		c.Reason, c.Message = action.Reason, "a person must act: "+action.Message
+	case suspended:
+		c.Reason, c.Message = v1alpha1.ReasonSuspended, "spec.suspend is true: the controller reports status but does not act on this line"
+	case isTrue(degraded):
+		c.Reason, c.Message = v1alpha1.ConditionDegraded, degraded.Message
+	case live == nil:
+		c.Reason, c.Message = v1alpha1.ReasonNothingLive, "no version serves yet"
+	default:
+		c.Status, c.Reason = metav1.ConditionTrue, v1alpha1.ReasonServing
+		c.Message = live.Name + " serves, and nothing waits for a person"
 	}
 	return c
 }
@@ -87,7 +171,7 @@ func fallbackCondition(vw *view) metav1.Condition {
 	c := metav1.Condition{Type: v1alpha1.ConditionFallbackActive, Status: metav1.ConditionFalse, Reason: "ServingCandidate", Message: "the line serves its latest promoted version"}
 	live := vw.live()
 	if live == nil {
-		c.Reason, c.Message = "NothingLive", "no version serves yet"
+		c.Reason, c.Message = v1alpha1.ReasonNothingLive, "no version serves yet"
 		return c
 	}
 	kind := promotionKind(live)
@@ -188,9 +272,12 @@ func awaitingApprovalCondition(vw *view) metav1.Condition {
 
 // The line's conditions and their one writer each:
 //
-//	Ready            readyCondition, from what the pass observed (spec,
-//	                 serving Deployment, fallback) and whether the API
-//	                 server refused the manager a permission
+//	Ready            readyCondition, from the setup (setupProblem: spec,
+//	                 serving Deployment, fallback, a permission the API
+//	                 server refused the manager), suspension, the live
+//	                 version and the conditions below; written last
+//	ActionRequired   actionRequiredCondition, from the setup and the
+//	                 conditions below; written after them
 //	Retraining       retrainingCondition, from the versions
 //	AwaitingApproval awaitingApprovalCondition, from the versions
 //	FallbackActive   fallbackCondition, from the versions

@@ -20,40 +20,112 @@ import (
 	"plumbline.dev/plumbline/internal/engine/speccheck"
 )
 
-func TestReadyCondition(t *testing.T) {
+func TestSetupProblem(t *testing.T) {
 	bad := []speccheck.Problem{{Field: "spec.schedule.cron", Message: "not a cron expression"}}
+	forbidden := apierrors.NewForbidden(schema.GroupResource{Group: "batch", Resource: "jobs"}, "late-risk-v1-train", errors.New(`cannot create resource "jobs"`))
+	transient := apierrors.NewInternalError(errors.New("etcdserver: leader changed"))
 	cases := []struct {
 		name       string
-		suspended  bool
 		obs        lineObservation
-		wantStatus metav1.ConditionStatus
-		wantReason string
+		err        error
+		wantReason string // empty: no problem
 		wantText   string
 	}{
-		{"all well", false, lineObservation{}, metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "spec is valid"},
-		{"spec problem", false, lineObservation{problems: bad}, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron: not a cron expression"},
-		{"spec problem beats missing Deployment", false, lineObservation{problems: bad, servingMissing: "no Deployment"}, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
-		{"missing Deployment", false, lineObservation{servingMissing: "no Deployment"}, metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, "no Deployment"},
-		{"missing Deployment beats missing fallback", false, lineObservation{servingMissing: "no Deployment", fallbackMissing: "no rules"}, metav1.ConditionFalse, v1alpha1.ReasonServingNotFound, "no Deployment"},
-		{"missing fallback", false, lineObservation{fallbackMissing: "no rules"}, metav1.ConditionFalse, v1alpha1.ReasonFallbackNotFound, "no rules"},
-		{"suspended", true, lineObservation{}, metav1.ConditionTrue, v1alpha1.ReasonSuspended, "spec.suspend"},
-		{"suspended but invalid", true, lineObservation{problems: bad}, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
-		{"a permission refused", false, lineObservation{}, metav1.ConditionFalse, v1alpha1.ReasonPermissionDenied, `cannot create resource "jobs"`},
-		{"a spec problem beats a permission", false, lineObservation{problems: bad}, metav1.ConditionFalse, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
-		{"an error that is not a refusal", false, lineObservation{}, metav1.ConditionTrue, v1alpha1.ReasonSpecValid, "spec is valid"},
+		{"all well", lineObservation{}, nil, "", ""},
+		{"spec problem", lineObservation{problems: bad}, nil, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron: not a cron expression"},
+		{"spec problem beats missing Deployment", lineObservation{problems: bad, servingMissing: "no Deployment"}, nil, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
+		{"missing Deployment", lineObservation{servingMissing: "no Deployment"}, nil, v1alpha1.ReasonServingNotFound, "no Deployment"},
+		{"missing Deployment beats missing fallback", lineObservation{servingMissing: "no Deployment", fallbackMissing: "no rules"}, nil, v1alpha1.ReasonServingNotFound, "no Deployment"},
+		{"missing fallback", lineObservation{fallbackMissing: "no rules"}, nil, v1alpha1.ReasonFallbackNotFound, "no rules"},
+		{"a permission refused", lineObservation{}, forbidden, v1alpha1.ReasonPermissionDenied, `cannot create resource "jobs"`},
+		{"a spec problem beats a permission", lineObservation{problems: bad}, forbidden, v1alpha1.ReasonInvalidSpec, "spec.schedule.cron"},
+		{"an error that is not a refusal", lineObservation{}, transient, "", ""},
 	}
-	forbidden := apierrors.NewForbidden(schema.GroupResource{Group: "batch", Resource: "jobs"}, "late-risk-v1-train", errors.New(`cannot create resource "jobs"`))
 	for _, tc := range cases {
-		var err error
+		c := setupProblem(tc.obs, tc.err)
 		switch {
-		case strings.Contains(tc.name, "permission"):
-			err = forbidden
-		case strings.Contains(tc.name, "not a refusal"):
-			err = apierrors.NewInternalError(errors.New("etcdserver: leader changed"))
+		case tc.wantReason == "" && c != nil:
+			t.Errorf("%s: got problem %s %q; want none", tc.name, c.Reason, c.Message)
+		case tc.wantReason == "":
+		case c == nil:
+			t.Errorf("%s: got no problem; want %s", tc.name, tc.wantReason)
+		case c.Type != v1alpha1.ConditionReady || c.Status != metav1.ConditionFalse || c.Reason != tc.wantReason || !strings.Contains(c.Message, tc.wantText):
+			t.Errorf("%s: got %s=%s/%s %q; want False/%s containing %q", tc.name, c.Type, c.Status, c.Reason, c.Message, tc.wantReason, tc.wantText)
 		}
-		c := readyCondition(tc.suspended, tc.obs, err)
-		if c.Type != v1alpha1.ConditionReady || c.Status != tc.wantStatus || c.Reason != tc.wantReason || !strings.Contains(c.Message, tc.wantText) {
-			t.Errorf("%s: got %s=%s/%s %q; want %s/%s containing %q", tc.name, c.Type, c.Status, c.Reason, c.Message, tc.wantStatus, tc.wantReason, tc.wantText)
+	}
+}
+
+// lineCond is a condition for the attention tests.
+func lineCond(typ string, status metav1.ConditionStatus, reason, msg string) metav1.Condition {
+	return metav1.Condition{Type: typ, Status: status, Reason: reason, Message: msg}
+}
+
+// ActionRequired is True exactly when a person must act, and Ready is True
+// exactly when a version serves unattended with nothing waiting: the two
+// are read together, so one table holds both.
+func TestActionRequiredAndReady(t *testing.T) {
+	setup := &metav1.Condition{Type: v1alpha1.ConditionReady, Status: metav1.ConditionFalse, Reason: v1alpha1.ReasonServingNotFound, Message: `Deployment "scorer" not found`}
+	live := modelVersion("late-risk-v1", 0, v1alpha1.PhaseLive, v1alpha1.SourceTrained)
+	waiting := lineCond(v1alpha1.ConditionAwaitingApproval, metav1.ConditionTrue, reasonWaitingDecision, "version late-risk-v2 passed the gate and waits for a person")
+	review := lineCond(v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, reasonNoFallback, "there is nothing to fall back to")
+	blocked := lineCond(v1alpha1.ConditionBlocked, metav1.ConditionTrue, outcomeDataQuality, "address_line1 null rate 0.30")
+	lateRegression := lineCond(v1alpha1.ConditionDegraded, metav1.ConditionTrue, reasonRegressedLate, "its probation ended")
+	regressing := lineCond(v1alpha1.ConditionDegraded, metav1.ConditionTrue, reasonRegressed, "switching to late-risk-v0")
+	checksUnknown := lineCond(v1alpha1.ConditionBlocked, metav1.ConditionUnknown, outcomeChecksUnknown, "Prometheus unreachable")
+	retraining := lineCond(v1alpha1.ConditionRetraining, metav1.ConditionTrue, string(v1alpha1.PhaseTraining), "version late-risk-v2")
+	fallback := lineCond(v1alpha1.ConditionFallbackActive, metav1.ConditionTrue, v1alpha1.ReasonRolledBack, "late-risk-v0 serves")
+	cases := []struct {
+		name       string
+		setup      *metav1.Condition
+		suspended  bool
+		live       *v1alpha1.ModelVersion
+		conds      []metav1.Condition
+		wantAction string // ActionRequired's reason when True; empty when False
+		wantReady  string // Ready's reason (True only for Serving)
+		wantText   []string
+	}{
+		{"serving unattended", nil, false, live, nil, "", v1alpha1.ReasonServing, []string{"late-risk-v1 serves"}},
+		{"a retrain under way keeps a line ready", nil, false, live, []metav1.Condition{retraining}, "", v1alpha1.ReasonServing, nil},
+		{"a fallback serving keeps a line ready", nil, false, live, []metav1.Condition{fallback}, "", v1alpha1.ReasonServing, nil},
+		{"nothing live yet", nil, false, nil, []metav1.Condition{retraining}, "", v1alpha1.ReasonNothingLive, nil},
+		{"suspended", nil, true, live, nil, "", v1alpha1.ReasonSuspended, []string{"spec.suspend"}},
+		{"a candidate waits", nil, false, live, []metav1.Condition{waiting}, v1alpha1.ConditionAwaitingApproval, v1alpha1.ConditionAwaitingApproval, []string{"late-risk-v2 passed the gate"}},
+		{"a first candidate waits with nothing live", nil, false, nil, []metav1.Condition{waiting}, v1alpha1.ConditionAwaitingApproval, v1alpha1.ConditionAwaitingApproval, nil},
+		{"a suspended line's waiting candidate still needs a person", nil, true, live, []metav1.Condition{waiting}, v1alpha1.ConditionAwaitingApproval, v1alpha1.ConditionAwaitingApproval, nil},
+		{"needs review", nil, false, live, []metav1.Condition{review}, v1alpha1.ConditionNeedsReview, v1alpha1.ConditionNeedsReview, []string{"NeedsReview (NoFallback)"}},
+		{"blocked on broken data", nil, false, live, []metav1.Condition{blocked}, v1alpha1.ConditionBlocked, v1alpha1.ConditionBlocked, []string{"address_line1"}},
+		{"checks that cannot be judged wait on their own", nil, false, live, []metav1.Condition{checksUnknown}, "", v1alpha1.ReasonServing, nil},
+		{"a regression after probation", nil, false, live, []metav1.Condition{lateRegression}, reasonRegressedLate, reasonRegressedLate, []string{"probation ended"}},
+		{"a regression the guard is answering", nil, false, live, []metav1.Condition{regressing}, "", v1alpha1.ConditionDegraded, []string{"switching to late-risk-v0"}},
+		{"a setup problem comes first", setup, false, live, []metav1.Condition{waiting, blocked}, v1alpha1.ReasonServingNotFound, v1alpha1.ReasonServingNotFound, []string{`Deployment "scorer" not found`}},
+		{"every cause is listed", nil, false, live, []metav1.Condition{blocked, review, waiting}, v1alpha1.ConditionAwaitingApproval, v1alpha1.ConditionAwaitingApproval,
+			[]string{"AwaitingApproval (WaitingForDecision)", "NeedsReview (NoFallback)", "Blocked (DataQualityIssue)"}},
+	}
+	for _, tc := range cases {
+		conds := slices.Clone(tc.conds)
+		a := actionRequiredCondition(conds, tc.setup)
+		conds = append(conds, a)
+		r := readyCondition(tc.suspended, tc.setup, conds, tc.live)
+		if a.Type != v1alpha1.ConditionActionRequired || r.Type != v1alpha1.ConditionReady {
+			t.Fatalf("%s: types %s, %s", tc.name, a.Type, r.Type)
+		}
+		switch {
+		case tc.wantAction == "" && a.Status != metav1.ConditionFalse:
+			t.Errorf("%s: ActionRequired=%s/%s %q; want False", tc.name, a.Status, a.Reason, a.Message)
+		case tc.wantAction != "" && (a.Status != metav1.ConditionTrue || a.Reason != tc.wantAction):
+			t.Errorf("%s: ActionRequired=%s/%s; want True/%s", tc.name, a.Status, a.Reason, tc.wantAction)
+		}
+		wantStatus := metav1.ConditionFalse
+		if tc.wantReady == v1alpha1.ReasonServing {
+			wantStatus = metav1.ConditionTrue
+		}
+		if r.Status != wantStatus || r.Reason != tc.wantReady {
+			t.Errorf("%s: Ready=%s/%s %q; want %s/%s", tc.name, r.Status, r.Reason, r.Message, wantStatus, tc.wantReady)
+		}
+		for _, w := range tc.wantText {
+			if !strings.Contains(r.Message+" | "+a.Message, w) {
+				t.Errorf("%s: messages %q | %q lack %q", tc.name, r.Message, a.Message, w)
+			}
 		}
 	}
 }

@@ -241,13 +241,17 @@ func TestMissingPermissionIsAConditionNotALoop(t *testing.T) {
 
 	forbidden = false // a person granted it
 	w.mustPass()
-	if c := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady); c.Status != metav1.ConditionTrue {
-		t.Fatalf("Ready %+v after the permission was granted", c)
+	// Nothing serves yet, so the line is not Ready, but no person is needed.
+	if c := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady); c.Reason != v1alpha1.ReasonNothingLive {
+		t.Fatalf("Ready %+v after the permission was granted, want NothingLive", c)
+	}
+	if c := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionActionRequired); c.Status != metav1.ConditionFalse {
+		t.Fatalf("ActionRequired %+v after the permission was granted", c)
 	}
 	if v := w.version("late-risk-v1"); v.Status.Phase != v1alpha1.PhaseTraining {
 		t.Errorf("late-risk-v1 is %s once the Job may be created, want Training", v.Status.Phase)
 	}
-	if evs := w.events(); !hasEvent(evs, "Normal", "the line is ready") {
+	if evs := w.events(); !hasEvent(evs, "Normal", "PermissionDenied is resolved") {
 		t.Errorf("no event for the recovery: %v", evs)
 	}
 }
@@ -271,6 +275,9 @@ func TestMissingReadPermissionIsACondition(t *testing.T) {
 	ready := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionReady)
 	if ready == nil || ready.Reason != v1alpha1.ReasonPermissionDenied || !strings.Contains(ready.Message, `cannot list resource "jobs"`) {
 		t.Fatalf("Ready %+v", ready)
+	}
+	if c := meta.FindStatusCondition(w.line().Status.Conditions, v1alpha1.ConditionActionRequired); c == nil || c.Status != metav1.ConditionTrue || c.Reason != v1alpha1.ReasonPermissionDenied {
+		t.Errorf("ActionRequired %+v: a missing permission needs a person", c)
 	}
 	if evs := w.events(); !hasEvent(evs, "Warning", "PermissionDenied") {
 		t.Errorf("no PermissionDenied event: %v", evs)

@@ -2,7 +2,7 @@ package modelline
 
 import (
 	"github.com/prometheus/client_golang/prometheus"
-	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/api/meta"
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
@@ -11,7 +11,7 @@ import (
 
 // lineConditionTypes are the conditions exported per line.
 var lineConditionTypes = []string{
-	v1alpha1.ConditionReady, v1alpha1.ConditionDegraded, v1alpha1.ConditionRetraining,
+	v1alpha1.ConditionReady, v1alpha1.ConditionActionRequired, v1alpha1.ConditionDegraded, v1alpha1.ConditionRetraining,
 	v1alpha1.ConditionAwaitingApproval, v1alpha1.ConditionFallbackActive,
 	v1alpha1.ConditionBlocked, v1alpha1.ConditionNeedsReview,
 }
@@ -19,11 +19,26 @@ var lineConditionTypes = []string{
 var (
 	// lineCondition is 1 while a line's condition is True and 0 otherwise
 	// (False, Unknown or not set), so
-	// `plumbline_line_condition{condition="Ready"} == 0` finds every line
-	// that needs a person.
+	// `plumbline_line_condition{condition="ActionRequired"} == 1` finds
+	// every line that needs a person.
 	lineCondition = prometheus.NewGaugeVec(prometheus.GaugeOpts{
 		Name: "plumbline_line_condition",
 		Help: "1 while the ModelLine's condition is True, else 0.",
+	}, []string{"namespace", "line", "condition"})
+
+	// lineConditionInfo carries each condition's status and reason, for
+	// alerts on one reason (a regression after probation).
+	lineConditionInfo = prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "plumbline_line_condition_info",
+		Help: "1 for the status and reason each of a ModelLine's conditions has now.",
+	}, []string{"namespace", "line", "condition", "status", "reason"})
+
+	// lineConditionSince is when each condition last changed status, so an
+	// alert can ask how long a candidate has waited, across restarts of the
+	// manager and of Prometheus.
+	lineConditionSince = prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "plumbline_line_condition_since_timestamp_seconds",
+		Help: "When the ModelLine's condition last changed status (its lastTransitionTime), in Unix seconds.",
 	}, []string{"namespace", "line", "condition"})
 
 	retrainsStarted = prometheus.NewCounterVec(prometheus.CounterOpts{
@@ -118,19 +133,27 @@ var (
 )
 
 func init() {
-	metrics.Registry.MustRegister(lineCondition, retrainsStarted, retrainsFinished, gateDecisions,
+	metrics.Registry.MustRegister(lineCondition, lineConditionInfo, lineConditionSince, retrainsStarted, retrainsFinished, gateDecisions,
 		promotions, rolloutFailures, liveVersion, lastPromotion, triggerValue, triggerState,
 		triggerEvaluations, retrainDecisions, checkRuns, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations)
 }
 
 // recordLineMetrics exports the gauges that describe a line as it is.
 func recordLineMetrics(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion) {
+	lineConditionInfo.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
 	for _, t := range lineConditionTypes {
 		v := 0.0
-		if conditionIs(line.Status.Conditions, t, metav1.ConditionTrue) {
+		c := meta.FindStatusCondition(line.Status.Conditions, t)
+		if isTrue(c) {
 			v = 1
 		}
 		lineCondition.WithLabelValues(line.Namespace, line.Name, t).Set(v)
+		if c == nil {
+			lineConditionSince.DeleteLabelValues(line.Namespace, line.Name, t)
+			continue
+		}
+		lineConditionInfo.WithLabelValues(line.Namespace, line.Name, t, string(c.Status), c.Reason).Set(1)
+		lineConditionSince.WithLabelValues(line.Namespace, line.Name, t).Set(float64(c.LastTransitionTime.Unix()))
 	}
 	liveVersion.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
 	if live != nil {
@@ -146,7 +169,7 @@ func forgetLineMetrics(namespace, name string) {
 	labels := prometheus.Labels{"namespace": namespace, "line": name}
 	for _, v := range []interface {
 		DeletePartialMatch(prometheus.Labels) int
-	}{lineCondition, retrainsStarted, retrainsFinished, gateDecisions, promotions, rolloutFailures, liveVersion, lastPromotion,
+	}{lineCondition, lineConditionInfo, lineConditionSince, retrainsStarted, retrainsFinished, gateDecisions, promotions, rolloutFailures, liveVersion, lastPromotion,
 		triggerValue, triggerState, triggerEvaluations, retrainDecisions, checkRuns, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations} {
 		v.DeletePartialMatch(labels)
 	}

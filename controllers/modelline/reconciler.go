@@ -12,6 +12,7 @@ import (
 	batchv1 "k8s.io/api/batch/v1"
 	"k8s.io/apimachinery/pkg/api/equality"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
@@ -114,7 +115,7 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 
 	p := &pass{now: metav1.NewTime(r.Clock.Now()), line: &line, vw: vw}
 	var phaseErr error
-	if readyCondition(line.Spec.Suspend, obs, nil).Status == metav1.ConditionTrue {
+	if setupProblem(obs, nil) == nil {
 		phaseErr = r.runPhases(ctx, p)
 	}
 	readyChanged := conclude(p, obs, phaseErr)
@@ -164,13 +165,12 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 }
 
 // conclude computes the statuses the pass leaves, each condition by its one
-// writer: the line's Ready (with a permission the phases were refused), the
-// conditions the phases judged, every version's conditions from its
-// record, and the line's summary of its versions. It reports whether Ready
-// changed.
+// writer: the conditions the phases judged, every version's conditions
+// from its record, the line's summary of its versions, and last the two
+// that read the others: ActionRequired and Ready (with a permission the
+// phases were refused). It reports whether Ready changed.
 func conclude(p *pass, obs lineObservation, phaseErr error) bool {
 	line, vw := p.line, p.vw
-	readyChanged := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, obs, phaseErr), line.Generation, p.now)
 	p.events = append(p.events, judgeConditions(&line.Status.Conditions, p.judgements, line.Generation, p.now)...)
 	for _, v := range vw.versions {
 		versionConditions(line, v, p.now)
@@ -179,7 +179,15 @@ func conclude(p *pass, obs lineObservation, phaseErr error) bool {
 	if phaseErr == nil {
 		line.Status.ObservedGeneration = line.Generation
 	}
-	return readyChanged
+	return setAttention(line, setupProblem(obs, phaseErr), vw.live(), p.now)
+}
+
+// setAttention writes ActionRequired, then Ready, from the line's other
+// conditions, and reports whether Ready changed.
+func setAttention(line *v1alpha1.ModelLine, setup *metav1.Condition, live *v1alpha1.ModelVersion, now metav1.Time) bool {
+	conds := &line.Status.Conditions
+	setCondition(conds, actionRequiredCondition(*conds, setup), line.Generation, now)
+	return setCondition(conds, readyCondition(line.Spec.Suspend, setup, *conds, live), line.Generation, now)
 }
 
 // write writes each status the pass changed, once: the versions first (the
@@ -225,7 +233,7 @@ const permissionRetry = 30 * time.Second
 // even read the parts of (a list or get refused), and tries again calmly.
 func (r *Reconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine, err error) (ctrl.Result, error) {
 	p := &pass{now: metav1.NewTime(r.Clock.Now()), line: line, vw: &view{}}
-	changed := setCondition(&line.Status.Conditions, readyCondition(line.Spec.Suspend, lineObservation{}, err), line.Generation, p.now)
+	changed := setAttention(line, setupProblem(lineObservation{}, err), nil, p.now)
 	if _, err := r.write(ctx, p, orig, nil); err != nil {
 		return ctrl.Result{}, err
 	}
@@ -391,20 +399,23 @@ func fallbackProblems(line string, v *v1alpha1.ModelVersion) []speccheck.Problem
 	return ps
 }
 
-// eventForReady tells a person why the line is not ready, once per change,
-// or that it recovered.
+// eventForReady tells of a change of Ready: a setup problem as a warning
+// (what else makes a line unready has events of its own), its end,
+// suspension, and readiness regained.
 func (r *Reconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
-	wasFalse := conditionIs(orig.Status.Conditions, v1alpha1.ConditionReady, metav1.ConditionFalse)
-	for _, c := range line.Status.Conditions {
-		if c.Type != v1alpha1.ConditionReady {
-			continue
-		}
-		switch {
-		case c.Status == metav1.ConditionFalse:
-			r.Recorder.Eventf(line, nil, "Warning", c.Reason, "CheckSpec", "%s", c.Message)
-		case wasFalse:
-			r.Recorder.Eventf(line, nil, "Normal", c.Reason, "CheckSpec", "the line is ready: %s", c.Message)
-		}
+	was := meta.FindStatusCondition(orig.Status.Conditions, v1alpha1.ConditionReady)
+	c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionReady)
+	wasSetup := was != nil && was.Status == metav1.ConditionFalse && isSetupReason(was.Reason)
+	switch {
+	case c == nil:
+	case c.Status == metav1.ConditionFalse && isSetupReason(c.Reason):
+		r.Recorder.Eventf(line, nil, "Warning", c.Reason, "CheckSpec", "%s", c.Message)
+	case c.Status == metav1.ConditionTrue && was != nil && was.Status == metav1.ConditionFalse:
+		r.Recorder.Eventf(line, nil, "Normal", c.Reason, "CheckSpec", "the line is ready: %s", c.Message)
+	case wasSetup:
+		r.Recorder.Eventf(line, nil, "Normal", c.Reason, "CheckSpec", "%s is resolved; not ready yet: %s", was.Reason, c.Message)
+	case c.Reason == v1alpha1.ReasonSuspended:
+		r.Recorder.Eventf(line, nil, "Normal", c.Reason, "CheckSpec", "%s", c.Message)
 	}
 }
 

@@ -120,15 +120,28 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 			t.Fatalf("%s:\n got %s\nwant %s", step, got, want)
 		}
 	}
+	// The line is Ready while the old version serves and the candidate
+	// trains; it needs a person exactly while the candidate waits.
+	attention := func(step, want string) {
+		t.Helper()
+		l := w.line()
+		got := "Ready=" + show(meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionReady)) +
+			" ActionRequired=" + show(meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionActionRequired))
+		if got != want {
+			t.Errorf("%s: line %s, want %s", step, got, want)
+		}
+	}
 	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-1")
 	w.mustPass()
 	expect("training", "Trained=Unknown/TrainingStarted Evaluated=- GatePassed=- Approved=- Live=-")
+	attention("training", "Ready=True/Serving ActionRequired=False/NothingRequired")
 	w.finishJob("late-risk-v1-train", true, "")
 	w.mustPass()
 	expect("evaluating", "Trained=True/TrainingSucceeded Evaluated=Unknown/EvaluationStarted GatePassed=- Approved=- Live=-")
 	w.finishJob("late-risk-v1-gate", true, passingGateReport())
 	w.mustPass()
 	expect("waiting", "Trained=True/TrainingSucceeded Evaluated=True/CriteriaMet GatePassed=True/CriteriaMet Approved=Unknown/WaitingForDecision Live=-")
+	attention("waiting", "Ready=False/AwaitingApproval ActionRequired=True/AwaitingApproval")
 	if c := meta.FindStatusCondition(w.version("late-risk-v1").Status.Conditions, v1alpha1.ConditionSettled); c == nil || c.Status != metav1.ConditionFalse || c.Reason != "AwaitingApproval" {
 		t.Errorf("Settled %+v while a person decides", c)
 	}
@@ -147,6 +160,7 @@ func TestVersionConditionsThroughALife(t *testing.T) {
 	w.rolledOut()
 	w.mustPass()
 	expect("live", "Trained=True/TrainingSucceeded Evaluated=True/CriteriaMet GatePassed=True/CriteriaMet Approved=True/ApprovedByPerson Live=True/Promoted")
+	attention("live", "Ready=True/Serving ActionRequired=False/NothingRequired")
 	if c := meta.FindStatusCondition(w.version("late-risk-v1").Status.Conditions, v1alpha1.ConditionSettled); c == nil || c.Status != metav1.ConditionTrue || c.Reason != "Live" {
 		t.Errorf("Settled %+v once live", c)
 	}

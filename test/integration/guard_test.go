@@ -325,23 +325,38 @@ func setAnnotation(t *testing.T, key client.ObjectKey, name, value string) {
 }
 
 // tableCell reads one cell of kubectl's table output: the row whose first
-// column is name, under the header column. Headers are split on runs of two
-// or more spaces, so a header of two words ("AWAITING APPROVAL") stays one.
+// column is name, under the header column. kubectl aligns every cell with
+// the start of its header, so a cell is the text between its header's start
+// and the next one's: a header of two words ("AWAITING APPROVAL") stays one,
+// and an empty cell is read as "".
 func tableCell(out, name, column string) string {
-	split := regexp.MustCompile(`\s{2,}`)
+	split := regexp.MustCompile(`\S+( \S+)*`)
+	var starts [][]int
 	var header []string
 	for _, l := range strings.Split(out, "\n") {
-		f := split.Split(strings.TrimSpace(l), -1)
-		if len(f) > 0 && f[0] == "NAME" {
-			header = f
+		if strings.HasPrefix(l, "NAME ") {
+			starts = split.FindAllStringIndex(l, -1)
+			header = nil
+			for _, s := range starts {
+				header = append(header, l[s[0]:s[1]])
+			}
 			continue
 		}
-		if len(f) == len(header) && f[0] == name {
-			for i, h := range header {
-				if h == column {
-					return f[i]
-				}
+		if header == nil || !strings.HasPrefix(l, name+" ") {
+			continue
+		}
+		for i, h := range header {
+			if h != column {
+				continue
 			}
+			from, to := starts[i][0], len(l)
+			if i+1 < len(starts) {
+				to = min(starts[i+1][0], len(l))
+			}
+			if from >= len(l) {
+				return ""
+			}
+			return strings.TrimSpace(l[from:to])
 		}
 	}
 	return ""

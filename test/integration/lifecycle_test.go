@@ -452,7 +452,8 @@ func conditionIs(conds []metav1.Condition, typ string) bool {
 	return c != nil && c.Status == metav1.ConditionTrue
 }
 
-// What a person scans with kubectl get: our own short names, the next
+// What a person scans with kubectl get: our own short names, Ready and
+// whether a person must act, the next
 // scheduled start as a time (a date column shows "<invalid>" for a future
 // time), versions with their number, the status reason and the cause.
 func TestKubectlColumns(t *testing.T) {
@@ -484,6 +485,14 @@ func TestKubectlColumns(t *testing.T) {
 	next := getLine(t, key).Status.NextScheduleTime.UTC().Format("2006-01-02T15:04:05Z")
 	if strings.Contains(wide, "<invalid>") || !strings.Contains(wide, "NEXT SCHEDULE") || !strings.Contains(wide, next) {
 		t.Errorf("kubectl get mline -o wide shows no next scheduled start %s:\n%s", next, wide)
+	}
+	// The old version serves while the new one trains: Ready, and nothing
+	// for a person to do.
+	if got := tableCell(wide, "late-risk", "READY"); got != "True" {
+		t.Errorf("READY %q while late-risk-v0 serves and late-risk-v1 trains, want True:\n%s", got, wide)
+	}
+	if got := tableCell(wide, "late-risk", "ACTION REQUIRED"); got != "False" {
+		t.Errorf("ACTION REQUIRED %q, want False:\n%s", got, wide)
 	}
 	versions := get("mver")
 	for _, want := range []string{"NUMBER", "PHASE", "REASON", "CAUSE", "late-risk-v1", "TrainingStarted", "Manual", "Initial"} {

@@ -164,15 +164,21 @@ func TestInvalidSpecCondition(t *testing.T) {
 	if err := k8s.Create(ctx, servingDeployment(key.Namespace, "late-risk-scorer", "scorer")); err != nil {
 		t.Fatal(err)
 	}
-	line = waitLineCondition(t, key, v1alpha1.ConditionReady, metav1.ConditionTrue, v1alpha1.ReasonSpecValid)
-	c = meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionReady)
+	line = waitLineCondition(t, key, v1alpha1.ConditionActionRequired, metav1.ConditionFalse, v1alpha1.ReasonNothingRequired)
+	c = meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionActionRequired)
 	if !c.LastTransitionTime.Time.Equal(start.Add(20 * time.Minute).Truncate(time.Second)) {
-		t.Errorf("lastTransitionTime %s, want the clock's time at recovery", c.LastTransitionTime)
+		t.Errorf("ActionRequired's lastTransitionTime %s, want the clock's time at recovery", c.LastTransitionTime)
 	}
-	ev = waitEvent(t, key.Namespace, key.Name, v1alpha1.ReasonSpecValid)
+	// Nothing serves yet, so the line is not Ready, for a reason that needs
+	// no person.
+	if err := expectCondition(line.Status.Conditions, v1alpha1.ConditionReady, metav1.ConditionFalse, v1alpha1.ReasonNothingLive); err != nil {
+		t.Error(err)
+	}
+	ev = waitEvent(t, key.Namespace, key.Name, v1alpha1.ReasonNothingLive)
 	if ev.Type != corev1.EventTypeNormal {
 		t.Errorf("recovery event type %s, want Normal", ev.Type)
 	}
+	mustContain(t, "recovery event", ev.Note, "ServingNotFound is resolved")
 }
 
 // A Deployment without the named container is not a place to serve from.
@@ -202,7 +208,7 @@ func TestServingContainerMissing(t *testing.T) {
 	if err := k8s.Update(ctx, &dep); err != nil {
 		t.Fatal(err)
 	}
-	waitLineCondition(t, client.ObjectKeyFromObject(o), v1alpha1.ConditionReady, metav1.ConditionTrue, v1alpha1.ReasonSpecValid)
+	waitLineCondition(t, client.ObjectKeyFromObject(o), v1alpha1.ConditionActionRequired, metav1.ConditionFalse, v1alpha1.ReasonNothingRequired)
 }
 
 // The rule-based fallback must exist, be RuleBased and belong to the line.
@@ -245,10 +251,10 @@ func TestFallbackReference(t *testing.T) {
 	if err := k8s.Create(ctx, rules); err != nil {
 		t.Fatal(err)
 	}
-	waitLineCondition(t, key, v1alpha1.ConditionReady, metav1.ConditionTrue, v1alpha1.ReasonSpecValid)
+	waitLineCondition(t, key, v1alpha1.ConditionActionRequired, metav1.ConditionFalse, v1alpha1.ReasonNothingRequired)
 }
 
-// A suspended line is ready but says it does not act.
+// A suspended line is not Ready, says it does not act, and needs no person.
 func TestSuspendedLine(t *testing.T) {
 	ctx := context.Background()
 	ns := "suspended"
@@ -263,8 +269,11 @@ func TestSuspendedLine(t *testing.T) {
 	if err := k8s.Create(ctx, o); err != nil {
 		t.Fatal(err)
 	}
-	line := waitLineCondition(t, client.ObjectKeyFromObject(o), v1alpha1.ConditionReady, metav1.ConditionTrue, v1alpha1.ReasonSuspended)
+	line := waitLineCondition(t, client.ObjectKeyFromObject(o), v1alpha1.ConditionReady, metav1.ConditionFalse, v1alpha1.ReasonSuspended)
 	mustContain(t, "Ready message", meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionReady).Message, "spec.suspend")
+	if err := expectCondition(line.Status.Conditions, v1alpha1.ConditionActionRequired, metav1.ConditionFalse, v1alpha1.ReasonNothingRequired); err != nil {
+		t.Error(err)
+	}
 }
 
 // A version is adopted by its line (so deleting the line deletes it), also

@@ -105,7 +105,7 @@ func TestMissingPermissionIsReported(t *testing.T) {
 	restored = true
 	nudge(t, key, clk.Now())
 	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseTraining)
-	waitLineCondition(t, key, v1alpha1.ConditionReady, metav1.ConditionTrue, v1alpha1.ReasonSpecValid)
+	waitLineCondition(t, key, v1alpha1.ConditionActionRequired, metav1.ConditionFalse, v1alpha1.ReasonNothingRequired)
 	if n := countJobs(t, ns); n["train"] != 1 {
 		t.Errorf("training Jobs %v, want one", n)
 	}

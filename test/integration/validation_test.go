@@ -76,7 +76,7 @@ func TestSamplesAccepted(t *testing.T) {
 		if err := k8s.Get(ctx, client.ObjectKey{Namespace: "larkspur", Name: "late-risk"}, &line); err != nil {
 			return err
 		}
-		return expectCondition(line.Status.Conditions, v1alpha1.ConditionReady, metav1.ConditionTrue, v1alpha1.ReasonSpecValid)
+		return expectCondition(line.Status.Conditions, v1alpha1.ConditionActionRequired, metav1.ConditionFalse, v1alpha1.ReasonNothingRequired)
 	})
 }
 

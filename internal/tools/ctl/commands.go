@@ -106,15 +106,15 @@ func runStatus(ctx context.Context, e *env, pos []string) error {
 		return nil
 	}
 	tw := tabwriter.NewWriter(e.out, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "LINE\tLIVE\tREADY\tIN FLIGHT\tAWAITING APPROVAL\tFALLBACK\tBLOCKED\tNEEDS REVIEW\tTRIGGERS\tGUARD\tAGE")
+	fmt.Fprintln(tw, "LINE\tLIVE\tREADY\tACTION REQUIRED\tIN FLIGHT\tAWAITING APPROVAL\tFALLBACK\tBLOCKED\tNEEDS REVIEW\tTRIGGERS\tGUARD\tAGE")
 	for i := range lines.Items {
 		l := &lines.Items[i]
 		guard := "-"
 		if l.Status.Guard != nil {
 			guard = string(l.Status.Guard.State)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, dash(l.Status.LiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionReady),
-			dash(l.Status.ActiveVersion), dash(awaiting(l)), condStatus(l.Status.Conditions, v1alpha1.ConditionFallbackActive), condStatus(l.Status.Conditions, v1alpha1.ConditionBlocked),
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, dash(l.Status.LiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionReady),
+			actionRequired(l), dash(l.Status.ActiveVersion), dash(awaiting(l)), condStatus(l.Status.Conditions, v1alpha1.ConditionFallbackActive), condStatus(l.Status.Conditions, v1alpha1.ConditionBlocked),
 			condStatus(l.Status.Conditions, v1alpha1.ConditionNeedsReview), triggerStates(l), guard, e.age(&l.CreationTimestamp))
 	}
 	return tw.Flush()
@@ -326,4 +326,12 @@ func (e *env) token() string {
 		return e.o.token
 	}
 	return "kubectl-" + e.o.now().UTC().Format("20060102-150405")
+}
+
+// actionRequired is the reason a person must act on the line, or "-".
+func actionRequired(l *v1alpha1.ModelLine) string {
+	if c := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionActionRequired); c != nil && c.Status == metav1.ConditionTrue {
+		return c.Reason
+	}
+	return "-"
 }

@@ -328,12 +328,11 @@ func (d *player) story() error {
 			return err
 		}
 	}
-	if err := d.waitReady(lineKey, metav1.ConditionTrue, v1alpha1.ReasonSpecValid); err != nil {
-		return err
-	}
-
 	d.step(2, "The imported model becomes the first live version through a real Deployment rollout")
 	if err := d.waitLive("late-risk-v0"); err != nil {
+		return err
+	}
+	if err := d.waitReady(lineKey, metav1.ConditionTrue, v1alpha1.ReasonServing); err != nil {
 		return err
 	}
 	if err := d.pause(12*time.Second, "ordinary traffic: the live model holds its quality"); err != nil {
