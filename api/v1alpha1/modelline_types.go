@@ -307,10 +307,80 @@ type GateSpec struct {
 	Criteria []GateCriterion `json:"criteria"`
 
 	// approval: Automatic promotes a passing candidate; Manual waits for a
-	// person's decision on the version.
+	// person's decision on the version. Under Manual nothing serves that a
+	// person did not approve, except what withoutApproval allows.
 	// +optional
 	// +kubebuilder:default=Automatic
 	Approval ApprovalMode `json:"approval,omitempty"`
+
+	// withoutApproval says which of the controller's own switches may change
+	// what serves without a person's decision. Each is on by default under
+	// Automatic approval; under Manual only rollback is (the previous
+	// version served before, so a person approved it then).
+	// +optional
+	WithoutApproval *UnattendedSwitches `json:"withoutApproval,omitempty"`
+}
+
+// UnattendedSwitches are the controller's automatic actions that change what
+// serves, each allowed (true) or left to a person (false). Unset takes the
+// approval mode's default.
+type UnattendedSwitches struct {
+	// firstImport: the first Imported version of a line with nothing live
+	// goes live without a gate. When false it waits for spec.decision.
+	// Default: true under Automatic, false under Manual.
+	// +optional
+	FirstImport *bool `json:"firstImport,omitempty"`
+
+	// rollback: the guard rolls a regressed version back to the previous
+	// one. When false the line asks a person (NeedsReview). Default: true.
+	// +optional
+	Rollback *bool `json:"rollback,omitempty"`
+
+	// ruleBasedFallback: the guard switches a regressed version to the
+	// rule-based version. When false the line asks a person. Default: true
+	// under Automatic, false under Manual.
+	// +optional
+	RuleBasedFallback *bool `json:"ruleBasedFallback,omitempty"`
+
+	// alternatives: when a retrain cannot help, the line switches to the
+	// best alternative that passed the gate. When false the alternatives are
+	// still evaluated, and the line names the best one to a person. Default:
+	// true under Automatic, false under Manual.
+	// +optional
+	Alternatives *bool `json:"alternatives,omitempty"`
+}
+
+// UnattendedSwitch names one of UnattendedSwitches.
+type UnattendedSwitch string
+
+// The automatic switches, by their field names.
+const (
+	SwitchFirstImport       UnattendedSwitch = "firstImport"
+	SwitchRollback          UnattendedSwitch = "rollback"
+	SwitchRuleBasedFallback UnattendedSwitch = "ruleBasedFallback"
+	SwitchAlternatives      UnattendedSwitch = "alternatives"
+)
+
+// Allows reports whether the gate lets the controller take switch s without
+// a person: the field when set, else the approval mode's default.
+func (g GateSpec) Allows(s UnattendedSwitch) bool {
+	var set *bool
+	if w := g.WithoutApproval; w != nil {
+		switch s {
+		case SwitchFirstImport:
+			set = w.FirstImport
+		case SwitchRollback:
+			set = w.Rollback
+		case SwitchRuleBasedFallback:
+			set = w.RuleBasedFallback
+		case SwitchAlternatives:
+			set = w.Alternatives
+		}
+	}
+	if set != nil {
+		return *set
+	}
+	return g.Approval != ApprovalManual || s == SwitchRollback
 }
 
 // Better says which way a metric improves: Higher or Lower values are the
@@ -575,7 +645,9 @@ type AlternativesStatus struct {
 	// +kubebuilder:validation:MaxItems=4
 	Candidates []AlternativeResult `json:"candidates,omitempty"`
 
-	// outcome once all are judged: Switched (to chosen) or NoneQualified.
+	// outcome once all are judged: Switched (to chosen), NoneQualified, or
+	// LeftToPerson (the best passed, and spec.gate.withoutApproval leaves the
+	// switch to a person); Superseded when the live version changed first.
 	// +optional
 	// +kubebuilder:validation:MaxLength=64
 	Outcome string `json:"outcome,omitempty"`

@@ -265,7 +265,11 @@ func awaitingApprovalCondition(vw *view) metav1.Condition {
 	c := metav1.Condition{Type: v1alpha1.ConditionAwaitingApproval, Status: metav1.ConditionFalse, Reason: "NothingWaiting", Message: "no candidate waits for a decision"}
 	if a := vw.active(); a != nil && a.Status.Phase == v1alpha1.PhaseAwaitingApproval {
 		c.Status, c.Reason = metav1.ConditionTrue, reasonWaitingDecision
-		c.Message = fmt.Sprintf("version %s passed the gate and waits for a person: set spec.decision to Approved or Rejected (kubectl patch modelversion %s -n %s --type=merge -p '{\"spec\":{\"decision\":\"Approved\"}}')", a.Name, a.Name, a.Namespace)
+		what := "passed the gate"
+		if a.Status.Gate == nil {
+			what = "is the line's first (imported, not gated)"
+		}
+		c.Message = fmt.Sprintf("version %s %s and waits for a person: kubectl plumbline approve %s -n %s (or reject %s), which sets spec.decision", a.Name, what, a.Name, a.Namespace, a.Name)
 	}
 	return c
 }

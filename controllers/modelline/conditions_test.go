@@ -340,3 +340,35 @@ func TestQuietJudgement(t *testing.T) {
 		t.Errorf("quiet: %+v", j)
 	}
 }
+
+// A Degraded verdict on a version that no longer serves says nothing of the
+// line now: once the guard's switch has gone live, Ready does not wait for
+// the guard to judge the new live version (when it would be, depends on
+// timing, and a restart must not change what Ready says).
+func TestStaleDegradedIsNotRead(t *testing.T) {
+	now := metav1.NewTime(passStart)
+	v0 := modelVersion("late-risk-v0", 0, v1alpha1.PhaseLive, v1alpha1.SourceImported)
+	for _, c := range []struct {
+		name    string
+		guardOn string
+		want    string
+	}{
+		{"the guard judged the version that was switched away from", "late-risk-v2", "True/Serving"},
+		{"the guard judged the live version", "late-risk-v0", "False/Degraded"},
+		{"the guard has judged nothing", "", "True/Serving"},
+	} {
+		line := passLine()
+		line.Status.Conditions = []metav1.Condition{lineCond(v1alpha1.ConditionDegraded, metav1.ConditionTrue, reasonRegressed, "late-risk-v2 regressed; switching to late-risk-v0")}
+		if c.guardOn != "" {
+			line.Status.Guard = &v1alpha1.TriggerStatus{Name: c.guardOn, State: v1alpha1.TriggerFiring}
+		}
+		setAttention(line, nil, v0, now)
+		r := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionReady)
+		if got := string(r.Status) + "/" + r.Reason; got != c.want {
+			t.Errorf("%s: Ready %s, want %s", c.name, got, c.want)
+		}
+		if d := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionDegraded); d == nil || d.Status != metav1.ConditionTrue {
+			t.Errorf("%s: setAttention changed Degraded: %+v", c.name, d)
+		}
+	}
+}

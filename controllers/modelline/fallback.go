@@ -24,7 +24,11 @@ const (
 	altSwitched          = "Switched"
 	altNoneQualified     = "NoneQualified"
 	altSuperseded        = "Superseded"
-	roleAlternative      = "alternative"
+	altNeedsPerson       = "LeftToPerson"
+	// reasonAlternativeNeedsPerson is NeedsReview's reason when the best
+	// alternative waits for a person's switch.
+	reasonAlternativeNeedsPerson = "AlternativeNeedsPerson"
+	roleAlternative              = "alternative"
 )
 
 // alternatives are the versions the line could serve instead of the live
@@ -90,6 +94,15 @@ func (r *Reconciler) startAlternatives(ctx context.Context, line *v1alpha1.Model
 func (r *Reconciler) watchAlternatives(ctx context.Context, p *pass) error {
 	line, vw := p.line, p.vw
 	a := line.Status.Alternatives
+	if a != nil && a.Outcome == altNeedsPerson {
+		// The question was which version should serve instead of
+		// a.Against; once another serves, it is answered.
+		if live := vw.live(); live == nil || live.Name != a.Against {
+			p.judge(judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionFalse, reason: "Answered",
+				message: fmt.Sprintf("%s no longer serves", a.Against), onlyWhile: []string{reasonAlternativeNeedsPerson}})
+		}
+		return nil
+	}
 	if a == nil || a.Outcome != "" {
 		return nil
 	}
@@ -142,6 +155,14 @@ func (r *Reconciler) watchAlternatives(ctx context.Context, p *pass) error {
 	target := vw.version(best.Version)
 	if target == nil {
 		a.Outcome = altNoneQualified
+		return nil
+	}
+	if !line.Spec.Gate.Allows(v1alpha1.SwitchAlternatives) {
+		a.Outcome = altNeedsPerson
+		msg := fmt.Sprintf("%s; %s passed the gate against %s (score %s), and %s", altReasonText(a.Reason), target.Name, a.Against, orNone(best.Score),
+			askPerson(line, []string{target.Name}))
+		p.judge(judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionTrue, reason: reasonAlternativeNeedsPerson, message: msg, sticky: true,
+			event: lineEvent(line, target, fmt.Sprintf("Alternatives/%d", a.Number), corev1.EventTypeWarning, "NeedsReview", msg)})
 		return nil
 	}
 	a.Outcome, a.Chosen = altSwitched, target.Name
@@ -203,6 +224,7 @@ const (
 	reasonNoFallback        = "NoFallback"
 	reasonRollbackWaits     = "RollbackWaits"
 	reasonSwitchingFallback = "SwitchingToFallback"
+	reasonSwitchNeedsPerson = "SwitchNeedsPerson"
 )
 
 // guardVerdict is what a guard result calls for.
@@ -234,13 +256,36 @@ func lastAutomaticRollback(vw *view) *time.Time {
 }
 
 // fallbackTarget is where the guard switches to: the first of the line's
-// fallbacks (policy.Fallbacks), or nil with what was ruled out.
-func fallbackTarget(line *v1alpha1.ModelLine, vw *view, live *v1alpha1.ModelVersion) (*v1alpha1.ModelVersion, v1alpha1.PromotionKind, string) {
+// fallbacks (policy.Fallbacks) that spec.gate lets it switch to without a
+// person. With none, it returns nil and why: what was ruled out, or the
+// fallbacks a person must choose between (held, non-empty).
+func fallbackTarget(line *v1alpha1.ModelLine, vw *view, live *v1alpha1.ModelVersion) (target *v1alpha1.ModelVersion, kind v1alpha1.PromotionKind, why string, held []string) {
 	fbs, why := policy.Fallbacks(line.Spec.Fallback, live, vw.version)
 	if len(fbs) == 0 {
-		return nil, "", why
+		return nil, "", why, nil
 	}
-	return fbs[0].Version, fbs[0].Kind, ""
+	for _, f := range fbs {
+		if line.Spec.Gate.Allows(switchOf(f.Kind)) {
+			return f.Version, f.Kind, "", nil
+		}
+		held = append(held, f.Version.Name)
+	}
+	return nil, "", "", held
+}
+
+// switchOf is the automatic switch a guard's switch of kind is.
+func switchOf(kind v1alpha1.PromotionKind) v1alpha1.UnattendedSwitch {
+	if kind == v1alpha1.PromotionFallback {
+		return v1alpha1.SwitchRuleBasedFallback
+	}
+	return v1alpha1.SwitchRollback
+}
+
+// askPerson is the advice of a switch the line leaves to a person: which
+// versions could serve, and the command that switches to one.
+func askPerson(line *v1alpha1.ModelLine, versions []string) string {
+	return fmt.Sprintf("%s could serve instead, but spec.gate.withoutApproval leaves this switch to a person (approval %s): kubectl plumbline rollback %s --to %s -n %s",
+		strings.Join(versions, " or "), line.Spec.Gate.Approval, line.Name, versions[0], line.Namespace)
 }
 
 // decideGuard turns a guard result into a verdict: a sustained regression
@@ -273,7 +318,11 @@ func decideGuard(line *v1alpha1.ModelLine, vw *view, res trigger.Result, now tim
 		return guardVerdict{degraded: metav1.ConditionTrue, reason: reasonRollbackLimit, review: true,
 			message: fmt.Sprintf("%s; the line already switched automatically at %s, and switches at most once per probation window (%ds): a person should decide", regressed, last.UTC().Format(time.RFC3339), g.ProbationSeconds)}
 	}
-	target, kind, why := fallbackTarget(line, vw, live)
+	target, kind, why, held := fallbackTarget(line, vw, live)
+	if len(held) > 0 {
+		return guardVerdict{degraded: metav1.ConditionTrue, reason: reasonSwitchNeedsPerson, review: true,
+			message: fmt.Sprintf("%s; %s", regressed, askPerson(line, held))}
+	}
 	if target == nil {
 		return guardVerdict{degraded: metav1.ConditionTrue, reason: reasonNoFallback, review: true,
 			message: fmt.Sprintf("%s; there is nothing to fall back to (%s)", regressed, why)}
@@ -301,7 +350,7 @@ func guardJudgements(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion, v gu
 			event: lineEvent(line, live, "Guard/"+v.reason, corev1.EventTypeWarning, "NeedsReview", v.message)})
 	case v.degraded == metav1.ConditionFalse:
 		js = append(js, judgement{cond: v1alpha1.ConditionNeedsReview, status: metav1.ConditionFalse, reason: "Recovered",
-			message: "the guard finds the live version healthy again", onlyWhile: []string{reasonRollbackLimit, reasonNoFallback}})
+			message: "the guard finds the live version healthy again", onlyWhile: []string{reasonRollbackLimit, reasonNoFallback, reasonSwitchNeedsPerson}})
 	}
 	return js
 }

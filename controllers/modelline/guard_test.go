@@ -75,6 +75,25 @@ func TestDecideGuard(t *testing.T) {
 			v0.Status.Reason = v1alpha1.ReasonRolledBack
 			rules.Status.Phase = v1alpha1.PhaseFailed
 		}, firing, in, metav1.ConditionTrue, reasonNoFallback, "", "", true},
+		{"Manual: the rollback to a version that served before is allowed", func(l *v1alpha1.ModelLine, _ *view, _, _, _ *v1alpha1.ModelVersion) {
+			l.Spec.Gate.Approval = v1alpha1.ApprovalManual
+		}, firing, in, metav1.ConditionTrue, reasonRegressed, "v0", v1alpha1.PromotionRollback, false},
+		{"Manual: the rule-based fallback waits for a person", func(l *v1alpha1.ModelLine, _ *view, _, _, _ *v1alpha1.ModelVersion) {
+			l.Spec.Gate.Approval = v1alpha1.ApprovalManual
+			l.Spec.Fallback.Previous = ptr.To(false)
+		}, firing, in, metav1.ConditionTrue, reasonSwitchNeedsPerson, "", "", true},
+		{"Manual allowing the rule-based fallback", func(l *v1alpha1.ModelLine, _ *view, _, _, _ *v1alpha1.ModelVersion) {
+			l.Spec.Gate.Approval = v1alpha1.ApprovalManual
+			l.Spec.Gate.WithoutApproval = &v1alpha1.UnattendedSwitches{RuleBasedFallback: ptr.To(true)}
+			l.Spec.Fallback.Previous = ptr.To(false)
+		}, firing, in, metav1.ConditionTrue, reasonSwitchingFallback, "rules", v1alpha1.PromotionFallback, false},
+		{"rollback switched off: the rule-based fallback", func(l *v1alpha1.ModelLine, _ *view, _, _, _ *v1alpha1.ModelVersion) {
+			l.Spec.Gate.WithoutApproval = &v1alpha1.UnattendedSwitches{Rollback: ptr.To(false)}
+		}, firing, in, metav1.ConditionTrue, reasonSwitchingFallback, "rules", v1alpha1.PromotionFallback, false},
+		{"Manual, rollback switched off: a person", func(l *v1alpha1.ModelLine, _ *view, _, _, _ *v1alpha1.ModelVersion) {
+			l.Spec.Gate.Approval = v1alpha1.ApprovalManual
+			l.Spec.Gate.WithoutApproval = &v1alpha1.UnattendedSwitches{Rollback: ptr.To(false)}
+		}, firing, in, metav1.ConditionTrue, reasonSwitchNeedsPerson, "", "", true},
 		{"a rollout in progress", func(_ *v1alpha1.ModelLine, vw *view, _, _, _ *v1alpha1.ModelVersion) {
 			vw.versions = append(vw.versions, version("v2", 2, v1alpha1.PhasePromoting, v1alpha1.SourceTrained))
 		}, firing, in, metav1.ConditionTrue, reasonRollbackWaits, "", "", false},
@@ -94,6 +113,13 @@ func TestDecideGuard(t *testing.T) {
 		}
 		if c.target != "" && !strings.Contains(v.message, "switching to "+c.target) {
 			t.Errorf("%s: message %q", c.name, v.message)
+		}
+		if c.reason == reasonSwitchNeedsPerson {
+			for _, want := range []string{"spec.gate.withoutApproval", "kubectl plumbline rollback", "--to "} {
+				if !strings.Contains(v.message, want) {
+					t.Errorf("%s: message %q lacks %q", c.name, v.message, want)
+				}
+			}
 		}
 	}
 }

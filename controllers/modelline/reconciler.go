@@ -3,6 +3,7 @@ package modelline
 import (
 	"context"
 	"fmt"
+	"slices"
 	"sort"
 	"strings"
 	"sync"
@@ -183,11 +184,19 @@ func conclude(p *pass, obs lineObservation, phaseErr error) bool {
 }
 
 // setAttention writes ActionRequired, then Ready, from the line's other
-// conditions, and reports whether Ready changed.
+// conditions, and reports whether Ready changed. A Degraded verdict on a
+// version that no longer serves (the guard has not judged the one that
+// replaced it yet) is not read: it says nothing of the line now.
 func setAttention(line *v1alpha1.ModelLine, setup *metav1.Condition, live *v1alpha1.ModelVersion, now metav1.Time) bool {
 	conds := &line.Status.Conditions
-	setCondition(conds, actionRequiredCondition(*conds, setup), line.Generation, now)
-	return setCondition(conds, readyCondition(line.Spec.Suspend, setup, *conds, live), line.Generation, now)
+	current := slices.Clone(*conds)
+	if g := line.Status.Guard; live == nil || g == nil || g.Name != live.Name {
+		current = slices.DeleteFunc(current, func(c metav1.Condition) bool { return c.Type == v1alpha1.ConditionDegraded })
+	}
+	action := actionRequiredCondition(current, setup)
+	setCondition(conds, action, line.Generation, now)
+	meta.SetStatusCondition(&current, action)
+	return setCondition(conds, readyCondition(line.Spec.Suspend, setup, current, live), line.Generation, now)
 }
 
 // write writes each status the pass changed, once: the versions first (the

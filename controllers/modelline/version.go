@@ -58,7 +58,7 @@ func (r *Reconciler) step(ctx context.Context, line *v1alpha1.ModelLine, vw *vie
 	case "", v1alpha1.PhasePending:
 		if v.Spec.Source == v1alpha1.SourceImported {
 			if vw.live() == nil {
-				startPromotion(line, vw, v, p, reasonInitial, "the line has no live version: the first imported version goes live without a gate")
+				firstImport(line, vw, v, p)
 				return nil
 			}
 			return r.startEvaluation(ctx, line, vw, v, nil, p)
@@ -79,6 +79,24 @@ func (r *Reconciler) step(ctx context.Context, line *v1alpha1.ModelLine, vw *vie
 		return r.promote(ctx, line, vw, v, p)
 	}
 	return nil
+}
+
+// firstImport takes the first Imported version of a line with nothing live
+// to its rollout without a gate, when spec.gate lets it go without a person
+// or a person approved it; else it waits for a person's decision.
+func firstImport(line *v1alpha1.ModelLine, vw *view, v *v1alpha1.ModelVersion, p *pass) {
+	switch {
+	case line.Spec.Gate.Allows(v1alpha1.SwitchFirstImport):
+		startPromotion(line, vw, v, p, reasonInitial, "the line has no live version: the first imported version goes live without a gate")
+	case v.Spec.Decision == v1alpha1.DecisionApproved:
+		v.Status.DecisionTime = &p.now
+		startPromotion(line, vw, v, p, reasonApprovedByPerson, "the line has no live version: the first imported version goes live without a gate, approved beforehand")
+	default:
+		msg := fmt.Sprintf("the line has no live version, and under %s approval the first imported version goes live (without a gate) only once a person approves it: kubectl plumbline approve %s -n %s (spec.gate.withoutApproval.firstImport: true lets it go unattended)",
+			line.Spec.Gate.Approval, v.Name, v.Namespace)
+		p.setPhase(v, v1alpha1.PhaseAwaitingApproval, reasonWaitingDecision, msg)
+		p.event(line, v, corev1.EventTypeNormal, "AwaitingApproval", "version %s, the line's first, waits for a person's decision", v.Name)
+	}
 }
 
 func noteOr(note, fallback string) string {

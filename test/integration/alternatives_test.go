@@ -3,6 +3,8 @@ package integration
 import (
 	"testing"
 
+	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
+
 	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
@@ -84,4 +86,40 @@ func TestAlternativesNoneQualify(t *testing.T) {
 	if v := getVersion(t, ns, initial); v.Status.Phase != v1alpha1.PhaseLive {
 		t.Errorf("v0 is %s", v.Status.Phase)
 	}
+}
+
+// Under Manual approval the alternatives are evaluated as before, but the
+// switch to the best one is left to a person: the line names it and the
+// command, and nothing changes what serves until a person asks.
+func TestAlternativesUnderManualWaitForAPerson(t *testing.T) {
+	key := watchedLine(t, "alt-manual", func(o *unstructured.Unstructured) {
+		mustSet(t, o, "spec.gate.approval", "Manual")
+	})
+	ns := key.Namespace
+	stateAt(t, key, hm(4, 0), v1alpha1.TriggerFiring)
+	waitJob(t, ns, "late-risk-rules-alt1")
+	succeedJob(t, ns, "late-risk-rules-alt1", encode(t, passingReport()))
+	line := waitLineCondition(t, key, v1alpha1.ConditionNeedsReview, metav1.ConditionTrue, "AlternativeNeedsPerson")
+	mustContain(t, "NeedsReview message", meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionNeedsReview).Message,
+		rulesName+" passed the gate", "spec.gate.withoutApproval", "kubectl plumbline rollback late-risk --to "+rulesName)
+	if a := line.Status.Alternatives; a.Outcome != "LeftToPerson" || a.Chosen != "" {
+		t.Errorf("alternatives %+v", a)
+	}
+	if err := expectCondition(line.Status.Conditions, v1alpha1.ConditionActionRequired, metav1.ConditionTrue, v1alpha1.ConditionNeedsReview); err != nil {
+		t.Error(err)
+	}
+	settle()
+	if v := getVersion(t, ns, rulesName); v.Status.Phase != v1alpha1.PhaseStandby {
+		t.Fatalf("the rules are %s before a person asked", v.Status.Phase)
+	}
+
+	// A person takes the advice.
+	setAnnotation(t, key, v1alpha1.RollbackRequestAnnotation, rulesName)
+	rules := waitPhase(t, ns, rulesName, v1alpha1.PhasePromoting)
+	if rules.Status.Promotion.Kind != v1alpha1.PromotionRequested {
+		t.Errorf("kind %s, want Requested", rules.Status.Promotion.Kind)
+	}
+	rollOutTo(t, ns, rulesName)
+	waitPhase(t, ns, rulesName, v1alpha1.PhaseLive)
+	waitLineCondition(t, key, v1alpha1.ConditionNeedsReview, metav1.ConditionFalse, "Answered")
 }

@@ -295,15 +295,26 @@ func (r *chaosRun) check(l chaosLine, final bool) {
 	}
 	var maxSeq int64
 	for _, v := range byName {
-		// No version Live without a passing gate and, the line being
-		// Manual, a person's approval.
+		// No trained version Live without a passing gate; the line being
+		// Manual, nothing Live that a person did not approve, except what
+		// the line allows: the guard's rollback and its switch to the
+		// rules (never an alternative).
 		r.checks++
-		if v.Status.Phase == v1alpha1.PhaseLive && v.Spec.Source == v1alpha1.SourceTrained {
-			if v.Status.Gate == nil || v.Status.Gate.Verdict != v1alpha1.GatePassed {
+		if v.Status.Phase == v1alpha1.PhaseLive {
+			if v.Spec.Source == v1alpha1.SourceTrained && (v.Status.Gate == nil || v.Status.Gate.Verdict != v1alpha1.GatePassed) {
 				r.violation("%s: %s is Live without a passing gate (%+v)", ns, v.Name, v.Status.Gate)
 			}
-			if c := meta.FindStatusCondition(v.Status.Conditions, v1alpha1.ConditionApproved); c == nil || c.Status != metav1.ConditionTrue || v.Spec.Decision != v1alpha1.DecisionApproved {
-				r.violation("%s: %s is Live without a person's approval (decision %q, condition %+v)", ns, v.Name, v.Spec.Decision, c)
+			kind := v1alpha1.PromotionCandidate
+			if v.Status.Promotion != nil && v.Status.Promotion.Kind != "" {
+				kind = v.Status.Promotion.Kind
+			}
+			switch kind {
+			case v1alpha1.PromotionCandidate:
+				if c := meta.FindStatusCondition(v.Status.Conditions, v1alpha1.ConditionApproved); c == nil || c.Status != metav1.ConditionTrue || v.Spec.Decision != v1alpha1.DecisionApproved {
+					r.violation("%s: %s is Live without a person's approval (decision %q, condition %+v)", ns, v.Name, v.Spec.Decision, c)
+				}
+			case v1alpha1.PromotionAlternative:
+				r.violation("%s: %s is Live as an alternative, a switch a Manual line leaves to a person", ns, v.Name)
 			}
 		}
 		// No switch restores the version it replaces: what it records to
@@ -481,6 +492,7 @@ func chaosLines(t *testing.T, prefix string) []chaosLine {
 		}
 		key := liveLine(t, ns, func(o *unstructured.Unstructured) {
 			mustSet(t, o, "spec.gate.approval", "Manual")
+			mustSet(t, o, "spec.gate.withoutApproval", map[string]any{"ruleBasedFallback": true})
 			mustSet(t, o, "spec.fallback.previous", previous)
 			mustSet(t, o, "spec.guard", map[string]any{
 				"query": `larkspur_live_auc{scenario="chaos"}`, "below": 0.76,

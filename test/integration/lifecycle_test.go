@@ -80,6 +80,11 @@ func liveLine(t *testing.T, ns string, mutate func(*unstructured.Unstructured)) 
 	if err := k8s.Create(ctx, v0); err != nil {
 		t.Fatal(err)
 	}
+	if approval, _, _ := unstructured.NestedString(line.Object, "spec", "gate", "approval"); approval == "Manual" {
+		// Under Manual even the first version waits for a person.
+		waitPhase(t, ns, initial, v1alpha1.PhaseAwaitingApproval)
+		decide(t, ns, initial, v1alpha1.DecisionApproved, "the line's first model, reviewed")
+	}
 	waitPhase(t, ns, initial, v1alpha1.PhasePromoting)
 	rollOutTo(t, ns, initial)
 	waitPhase(t, ns, initial, v1alpha1.PhaseLive)

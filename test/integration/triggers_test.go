@@ -91,6 +91,7 @@ var scenarios = map[string]scenario{
 	// Alternatives: a drop with too few labels to retrain on; a live
 	// version degraded after probation.
 	"alt-insufficient": {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(3000)},
+	"alt-manual":       {auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(3000)},
 	"alt-degraded":     guardScenario([2]time.Time{hm(3, 0), hm(12, 0)}),
 	// A twenty-minute dip at 03:00: shorter than the one-hour window.
 	"dip": {auc: func(t time.Time) float64 {
