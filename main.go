@@ -33,6 +33,7 @@ import (
 
 	"plumbline.dev/plumbline/internal/manager"
 	"plumbline.dev/plumbline/internal/tools/backtest"
+	"plumbline.dev/plumbline/internal/tools/cli"
 	"plumbline.dev/plumbline/internal/tools/ctl"
 	"plumbline.dev/plumbline/internal/tools/datacheck"
 	"plumbline.dev/plumbline/internal/tools/demo"
@@ -63,7 +64,7 @@ var commands = []command{
 
 // errUsage marks an error whose message is already the whole story (bad
 // flags): it exits 2 without a stack of context.
-var errUsage = errors.New("usage")
+var errUsage = cli.ErrUsage
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
@@ -115,27 +116,25 @@ func usage(w io.Writer) {
 		fmt.Fprintf(w, "  %-10s %s\n", c.name, c.summary)
 	}
 	fmt.Fprintln(w)
-	fmt.Fprintln(w, "Run 'plumbline <command> -h' for a command's flags.")
+	fmt.Fprintln(w, "Run 'plumbline <command> --help' for a command's flags and examples.")
 }
 
 // parseFlags parses args, printing errors and help to stderr.
-func parseFlags(fs *flag.FlagSet, args []string, stderr io.Writer) error {
-	fs.SetOutput(stderr)
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return errUsage
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "unexpected arguments: %s\n", strings.Join(fs.Args(), " "))
-		return errUsage
-	}
-	return nil
+func parseFlags(fs *flag.FlagSet, args []string, _ io.Writer) error {
+	return cli.Parse(fs, args, 0)
 }
 
 func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
-	fs := flag.NewFlagSet("plumbline manager", flag.ContinueOnError)
+	fs := cli.NewFlagSet(cli.Command{
+		Name:     "plumbline manager",
+		Synopsis: "[flags]",
+		Summary:  "Run the controller against the cluster of the current kubeconfig (in a Pod: its ServiceAccount).",
+		Examples: []string{
+			"plumbline manager --prometheus-url http://prometheus.monitoring:9090 --leader-elect",
+			"# only two namespaces, more lines at once",
+			"plumbline manager --namespaces larkspur,larkspur-staging --max-concurrent-reconciles 8",
+		},
+	}, stderr)
 	var o manager.Options
 	var namespaces string
 	fs.StringVar(&o.MetricsAddr, "metrics-bind-address", ":8080", "address the Prometheus metrics are served on; 0 turns them off")
@@ -158,7 +157,7 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 		}
 	}
 	if err := o.Validate(); err != nil {
-		return err
+		return cli.Usagef(fs, "%v", err)
 	}
 	ctrl.SetLogger(zap.New(zap.UseFlagOptions(&zapOpts)))
 
@@ -213,7 +212,13 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 			return demoTool(demo.Extract(args[1:], stdout, stderr))
 		}
 	}
-	fs := flag.NewFlagSet("plumbline demo", flag.ContinueOnError)
+	fs := cli.NewFlagSet(cli.Command{
+		Name:     "plumbline demo",
+		Synopsis: "[flags]",
+		Summary: "Run the Larkspur Parcels story (synthetic data) on a simulated cluster on loopback: a real API server,\n" +
+			"controller manager and scheduler, kwok nodes, Prometheus, and the plumbline controller.",
+		Examples: []string{"make demo   # builds what it needs, then runs: plumbline demo --assets bin/k8s --crds config/crd/bases"},
+	}, stderr)
 	var o demo.Options
 	fs.StringVar(&o.CRDDir, "crds", "config/crd/bases", "directory of the CRD manifests to install")
 	fs.StringVar(&o.AssetsDir, "assets", "bin/k8s", "directory holding etcd, kube-apiserver, kube-controller-manager, kube-scheduler and kwok (make simcluster builds them)")

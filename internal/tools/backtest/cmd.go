@@ -2,21 +2,48 @@ package backtest
 
 import (
 	"context"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"math"
+	"path/filepath"
 	"strings"
 	"time"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/schedule"
+	"plumbline.dev/plumbline/internal/tools/cli"
 	"plumbline.dev/plumbline/internal/tools/outfile"
 )
 
 // ErrUsage marks bad flags, already explained on stderr.
-var ErrUsage = errors.New("usage")
+var ErrUsage = cli.ErrUsage
+
+// The commands' help.
+var (
+	command = cli.Command{
+		Name:     "plumbline backtest",
+		Synopsis: "--history FILE (--line FILE | --policies FILE | --schedule CRON | --trigger SPEC | --cusum SPEC)... [flags]",
+		Summary: "Replay retraining policies over a quality history: how long each leaves quality below target, how many\n" +
+			"retrains it starts, how late it answers a drop; and recommend one.",
+		Examples: []string{
+			"# the sample line against a weekly schedule and a CUSUM detector",
+			"plumbline backtest --history auc.csv --line config/samples/larkspur_v1alpha1_modelline.yaml --line-triggers auc-drop \\",
+			"    --schedule \"30 2 * * 1\" --cusum k=0.005,h=0.05 --chart policies.svg",
+			"# an error metric, where lower is better",
+			"plumbline backtest --history rmse.csv --better lower --target 4.5 --trigger above=4.5,for=6h,every=5m",
+		},
+	}
+	stalenessHelp = cli.Command{
+		Name:     "plumbline backtest staleness",
+		Synopsis: "--history FILE --trained-at TIME --target VALUE [flags]",
+		Summary:  "Fit how fast a model's quality decays since it was trained, and say how often to retrain to stay on target.",
+		Examples: []string{
+			"plumbline backtest staleness --history batches.csv --trained-at 2026-10-01T00:00:00Z --target 0.80 --chart decay.svg",
+		},
+	}
+)
 
 // list is a repeatable flag.
 type list []string
@@ -37,6 +64,14 @@ func (f *historyFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.from, "from", "", "start of the history (RFC 3339)")
 	fs.StringVar(&f.to, "to", "", "end of the history (RFC 3339; default now)")
 	fs.DurationVar(&f.step, "step", 5*time.Minute, "resolution of the range query")
+}
+
+// given refuses, before any work, a command line that gives no history.
+func (f *historyFlags) given(usage func(string, ...any) error) error {
+	if f.path == "" && f.url == "" {
+		return usage("--history is required (or --prometheus-url with --query and --from)")
+	}
+	return nil
 }
 
 func (f *historyFlags) load(ctx context.Context, usage func(string, ...any) error) (*History, error) {
@@ -78,8 +113,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	if len(args) > 0 && args[0] == "staleness" {
 		return stalenessCommand(ctx, args[1:], stdout, stderr)
 	}
-	fs := flag.NewFlagSet("plumbline backtest", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cli.NewFlagSet(command, stderr)
 	var (
 		hf                                                    historyFlags
 		line, lineTriggers, policies, out, chart, chartPolicy string
@@ -109,11 +143,8 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	fs.StringVar(&out, "out", "", "write the JSON report here")
 	fs.StringVar(&chart, "chart", "", "draw the recommended policy (or --chart-policy) to this .svg or .png file")
 	fs.StringVar(&chartPolicy, "chart-policy", "", "the policy to draw (default: the recommended one)")
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return ErrUsage
+	if err := cli.Parse(fs, args, 0); err != nil {
+		return err
 	}
 	fs.Visit(func(f *flag.Flag) {
 		switch f.Name {
@@ -125,12 +156,12 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 			chartPolicySet = true
 		}
 	})
-	usage := func(format string, args ...any) error {
-		fmt.Fprintf(stderr, format+"\n", args...)
-		return ErrUsage
+	usage := func(format string, args ...any) error { return cli.Usagef(fs, format, args...) }
+	if err := hf.given(usage); err != nil {
+		return err
 	}
-	if fs.NArg() > 0 {
-		return usage("unexpected arguments: %s", strings.Join(fs.Args(), " "))
+	if err := chartFile(chart); err != nil {
+		return usage("%v", err)
 	}
 	switch {
 	case o.RetrainTakes < 0:
@@ -176,11 +207,10 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		ps = append(ps, more...)
 	}
 	for _, s := range schedules {
-		p := Policy{Name: fmt.Sprintf("cron %q", s), Schedule: &v1alpha1.ScheduleSpec{Cron: s}}
-		if err := Validate(p, "--schedule"); err != nil {
-			return usage("%v", err)
+		if _, err := schedule.Compute(s, "", time.Unix(0, 0), time.Unix(0, 0), nil); err != nil {
+			return usage("--schedule %q: %v", s, strings.TrimPrefix(err.Error(), "spec.schedule.cron: "))
 		}
-		ps = append(ps, p)
+		ps = append(ps, Policy{Name: fmt.Sprintf("cron %q", s), Schedule: &v1alpha1.ScheduleSpec{Cron: s}})
 	}
 	for _, s := range triggers {
 		p, err := ParseTrigger(s)
@@ -240,8 +270,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 }
 
 func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("plumbline backtest staleness", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cli.NewFlagSet(stalenessHelp, stderr)
 	var (
 		hf                    historyFlags
 		trainedAt, out, chart string
@@ -257,19 +286,17 @@ func stalenessCommand(ctx context.Context, args []string, stdout, stderr io.Writ
 	fs.DurationVar(&takes, "retrain-takes", takes, "from a retrain's start to its version serving")
 	fs.StringVar(&out, "out", "", "write the JSON analysis here")
 	fs.StringVar(&chart, "chart", "", "draw the fits to this .svg or .png file")
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return ErrUsage
+	if err := cli.Parse(fs, args, 0); err != nil {
+		return err
 	}
-	usage := func(format string, args ...any) error {
-		fmt.Fprintf(stderr, format+"\n", args...)
-		return ErrUsage
+	usage := func(format string, args ...any) error { return cli.Usagef(fs, format, args...) }
+	if err := hf.given(usage); err != nil {
+		return err
+	}
+	if err := chartFile(chart); err != nil {
+		return usage("%v", err)
 	}
 	switch {
-	case fs.NArg() > 0:
-		return usage("unexpected arguments: %s", strings.Join(fs.Args(), " "))
 	case trainedAt == "":
 		return usage("--trained-at is required")
 	case math.IsNaN(target) || math.IsInf(target, 0):
@@ -331,4 +358,16 @@ func betterWord(lower bool) string {
 		return "lower"
 	}
 	return "higher"
+}
+
+// chartFile refuses, before any work, a chart file of a kind that cannot be
+// drawn; empty is no chart.
+func chartFile(path string) error {
+	if path == "" {
+		return nil
+	}
+	if ext := strings.ToLower(filepath.Ext(path)); ext != ".svg" && ext != ".png" {
+		return fmt.Errorf("--chart %s: name an .svg or .png file", path)
+	}
+	return nil
 }

@@ -154,6 +154,24 @@ func TestCommandErrors(t *testing.T) {
 			t.Errorf("%v: %v (stderr %q), want a usage error explained", args, err, stderr.String())
 		}
 	}
+	// Errors name the flag as typed, and are found before any file is
+	// read: a missing history, a chart that cannot be drawn.
+	missing := filepath.Join(dir, "no-such-history.csv")
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--history", hist, "--target", "0.8", "--schedule", "61 * * * *"}, `error: --schedule "61 * * * *": end of range (61) above maximum (59)`},
+		{[]string{"--target", "0.8", "--schedule", "@daily"}, "error: --history is required"},
+		{[]string{"--history", missing, "--target", "0.8", "--schedule", "@daily", "--chart", "drops.gif"}, "error: --chart drops.gif: name an .svg or .png file"},
+		{[]string{"staleness", "--history", missing, "--trained-at", "2026-10-01T00:00:00Z", "--target", "0.8", "--chart", "decay.pdf"}, "error: --chart decay.pdf"},
+	} {
+		var stderr bytes.Buffer
+		err := Command(context.Background(), c.args, io.Discard, &stderr)
+		if !errors.Is(err, ErrUsage) || !strings.Contains(stderr.String(), c.want) || strings.Contains(stderr.String(), "spec.") {
+			t.Errorf("%v: %v, stderr %q; want a usage error with %q", c.args, err, stderr.String(), c.want)
+		}
+	}
 	bad := map[string]string{
 		"time,value\n2026-09-07T00:00:00Z,0.8\n2026-09-06T00:00:00Z,0.8\n": "is not after the row before",
 		"time,value\nMonday,0.8\n2026-09-08T00:00:00Z,0.8\n":               "column time",

@@ -148,7 +148,7 @@ func readReference(o Options) (*result, error) {
 		s.Columns = append([]ColumnSchema(nil), o.Schema.Columns...)
 		res.schema = &s
 		for _, c := range s.Columns {
-			res.closed = append(res.closed, c.Type == Categorical && len(c.Categories) > 0)
+			res.closed = append(res.closed, c.Type == Categorical && c.Closed)
 		}
 	}
 	format, err := table.FormatOf(o.Reference, o.Format)

@@ -1,8 +1,6 @@
 package datacheck
 
 import (
-	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"math"
@@ -11,18 +9,33 @@ import (
 	"strings"
 
 	"plumbline.dev/plumbline/internal/contract/termination"
+	"plumbline.dev/plumbline/internal/tools/cli"
 	"plumbline.dev/plumbline/internal/tools/outfile"
 )
 
 // ErrUsage marks bad flags, already explained on stderr.
-var ErrUsage = errors.New("usage")
+var ErrUsage = cli.ErrUsage
+
+// command is datacheck's help.
+var command = cli.Command{
+	Name:     "plumbline datacheck",
+	Synopsis: "--reference FILE --current FILE [flags]",
+	Summary: "Check a current batch of data against a reference batch: quality (missing values, type errors, out-of-range\n" +
+		"values, unseen categories, duplicates, malformed rows) blocks a retrain; drift (KS, chi-square, PSI, with the\n" +
+		"Benjamini-Hochberg correction) is reported with the weight of the features that moved.",
+	Examples: []string{
+		"# infer a schema from the reference, to review and keep",
+		"plumbline datacheck --reference train.csv --id parcel_id --write-schema schema.yaml",
+		"# check this week's batch with it",
+		"plumbline datacheck --reference train.csv --current week48.csv --schema schema.yaml --weights depot=3 --out check.json",
+	},
+}
 
 // Command runs plumbline datacheck. It returns ErrUsage for bad flags, an
 // *InputError for input that cannot be checked, and nil when the check ran,
 // whatever it found.
 func Command(args []string, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("plumbline datacheck", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cli.NewFlagSet(command, stderr)
 	o := DefaultOptions()
 	var schemaFile, writeSchema, out, termFile, weights string
 	fs.StringVar(&o.Reference, "reference", "", "the reference batch, the data the live model learned from: CSV with a header, JSON Lines or Parquet (required)")
@@ -49,19 +62,10 @@ func Command(args []string, stdout, stderr io.Writer) error {
 	fs.Float64Var(&o.Limits.DuplicateIDs, "max-duplicate-ids", o.Limits.DuplicateIDs, "share of rows repeating an earlier row's id")
 	fs.Float64Var(&o.Limits.MalformedRows, "max-malformed-rows", o.Limits.MalformedRows, "share of rows that are malformed (wrong field count, bad quoting, bad JSON)")
 	fs.Int64Var(&o.Limits.MinRows, "min-rows", o.Limits.MinRows, "fewest rows the current batch may have")
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return ErrUsage
+	if err := cli.Parse(fs, args, 0); err != nil {
+		return err
 	}
-	usage := func(format string, args ...any) error {
-		fmt.Fprintf(stderr, format+"\n", args...)
-		return ErrUsage
-	}
-	if fs.NArg() > 0 {
-		return usage("unexpected arguments: %s", strings.Join(fs.Args(), " "))
-	}
+	usage := func(format string, args ...any) error { return cli.Usagef(fs, format, args...) }
 	for _, l := range []struct {
 		name string
 		v    float64

@@ -10,6 +10,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -94,7 +95,7 @@ func TestQualityFindings(t *testing.T) {
 	o := opts(ref, curPath)
 	o.Schema = &Schema{ID: "parcel_id", Columns: []ColumnSchema{
 		{Name: "distance_km", Type: Numeric, Min: &min, Max: &max},
-		{Name: "depot", Type: Categorical, Categories: depots},
+		{Name: "depot", Type: Categorical, Categories: depots, Closed: true},
 		{Name: "postcode", Type: Categorical},
 		{Name: "promised_hours", Type: Numeric, Required: true},
 	}}
@@ -290,8 +291,15 @@ func TestInferWriteAndReuseSchema(t *testing.T) {
 	}
 	dist := s.column("distance_km")
 	ref0 := column(t, first, "distance_km").Reference
-	if w := 3 * (*ref0.Max - *ref0.Min); math.Abs(*dist.Min-(*ref0.Min-w)) > 1e-9 || math.Abs(*dist.Max-(*ref0.Max+w)) > 1e-9 {
-		t.Errorf("bounds [%v, %v], want the observed [%v, %v] widened by three widths", *dist.Min, *dist.Max, *ref0.Min, *ref0.Max)
+	// Widened by three widths each side, rounded outward to three
+	// significant digits of the widening: a number a person would write.
+	if w := 3 * (*ref0.Max - *ref0.Min); *dist.Min > *ref0.Min-w || *dist.Min < *ref0.Min-w-w/100 || *dist.Max < *ref0.Max+w || *dist.Max > *ref0.Max+w+w/100 {
+		t.Errorf("bounds [%v, %v], want the observed [%v, %v] widened by three widths (%v), rounded outward", *dist.Min, *dist.Max, *ref0.Min, *ref0.Max, w)
+	}
+	for _, b := range []float64{*dist.Min, *dist.Max} {
+		if txt := strconv.FormatFloat(b, 'g', -1, 64); len(strings.TrimLeft(strings.ReplaceAll(txt, ".", ""), "-0")) > 6 {
+			t.Errorf("bound %s is not a clean number", txt)
+		}
 	}
 	if wk := s.column("weight_kg"); *wk.Min != 0 {
 		t.Errorf("weight_kg is never negative, its lower bound %v should stay 0", *wk.Min)
@@ -336,7 +344,14 @@ func TestSchemaValidation(t *testing.T) {
 		{"columns:\n- name: a\n  type: numeric\n  categories: [x]", "only a categorical column has categories"},
 		{"columns:\n- name: a\n  type: categorical\n  categories: [x, x]", `"x" is listed twice`},
 		{"id: a\ncolumns:\n- name: a\n  type: numeric", "a is the id column"},
-		{"columns:\n- name: a\n  typ: numeric", `unknown field "typ"`},
+		{"columns:\n- name: a\n  typ: numeric", `columns[0] (a).typ: unknown key; a column has name, type,`},
+		{"columns:\n- name: a\n  type: numeric\n  min: low", `columns[0] (a).min: want a number, got the text "low"`},
+		{"columns:\n- name: a\n  type: numeric\n  required: \"yes\"", `columns[0] (a).required: want true or false, got the text "yes"`},
+		{"columns:\n- name: a\n  type: categorical\n  closed: true", "columns[0] (a).closed: a closed column lists its categories"},
+		{"columns:\n- name: a\n  type: numeric\n  closed: true", "columns[0] (a).closed: only a categorical column's categories can be closed"},
+		{"colums:\n- name: a", "colums: unknown key; a schema has id and columns"},
+		{"columns: {name: a}", "columns: want a list of columns, got a mapping"},
+		{"- a", "want a mapping with the keys id and columns, got a list"},
 		{"columns:\n- type: numeric", "columns[0].name: name the column"},
 	}
 	for _, c := range cases {
@@ -606,5 +621,70 @@ func TestCommand(t *testing.T) {
 	// every row: nothing to test for drift.
 	if c := s.column("parcel_id"); c == nil || c.Type != Ignore {
 		t.Errorf("parcel_id inferred as %+v, want ignore", c)
+	}
+}
+
+// A schema written by --write-schema and kept leaves its categories open
+// (closed: false), so a new value is drift, as with an inferred schema; a
+// column marked closed: true makes it a blocking quality finding. The
+// written file has each column's name first.
+func TestCategoriesOpenUnlessClosed(t *testing.T) {
+	dir := t.TempDir()
+	ref := write(t, dir, "ref.csv", rows("parcel_id,depot,distance_km", 400, func(i int) string {
+		return fmt.Sprintf("P%05d,%s,%d", i, depots[i%len(depots)], 10+i%37)
+	}))
+	cur := write(t, dir, "cur.csv", rows("parcel_id,depot,distance_km", 400, func(i int) string {
+		d := depots[i%len(depots)]
+		if i%4 == 0 {
+			d = "Fenwick" // the new depot
+		}
+		return fmt.Sprintf("P%05d,%s,%d", i, d, 10+i%37)
+	}))
+	path := filepath.Join(dir, "schema.yaml")
+	if err := Command([]string{"--reference", ref, "--id", "parcel_id", "--write-schema", path}, io.Discard, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	written := string(raw)
+	for _, want := range []string{"  - name: depot\n    type: categorical\n    closed: false\n    categories:\n      - Ashby", "  - name: distance_km\n    type: numeric\n    min: 0\n"} {
+		if !strings.Contains(written, want) {
+			t.Errorf("written schema lacks %q:\n%s", want, written)
+		}
+	}
+	run := func(schema string) *Report {
+		t.Helper()
+		o := opts(ref, cur)
+		s, err := LoadSchema(schema)
+		if err != nil {
+			t.Fatal(err)
+		}
+		o.Schema, o.SchemaFile = s, schema
+		rep, err := Run(o)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return rep
+	}
+	unseen := func(rep *Report) bool {
+		for _, f := range rep.DataQuality.Findings {
+			if f.Check == "unseen_categories" && f.Column == "depot" {
+				return true
+			}
+		}
+		return false
+	}
+	open := run(path)
+	if unseen(open) || !open.DataQuality.OK {
+		t.Errorf("kept schema, open categories: a new depot is a quality finding: %+v", open.DataQuality.Findings)
+	}
+	if d := column(t, open, "depot").Drift; d == nil || d.PSI == nil || *d.PSI < 0.1 {
+		t.Errorf("kept schema, open categories: a new depot on a quarter of rows is not seen as drift: %+v", d)
+	}
+	closedPath := write(t, dir, "closed.yaml", strings.Replace(written, "    closed: false", "    closed: true", 1))
+	if closed := run(closedPath); !unseen(closed) || closed.DataQuality.OK {
+		t.Errorf("closed categories: a new depot is no quality finding: %+v", closed.DataQuality.Findings)
 	}
 }

@@ -2,10 +2,13 @@ package datacheck
 
 import (
 	"bytes"
+	"encoding/json"
 	"fmt"
 	"math"
 	"os"
+	"regexp"
 	"sort"
+	"strconv"
 	"strings"
 
 	"sigs.k8s.io/yaml"
@@ -46,26 +49,166 @@ type ColumnSchema struct {
 	// Min and Max bound a numeric column; a value outside is out of range.
 	Min *float64 `json:"min,omitempty"`
 	Max *float64 `json:"max,omitempty"`
-	// Categories are the values a categorical column may take; any other
-	// value is an unseen category, a quality finding. Empty: the values of
-	// the reference, left open (a new value is drift, not a finding).
+	// Categories are the values a categorical column is known to take.
+	// Empty: the values of the reference.
 	Categories []string `json:"categories,omitempty"`
+	// Closed says the categories are all a column may take: a value outside
+	// them is an unseen category, a quality finding that blocks retraining.
+	// Open (the default), a new value counts as drift only.
+	Closed bool `json:"closed,omitempty"`
 }
 
-// LoadSchema reads a schema file (YAML or JSON), refusing unknown fields.
+// LoadSchema reads a schema file (YAML or JSON). An unknown key or a value
+// of the wrong kind is refused with the path of the key at fault.
 func LoadSchema(path string) (*Schema, error) {
 	raw, err := os.ReadFile(path)
 	if err != nil {
 		return nil, fmt.Errorf("--schema: %w", err)
 	}
-	var s Schema
-	if err := yaml.UnmarshalStrict(raw, &s); err != nil {
+	s, err := decodeSchema(raw)
+	if err != nil {
 		return nil, fmt.Errorf("--schema %s: %w", path, err)
 	}
 	if err := s.Validate(); err != nil {
 		return nil, fmt.Errorf("--schema %s: %w", path, err)
 	}
-	return &s, nil
+	return s, nil
+}
+
+// decodeSchema reads a schema key by key, so an error names the key as the
+// file spells it (columns[2] (depot).min), not a Go type.
+func decodeSchema(raw []byte) (*Schema, error) {
+	var doc any
+	if err := yaml.Unmarshal(raw, &doc); err != nil {
+		return nil, fmt.Errorf("not YAML or JSON: %w", err)
+	}
+	top, ok := doc.(map[string]any)
+	if !ok {
+		return nil, fmt.Errorf("want a mapping with the keys id and columns, got %s", kindOf(doc))
+	}
+	s := &Schema{}
+	for k, v := range top {
+		switch k {
+		case "id":
+			id, ok := v.(string)
+			if !ok {
+				return nil, fmt.Errorf("id: want a column name, got %s", kindOf(v))
+			}
+			s.ID = id
+		case "columns":
+			list, ok := v.([]any)
+			if !ok {
+				return nil, fmt.Errorf("columns: want a list of columns, got %s", kindOf(v))
+			}
+			for i, item := range list {
+				c, err := decodeColumn(item, i)
+				if err != nil {
+					return nil, err
+				}
+				s.Columns = append(s.Columns, c)
+			}
+		default:
+			return nil, fmt.Errorf("%s: unknown key; a schema has id and columns", k)
+		}
+	}
+	return s, nil
+}
+
+// columnKeys are the keys of a column, in the order a written schema has
+// them.
+var columnKeys = []string{"name", "type", "required", "min", "max", "closed", "categories"}
+
+func decodeColumn(item any, i int) (ColumnSchema, error) {
+	var c ColumnSchema
+	m, ok := item.(map[string]any)
+	if !ok {
+		return c, fmt.Errorf("columns[%d]: want a mapping with the keys %s, got %s", i, strings.Join(columnKeys, ", "), kindOf(item))
+	}
+	at := fmt.Sprintf("columns[%d]", i)
+	if n, ok := m["name"].(string); ok && n != "" {
+		at = fmt.Sprintf("columns[%d] (%s)", i, n)
+	}
+	keys := make([]string, 0, len(m))
+	for k := range m {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	for _, k := range keys {
+		v := m[k]
+		bad := func(want string) error { return fmt.Errorf("%s.%s: want %s, got %s", at, k, want, kindOf(v)) }
+		switch k {
+		case "name", "type":
+			str, ok := v.(string)
+			if !ok {
+				return c, bad("text")
+			}
+			if k == "name" {
+				c.Name = str
+			} else {
+				c.Type = str
+			}
+		case "required", "closed":
+			b, ok := v.(bool)
+			if !ok {
+				return c, bad("true or false")
+			}
+			if k == "required" {
+				c.Required = b
+			} else {
+				c.Closed = b
+			}
+		case "min", "max":
+			f, ok := v.(float64)
+			if !ok {
+				return c, bad("a number")
+			}
+			if k == "min" {
+				c.Min = &f
+			} else {
+				c.Max = &f
+			}
+		case "categories":
+			list, ok := v.([]any)
+			if !ok {
+				return c, bad("a list of values")
+			}
+			for j, x := range list {
+				switch x := x.(type) {
+				case string:
+					c.Categories = append(c.Categories, x)
+				case float64:
+					// A code written unquoted (3) is the text "3".
+					c.Categories = append(c.Categories, strconv.FormatFloat(x, 'f', -1, 64))
+				case bool:
+					c.Categories = append(c.Categories, strconv.FormatBool(x))
+				default:
+					return c, fmt.Errorf("%s.categories[%d]: want a value, got %s", at, j, kindOf(x))
+				}
+			}
+		default:
+			return c, fmt.Errorf("%s.%s: unknown key; a column has %s", at, k, strings.Join(columnKeys, ", "))
+		}
+	}
+	return c, nil
+}
+
+// kindOf names what a decoded YAML value is, for an error.
+func kindOf(v any) string {
+	switch v := v.(type) {
+	case nil:
+		return "nothing"
+	case string:
+		return fmt.Sprintf("the text %q", clip(v, 40))
+	case float64:
+		return fmt.Sprintf("the number %v", v)
+	case bool:
+		return fmt.Sprintf("%v", v)
+	case []any:
+		return "a list"
+	case map[string]any:
+		return "a mapping"
+	}
+	return fmt.Sprintf("%T", v)
 }
 
 // Validate checks a schema, naming the field at fault and the fix.
@@ -90,6 +233,10 @@ func (s *Schema) Validate() error {
 			return fmt.Errorf("%s: min and max bound numeric columns only; remove them or make the type numeric", at)
 		case c.Type != Categorical && len(c.Categories) > 0:
 			return fmt.Errorf("%s.categories: only a categorical column has categories; remove them or make the type categorical", at)
+		case c.Type != Categorical && c.Closed:
+			return fmt.Errorf("%s.closed: only a categorical column's categories can be closed; remove it or make the type categorical", at)
+		case c.Closed && len(c.Categories) == 0:
+			return fmt.Errorf("%s.closed: a closed column lists its categories; list them, or set closed: false to take the reference's values", at)
 		case c.Min != nil && c.Max != nil && *c.Min > *c.Max:
 			return fmt.Errorf("%s: min %v is above max %v", at, *c.Min, *c.Max)
 		case len(c.Categories) > MaxCategories:
@@ -129,24 +276,61 @@ const schemaHeader = `# plumbline datacheck schema, inferred from the reference 
 # say) is inferred numeric and may be categorical; numeric bounds are the
 # reference's observed range widened by three times its width on each side
 # (never below 0 for a column with no negative value), so widen or narrow
-# them to what the data can really hold. Listed categories are closed: a
-# value outside them is a quality finding that blocks retraining. Delete a
-# column's categories to leave it open (a new value then counts as drift).
+# them to what the data can really hold. Categories are written open
+# (closed: false): a new value counts as drift. Set closed: true where the
+# list is all a column may hold, so that a value outside it is a quality
+# finding that blocks retraining.
 `
 
-// Write writes the schema as YAML with a header comment.
+// Write writes the schema as YAML with a header comment, each column's
+// name first.
 func (s *Schema) Write(path, from string) error {
-	body, err := yaml.Marshal(s)
-	if err != nil {
-		return fmt.Errorf("--write-schema: %w", err)
-	}
 	var b bytes.Buffer
 	fmt.Fprintf(&b, schemaHeader, from)
-	b.Write(body)
+	if s.ID != "" {
+		fmt.Fprintf(&b, "id: %s\n", yamlText(s.ID))
+	}
+	b.WriteString("columns:\n")
+	for _, c := range s.Columns {
+		fmt.Fprintf(&b, "  - name: %s\n    type: %s\n", yamlText(c.Name), yamlText(c.Type))
+		if c.Required {
+			b.WriteString("    required: true\n")
+		}
+		if c.Min != nil {
+			fmt.Fprintf(&b, "    min: %s\n", strconv.FormatFloat(*c.Min, 'g', -1, 64))
+		}
+		if c.Max != nil {
+			fmt.Fprintf(&b, "    max: %s\n", strconv.FormatFloat(*c.Max, 'g', -1, 64))
+		}
+		if c.Type == Categorical && len(c.Categories) > 0 {
+			fmt.Fprintf(&b, "    closed: %v\n    categories:\n", c.Closed)
+			for _, v := range c.Categories {
+				fmt.Fprintf(&b, "      - %s\n", yamlText(v))
+			}
+		}
+	}
 	if err := os.WriteFile(path, b.Bytes(), 0o644); err != nil {
 		return fmt.Errorf("--write-schema: %w", err)
 	}
 	return nil
+}
+
+// plainYAML matches text YAML reads back as the same text unquoted.
+var plainYAML = regexp.MustCompile(`^[A-Za-z_][A-Za-z0-9_./-]*( [A-Za-z0-9_./-]+)*$`)
+
+// yamlText writes text as a YAML scalar that reads back as that text:
+// plain when it is a plain word, else double-quoted (a JSON string is a
+// valid YAML double-quoted scalar).
+func yamlText(v string) string {
+	switch strings.ToLower(v) {
+	case "true", "false", "yes", "no", "on", "off", "y", "n", "null", "~":
+	default:
+		if plainYAML.MatchString(v) {
+			return v
+		}
+	}
+	q, _ := json.Marshal(v)
+	return string(q)
 }
 
 // inferType decides a column's type from what the reference held: numeric
@@ -186,11 +370,21 @@ func widen(lo, hi float64) (float64, float64) {
 	if w == 0 {
 		w = 1
 	}
-	low := lo - w
+	// Rounded outward to three significant digits of the widening, so the
+	// written bounds read as numbers a person would write (230.4, not
+	// 230.36999999999998).
+	exp := int(math.Floor(math.Log10(w))) - 2
+	step := math.Pow(10, float64(exp))
+	decimals := max(0, -exp)
+	clean := func(x float64) float64 {
+		v, _ := strconv.ParseFloat(strconv.FormatFloat(x, 'f', decimals, 64), 64)
+		return v
+	}
+	low := clean(math.Floor((lo-w)/step) * step)
 	if lo >= 0 && low < 0 {
 		low = 0 // never negative in the reference: stays so
 	}
-	return low, hi + w
+	return low, clean(math.Ceil((hi+w)/step) * step)
 }
 
 // sortedKeys lists a count map's keys by name.

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"plumbline.dev/plumbline/internal/contract/jobenv"
+	"plumbline.dev/plumbline/internal/tools/cli"
 )
 
 // The programs the demo's Jobs run (as `plumbline demo train`, `plumbline
@@ -22,21 +23,14 @@ import (
 // PLUMBLINE_BASELINE_URI) and the demo's world file for the synthetic parcels.
 
 // ErrUsage marks a flag error whose message is already printed.
-var ErrUsage = errors.New("usage")
+var ErrUsage = cli.ErrUsage
 
+// parse parses a Job program's flags; its help is that of cli.
 func parse(fs *flag.FlagSet, args []string, stderr io.Writer) error {
 	fs.SetOutput(stderr)
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return ErrUsage
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "unexpected arguments: %v\n", fs.Args())
-		return ErrUsage
-	}
-	return nil
+	c := cli.Command{Name: fs.Name(), Synopsis: "[flags]", Summary: "A program of the demo's Jobs; the controller gives it its data window in PLUMBLINE_* variables."}
+	fs.Usage = func() { cli.Help(stderr, c, fs) }
+	return cli.Parse(fs, args, 0)
 }
 
 func envTime(name string) (time.Time, bool, error) {

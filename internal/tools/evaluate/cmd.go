@@ -1,15 +1,16 @@
 package evaluate
 
 import (
-	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"os"
+	"slices"
 	"strings"
 
 	"plumbline.dev/plumbline/internal/contract/jobenv"
 	"plumbline.dev/plumbline/internal/contract/termination"
+	"plumbline.dev/plumbline/internal/tools/cli"
 	"plumbline.dev/plumbline/internal/tools/outfile"
 	"plumbline.dev/plumbline/internal/tools/stats"
 )
@@ -30,14 +31,27 @@ var defaultReportMetrics = map[string][]string{
 }
 
 // ErrUsage marks bad flags, already explained on stderr.
-var ErrUsage = errors.New("usage")
+var ErrUsage = cli.ErrUsage
+
+// command is evaluate's help.
+var command = cli.Command{
+	Name:     "plumbline evaluate",
+	Synopsis: "--input FILE --label COL --candidate COL --baseline COL [flags]",
+	Summary: "Measure a candidate against the live model on a golden set: each metric for both, the paired difference\n" +
+		"with its confidence interval and p-value, per segment too, and the rows the candidate must get right.\n" +
+		"It prints a table, writes the full JSON report (--out) and the compact gate report the controller reads.",
+	Examples: []string{
+		"# a binary model's scores, per depot, no worse than 0.005 ROC AUC below the live model",
+		"plumbline evaluate --input golden.csv --label late --candidate cand_score --baseline live_score \\",
+		"    --segment depot --max-regression 0.005 --out report.json",
+	},
+}
 
 // Command runs plumbline evaluate. It returns ErrUsage for bad flags, an
 // *InputError for bad input, and nil when the evaluation ran, whatever it
 // found.
 func Command(args []string, getenv func(string) string, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("plumbline evaluate", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cli.NewFlagSet(command, stderr)
 	var (
 		input, format, task, positive, out, termFile, reportMetrics, reportSegments string
 		cols                                                                        Columns
@@ -65,23 +79,14 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 	fs.StringVar(&termFile, "termination-file", termination.Default(), "write the compact gate report here (default /dev/termination-log when it exists)")
 	fs.StringVar(&reportMetrics, "report-metrics", getenv(EnvGateMetrics), "comma-separated metrics for the gate report (default from "+EnvGateMetrics+", else a few per task)")
 	fs.StringVar(&reportSegments, "report-segments", envOr(getenv(EnvGateSegments), "*"), "segments for the gate report: * for all, none, or a comma-separated list (default from "+EnvGateSegments+")")
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return err
-		}
-		return ErrUsage
+	if err := cli.Parse(fs, args, 0); err != nil {
+		return err
 	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "unexpected arguments: %s\n", strings.Join(fs.Args(), " "))
-		return ErrUsage
+	if err := cli.Required(fs, "input", "label", "candidate", "baseline"); err != nil {
+		return err
 	}
-	usage := func(format string, args ...any) error {
-		fmt.Fprintf(stderr, format+"\n", args...)
-		return ErrUsage
-	}
+	usage := func(format string, args ...any) error { return cli.Usagef(fs, format, args...) }
 	switch {
-	case input == "":
-		return usage("--input is required")
 	case task != Binary && task != Multiclass && task != Regression:
 		return usage("--task %q: want binary, multiclass or regression", task)
 	case !(confidence > 0.5 && confidence < 1):
@@ -96,6 +101,11 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 	sel := Selection{Metrics: split(reportMetrics)}
 	if len(sel.Metrics) == 0 {
 		sel.Metrics = defaultReportMetrics[task]
+	}
+	for _, m := range sel.Metrics {
+		if !slices.Contains(metricNames[task], m) {
+			return usage("--report-metrics: %q is not a %s metric; choose from %s", m, task, strings.Join(metricNames[task], ", "))
+		}
 	}
 	switch reportSegments {
 	case "*":
@@ -118,7 +128,11 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 			return err
 		}
 	}
-	if err := WriteTable(stdout, rep); err != nil {
+	table := WriteTable
+	if flagSet(fs, "max-regression") {
+		table = WriteTableWithVerdicts
+	}
+	if err := table(stdout, rep); err != nil {
 		return err
 	}
 	if termFile != "" {
@@ -136,6 +150,13 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 		fmt.Fprintf(stdout, "gate report: %d bytes, %d rows, to %s%s\n", len(b), len(compact.Metrics), termFile, note)
 	}
 	return nil
+}
+
+// flagSet reports whether the command line gave the named flag.
+func flagSet(fs *flag.FlagSet, name string) bool {
+	set := false
+	fs.Visit(func(f *flag.Flag) { set = set || f.Name == name })
+	return set
 }
 
 func envFloat(s string, def float64) float64 {

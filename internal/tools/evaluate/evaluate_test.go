@@ -424,18 +424,72 @@ func TestBadInputNamesFileLineColumn(t *testing.T) {
 	}
 }
 
+// Every usage error, a missing required flag too, is refused before any
+// file is read, names the flag, and points at --help; an unknown metric
+// for the gate report is one (it used to give an empty report and exit 0).
 func TestUsageErrors(t *testing.T) {
-	for _, args := range [][]string{
-		{},
-		{"--input", "x.csv", "--confidence", "1"},
-		{"--input", "x.csv", "--task", "ranking"},
-		{"--input", "x.csv", "--resamples", "10"},
-		{"--input", "x.csv", "--no-such-flag"},
+	cols := []string{"--label", "late", "--candidate", "c", "--baseline", "b"}
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{nil, "--input is required"},
+		{[]string{"--input", "x.csv"}, "--label is required"},
+		{append([]string{"--input", "x.csv", "--confidence", "1"}, cols...), "--confidence 1"},
+		{append([]string{"--input", "x.csv", "--task", "ranking"}, cols...), `--task "ranking"`},
+		{append([]string{"--input", "x.csv", "--resamples", "10"}, cols...), "--resamples 10"},
+		{append([]string{"--input", "x.csv", "--no-such-flag"}, cols...), "flag provided but not defined: -no-such-flag"},
+		{append([]string{"--input", "x.csv", "--report-metrics", "roc_auc,auc"}, cols...), `--report-metrics: "auc" is not a binary metric; choose from accuracy,`},
+		{append([]string{"--input", "x.csv", "--task", "regression", "--report-metrics", "roc_auc"}, cols...), `"roc_auc" is not a regression metric`},
 	} {
 		var stdout, stderr bytes.Buffer
-		if err := Command(args, func(string) string { return "" }, &stdout, &stderr); !errors.Is(err, ErrUsage) {
-			t.Errorf("%v: %v", args, err)
+		if err := Command(c.args, func(string) string { return "" }, &stdout, &stderr); !errors.Is(err, ErrUsage) {
+			t.Errorf("%v: %v, want a usage error", c.args, err)
 		}
+		if !strings.Contains(stderr.String(), c.want) || !strings.Contains(stderr.String(), "Run 'plumbline evaluate --help' for usage.") {
+			t.Errorf("%v: stderr %q lacks %q and the pointer to --help", c.args, stderr.String(), c.want)
+		}
+	}
+}
+
+// The table says which way is better for each metric, and with
+// --max-regression the non-inferiority verdict of each difference.
+func TestTableShowsBetterAndVerdicts(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("late,c,b\n")
+	for i := range 400 {
+		y := i % 2
+		c := 0.3 + 0.4*float64(y) + 0.001*float64(i%7)
+		fmt.Fprintf(&b, "%d,%.3f,%.3f\n", y, c, 0.35+0.3*float64(y)+0.001*float64(i%5))
+	}
+	in := file(t, "golden.csv", b.String())
+	args := []string{"--input", in, "--label", "late", "--candidate", "c", "--baseline", "b", "--resamples", "200"}
+	_, _, plain := run(t, args, nil)
+	if !strings.Contains(plain, "BETTER") || strings.Contains(plain, "NON-INFERIOR") {
+		t.Errorf("without --max-regression: want a BETTER column and no verdicts:\n%s", plain)
+	}
+	_, _, out := run(t, append(args, "--max-regression", "0.01"), nil)
+	var logLoss, auc string
+	for _, l := range strings.Split(out, "\n") {
+		f := strings.Fields(l)
+		if len(f) < 3 || f[0] != "(all)" {
+			continue
+		}
+		switch f[1] {
+		case "log_loss":
+			logLoss = l
+		case "roc_auc":
+			auc = l
+		}
+	}
+	if !strings.Contains(out, "NON-INFERIOR") || !strings.Contains(out, "within 0.01") {
+		t.Fatalf("with --max-regression: no verdict column:\n%s", out)
+	}
+	if f := strings.Fields(logLoss); len(f) < 3 || f[2] != "lower" {
+		t.Errorf("log_loss row %q: want BETTER lower", logLoss)
+	}
+	if f := strings.Fields(auc); len(f) < 3 || f[2] != "higher" || f[len(f)-1] != "yes" {
+		t.Errorf("roc_auc row %q: want BETTER higher and a candidate better than live judged non-inferior", auc)
 	}
 }
 

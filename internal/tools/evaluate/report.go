@@ -299,7 +299,14 @@ func fmtNum(p *float64) string {
 }
 
 // WriteTable prints the report as a person reads it.
-func WriteTable(w io.Writer, r Report) error {
+func WriteTable(w io.Writer, r Report) error { return writeTable(w, r, false) }
+
+// WriteTableWithVerdicts is WriteTable with a column for each difference's
+// non-inferiority verdict against the report's maxRegression (what a person
+// who gave --max-regression asked about).
+func WriteTableWithVerdicts(w io.Writer, r Report) error { return writeTable(w, r, true) }
+
+func writeTable(w io.Writer, r Report, verdicts bool) error {
 	fmt.Fprintf(w, "%s: %d rows, task %s", r.Input, r.Rows, r.Task)
 	if r.Threshold != nil {
 		fmt.Fprintf(w, ", threshold %g", *r.Threshold)
@@ -310,7 +317,11 @@ func WriteTable(w io.Writer, r Report) error {
 	}
 	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "SEGMENT\tMETRIC\tCANDIDATE\tBASELINE\tDELTA\tINTERVAL\tP\tTEST\tROWS")
+	head := "SEGMENT\tMETRIC\tBETTER\tCANDIDATE\tBASELINE\tDELTA\tINTERVAL\tP\tTEST\tROWS"
+	if verdicts {
+		head += "\tNON-INFERIOR"
+	}
+	fmt.Fprintln(tw, head)
 	for _, g := range r.Groups {
 		seg := g.Segment
 		if seg == "" {
@@ -329,11 +340,18 @@ func WriteTable(w io.Writer, r Report) error {
 			if m.Candidate == nil {
 				cand = "undefined"
 			}
-			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\n", seg, m.Metric, cand, fmtNum(m.Baseline), fmtNum(m.Delta), interval, p, m.Test, m.N)
+			row := fmt.Sprintf("%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d", seg, m.Metric, strings.ToLower(m.Better), cand, fmtNum(m.Baseline), fmtNum(m.Delta), interval, p, m.Test, m.N)
+			if verdicts {
+				row += "\t" + verdictText(m.NonInferior)
+			}
+			fmt.Fprintln(tw, row)
 		}
 	}
 	if err := tw.Flush(); err != nil {
 		return err
+	}
+	if verdicts {
+		fmt.Fprintf(w, "\nnon-inferior: the interval of the difference stays within %g of the baseline on the side that is worse (BETTER says which way is better)\n", r.MaxRegression)
 	}
 	var undefined []string
 	for _, g := range r.Groups {
@@ -374,4 +392,16 @@ func hardPredictions(scores []float64) bool {
 		}
 	}
 	return len(scores) > 0
+}
+
+// verdictText shows a non-inferiority verdict; "-" when there is none (no
+// interval).
+func verdictText(v *bool) string {
+	switch {
+	case v == nil:
+		return "-"
+	case *v:
+		return "yes"
+	}
+	return "NO"
 }
