@@ -3,9 +3,11 @@ package integration
 import (
 	"bytes"
 	"context"
+	"encoding/json"
 	"errors"
 	"os/exec"
 	"strings"
+	"sync"
 	"testing"
 
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
@@ -68,6 +70,41 @@ func TestKubectlPlumbline(t *testing.T) {
 		}
 	}
 
+	// kubectl's habits: every namespace, more columns, the objects.
+	out = mustRun(t, ns, "status", "-A", "-o", "wide")
+	mustContain(t, "status -A -o wide", out, "NAMESPACE", "BLOCKED", "NEEDS REVIEW", "NEXT SCHEDULE", ns+" ")
+	var lines v1alpha1.ModelLineList
+	if err := json.Unmarshal([]byte(mustRun(t, ns, "status", "-o", "json")), &lines); err != nil || lines.Kind != "ModelLineList" ||
+		len(lines.Items) != 1 || lines.Items[0].Kind != "ModelLine" || lines.Items[0].Status.ActiveVersion != "late-risk-v1" {
+		t.Errorf("status -o json: %v, %+v", err, lines.TypeMeta)
+	}
+	out = mustRun(t, ns, "status", lineName, "-o", "yaml")
+	mustContain(t, "status LINE -o yaml", out, "kind: ModelLine\n", "activeVersion: late-risk-v1")
+	if strings.Contains(out, "managedFields") {
+		t.Error("-o yaml shows managedFields")
+	}
+	var versions v1alpha1.ModelVersionList
+	if err := json.Unmarshal([]byte(mustRun(t, ns, "history", lineName, "-o", "json")), &versions); err != nil || len(versions.Items) != 3 { // the imported version, the rules and late-risk-v1
+		t.Errorf("history -o json: %v, %d versions", err, len(versions.Items))
+	}
+	// explain says what the line waits for and what to do.
+	out = mustRun(t, ns, "explain", lineName)
+	mustContain(t, "explain", out, "What can start a retrain", "What holds a retrain back", "late-risk-v1 is AwaitingApproval",
+		"What a person could do", "AwaitingApproval (WaitingForDecision)", "kubectl plumbline approve late-risk-v1")
+	// --watch prints the line's row again when it changes.
+	watchCtx, stopWatch := context.WithCancel(context.Background())
+	watched := &lockedBuffer{}
+	watchDone := make(chan error, 1)
+	go func() {
+		watchDone <- ctl.Run(watchCtx, []string{"status", "--watch", "--kubeconfig", kubeconfigPath, "-n", ns}, watched, watched, nil)
+	}()
+	eventually(t, waitFor, func() error {
+		if !strings.Contains(watched.String(), "AWAITING APPROVAL") {
+			return errors.New("no table yet")
+		}
+		return nil
+	})
+
 	if _, err := kubectlPlumbline(t, ns, "approve", initial); err == nil || !strings.Contains(err.Error(), "AwaitingApproval") {
 		t.Errorf("approving the live version: %v, want a refusal naming AwaitingApproval", err)
 	}
@@ -82,6 +119,19 @@ func TestKubectlPlumbline(t *testing.T) {
 	}
 	rollOutTo(t, ns, "late-risk-v1")
 	waitPhase(t, ns, "late-risk-v1", v1alpha1.PhaseLive)
+	eventually(t, waitFor, func() error {
+		// A row that shows late-risk-v1 live: the watch saw the change.
+		for _, l := range strings.Split(watched.String(), "\n") {
+			if f := strings.Fields(l); len(f) > 2 && f[0] == lineName && f[1] == "late-risk-v1" {
+				return nil
+			}
+		}
+		return errors.New("the watch printed no row with late-risk-v1 live:\n" + watched.String())
+	})
+	stopWatch()
+	if err := <-watchDone; err != nil {
+		t.Errorf("status --watch: %v", err)
+	}
 
 	out = mustRun(t, ns, "history", lineName)
 	mustContain(t, "history", out, "VERSION", "late-risk-v1", "Live (serving)", "Passed", "Manual", initial, "Archived")
@@ -125,4 +175,23 @@ func TestKubectlPlumbline(t *testing.T) {
 	if _, err := kubectlPlumbline(t, ns, "status", "no-such-line"); err == nil || !strings.Contains(err.Error(), "not found") {
 		t.Errorf("status of a missing line: %v", err)
 	}
+}
+
+// lockedBuffer is a bytes.Buffer written by one goroutine and read by
+// another.
+type lockedBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *lockedBuffer) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *lockedBuffer) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
 }

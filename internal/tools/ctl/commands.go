@@ -12,11 +12,15 @@ import (
 
 	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/apimachinery/pkg/util/duration"
+	"k8s.io/apimachinery/pkg/watch"
 	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/yaml"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/manager"
 )
 
 func (e *env) line(ctx context.Context, name string) (*v1alpha1.ModelLine, error) {
@@ -95,29 +99,190 @@ func runStatus(ctx context.Context, e *env, pos []string) error {
 		if err != nil {
 			return err
 		}
+		if e.o.output == outJSON || e.o.output == outYAML {
+			return e.print(l)
+		}
 		return e.describe(l)
 	}
 	var lines v1alpha1.ModelLineList
-	if err := e.c.List(ctx, &lines, client.InNamespace(e.ns)); err != nil {
-		return fmt.Errorf("list modellines in namespace %s: %w", e.ns, err)
+	where := "namespace " + e.ns
+	opts := []client.ListOption{client.InNamespace(e.ns)}
+	if e.o.allNamespaces {
+		where, opts = "any namespace", nil
 	}
-	if len(lines.Items) == 0 {
-		fmt.Fprintf(e.out, "No model lines in namespace %s.\n", e.ns)
+	if err := e.c.List(ctx, &lines, opts...); err != nil {
+		return fmt.Errorf("list modellines in %s: %w", where, err)
+	}
+	if e.o.output == outJSON || e.o.output == outYAML {
+		return e.print(&lines)
+	}
+	if len(lines.Items) == 0 && !e.o.watch {
+		fmt.Fprintf(e.out, "No model lines in %s.\n", where)
 		return nil
 	}
-	tw := tabwriter.NewWriter(e.out, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "LINE\tLIVE\tREADY\tACTION REQUIRED\tIN FLIGHT\tAWAITING APPROVAL\tFALLBACK\tBLOCKED\tNEEDS REVIEW\tTRIGGERS\tGUARD\tAGE")
+	t := e.lineTable()
+	t.header()
 	for i := range lines.Items {
-		l := &lines.Items[i]
-		guard := "-"
-		if l.Status.Guard != nil {
-			guard = string(l.Status.Guard.State)
-		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\n", l.Name, dash(l.Status.LiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionReady),
-			actionRequired(l), dash(l.Status.ActiveVersion), dash(awaiting(l)), condStatus(l.Status.Conditions, v1alpha1.ConditionFallbackActive), condStatus(l.Status.Conditions, v1alpha1.ConditionBlocked),
-			condStatus(l.Status.Conditions, v1alpha1.ConditionNeedsReview), triggerStates(l), guard, e.age(&l.CreationTimestamp))
+		t.row(&lines.Items[i])
 	}
-	return tw.Flush()
+	if err := t.flush(); err != nil || !e.o.watch {
+		return err
+	}
+	return e.watchLines(ctx, lines.ResourceVersion, opts, t)
+}
+
+// watchLines prints a line's row each time it changes, until ctx ends.
+func (e *env) watchLines(ctx context.Context, from string, opts []client.ListOption, t *lineTable) error {
+	w, err := e.c.Watch(ctx, &v1alpha1.ModelLineList{}, append(opts, &client.ListOptions{Raw: &metav1.ListOptions{ResourceVersion: from}})...)
+	if err != nil {
+		return fmt.Errorf("watch modellines: %w", err)
+	}
+	defer w.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return nil
+		case ev, ok := <-w.ResultChan():
+			if !ok {
+				return nil
+			}
+			l, isLine := ev.Object.(*v1alpha1.ModelLine)
+			if !isLine {
+				continue
+			}
+			if ev.Type == watch.Deleted {
+				fmt.Fprintf(e.out, "%s deleted\n", l.Name)
+				continue
+			}
+			t.row(l)
+			if err := t.flush(); err != nil {
+				return err
+			}
+		}
+	}
+}
+
+// lineTable prints lines as rows, with -A's NAMESPACE and -o wide's
+// columns. Rows printed after the first flush (--watch) keep the widths
+// the table had.
+type lineTable struct {
+	e      *env
+	rows   [][]string
+	widths []int
+}
+
+func (e *env) lineTable() *lineTable { return &lineTable{e: e} }
+
+func (t *lineTable) header() {
+	h := []string{"LINE", "LIVE", "READY", "ACTION REQUIRED", "IN FLIGHT", "AWAITING APPROVAL", "FALLBACK", "TRIGGERS", "GUARD", "AGE"}
+	if t.e.o.output == outWide {
+		h = append(h, "BLOCKED", "NEEDS REVIEW", "PREVIOUS", "NEXT SCHEDULE")
+	}
+	if t.e.o.allNamespaces {
+		h = append([]string{"NAMESPACE"}, h...)
+	}
+	t.rows = append(t.rows, h)
+}
+
+func (t *lineTable) row(l *v1alpha1.ModelLine) {
+	guard := "-"
+	if l.Status.Guard != nil {
+		guard = string(l.Status.Guard.State)
+	}
+	r := []string{l.Name, dash(l.Status.LiveVersion), condStatus(l.Status.Conditions, v1alpha1.ConditionReady), actionRequired(l),
+		dash(l.Status.ActiveVersion), dash(awaiting(l)), condStatus(l.Status.Conditions, v1alpha1.ConditionFallbackActive),
+		triggerStates(l), guard, t.e.age(&l.CreationTimestamp)}
+	if t.e.o.output == outWide {
+		next := "-"
+		if n := l.Status.NextScheduleTime; n != nil {
+			next = n.UTC().Format(time.RFC3339)
+		}
+		r = append(r, condStatus(l.Status.Conditions, v1alpha1.ConditionBlocked), condStatus(l.Status.Conditions, v1alpha1.ConditionNeedsReview),
+			dash(l.Status.PreviousVersion), next)
+	}
+	if t.e.o.allNamespaces {
+		r = append([]string{l.Namespace}, r...)
+	}
+	t.rows = append(t.rows, r)
+}
+
+// flush prints the rows held, aligned as kubectl aligns: each column as
+// wide as its widest cell so far, two spaces apart.
+func (t *lineTable) flush() error {
+	for _, r := range t.rows {
+		for i, c := range r {
+			if i >= len(t.widths) {
+				t.widths = append(t.widths, 0)
+			}
+			t.widths[i] = max(t.widths[i], len(c))
+		}
+	}
+	for _, r := range t.rows {
+		var b strings.Builder
+		for i, c := range r {
+			if i == len(r)-1 {
+				b.WriteString(c)
+				break
+			}
+			fmt.Fprintf(&b, "%-*s  ", t.widths[i], c)
+		}
+		if _, err := fmt.Fprintln(t.e.out, b.String()); err != nil {
+			return err
+		}
+	}
+	t.rows = nil
+	return nil
+}
+
+// print writes objects as -o json or -o yaml asks, with their kind and
+// without managedFields, as kubectl get does.
+func (e *env) print(obj runtime.Object) error {
+	obj = obj.DeepCopyObject()
+	scheme, err := manager.Scheme()
+	if err != nil {
+		return err
+	}
+	setKind := func(o runtime.Object) error {
+		gvks, _, err := scheme.ObjectKinds(o)
+		if err != nil || len(gvks) == 0 {
+			return fmt.Errorf("the kind of %T: %w", o, err)
+		}
+		o.GetObjectKind().SetGroupVersionKind(gvks[0])
+		if m, err := meta.Accessor(o); err == nil {
+			m.SetManagedFields(nil)
+		}
+		return nil
+	}
+	if meta.IsListType(obj) {
+		items, err := meta.ExtractList(obj)
+		if err != nil {
+			return err
+		}
+		for _, it := range items {
+			if err := setKind(it); err != nil {
+				return err
+			}
+		}
+		if err := meta.SetList(obj, items); err != nil {
+			return err
+		}
+	}
+	if err := setKind(obj); err != nil {
+		return err
+	}
+	b, err := json.MarshalIndent(obj, "", "    ")
+	if err != nil {
+		return err
+	}
+	if e.o.output == outYAML {
+		if b, err = yaml.JSONToYAML(b); err != nil {
+			return err
+		}
+	} else {
+		b = append(b, '\n')
+	}
+	_, err = e.out.Write(b)
+	return err
 }
 
 // describe prints one line in full.
@@ -178,6 +343,9 @@ func runHistory(ctx context.Context, e *env, pos []string) error {
 		if v.Spec.Line == l.Name {
 			vs = append(vs, v)
 		}
+	}
+	if e.o.output == outJSON || e.o.output == outYAML {
+		return e.print(&v1alpha1.ModelVersionList{Items: vs})
 	}
 	if len(vs) == 0 {
 		fmt.Fprintf(e.out, "Line %s has no versions yet.\n", l.Name)
