@@ -15,8 +15,9 @@ GO_PACKAGES := ./...
 FUZZTIME ?= 3s
 # How many seeds make chaos runs (make test runs 10).
 CHAOS_SEEDS ?= 100
-# A Prometheus built by hack/build-prometheus.sh is found after the PATH's.
-export PATH := $(PATH):$(BIN)/prom
+# A Prometheus built by hack/build-prometheus.sh, and a kubectl built by
+# hack/build-controlplane.sh, are found after the PATH's.
+export PATH := $(PATH):$(BIN)/prom:$(K8S_BIN)
 
 .PHONY: help
 help: ## List the targets.
@@ -29,7 +30,7 @@ demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a sim
 	$(BIN)/plumbline demo --assets $(K8S_BIN) --crds config/crd/bases
 
 .PHONY: test
-test: controlplane simcluster prometheus alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster), then each fuzz target briefly.
+test: controlplane simcluster prometheus kubectl alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster), then each fuzz target briefly.
 	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 go test -count=1 $(GO_PACKAGES)
 	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
 
@@ -136,6 +137,10 @@ run: build ## Run the controller against the cluster of the current kubeconfig.
 .PHONY: controlplane
 controlplane: ## Build kube-apiserver and etcd from the Go module proxy into bin/k8s (once).
 	hack/build-controlplane.sh etcd kube-apiserver
+
+.PHONY: kubectl
+kubectl: ## Make kubectl available: the PATH's, else built from the Go module proxy into bin/k8s (about a minute after controlplane).
+	@if command -v kubectl >/dev/null; then exit 0; fi; hack/build-controlplane.sh kubectl
 
 .PHONY: simcluster
 simcluster: controlplane ## Build kube-controller-manager, kube-scheduler and kwok into bin/k8s (once) for the simulated cluster.
