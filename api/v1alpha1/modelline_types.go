@@ -53,7 +53,8 @@ type ModelLineSpec struct {
 	// +kubebuilder:validation:MaxItems=16
 	Triggers []TriggerSpec `json:"triggers,omitempty"`
 
-	// checks run, in order, before a trigger-started retrain.
+	// checks run, in order, before every retrain, whatever starts it (a
+	// person, the schedule or a trigger).
 	// +optional
 	Checks *ChecksSpec `json:"checks,omitempty"`
 
@@ -203,8 +204,9 @@ type TriggerSpec struct {
 	EverySeconds int32 `json:"everySeconds,omitempty"`
 }
 
-// ChecksSpec are the checks run before a trigger-started retrain, in order:
-// data quality, drift, fresh data.
+// ChecksSpec are the checks run before every retrain, whatever starts it,
+// in order: data quality, drift (judged for a trigger-started retrain only),
+// fresh data.
 //
 // +kubebuilder:validation:XValidation:rule="!has(self.freshData) || has(self.freshData.query) || has(self.jobTemplate)",message="freshData.query is required unless a jobTemplate check Job counts the rows: set freshData.query, or add jobTemplate"
 type ChecksSpec struct {

@@ -210,7 +210,7 @@ type GateResult struct {
 	Verdict GateVerdict `json:"verdict"`
 
 	// reason in one CamelCase word, for example CriteriaNotMet or
-	// MalformedReport.
+	// ReportMalformed.
 	// +optional
 	// +kubebuilder:validation:MaxLength=128
 	Reason string `json:"reason,omitempty"`

@@ -362,3 +362,29 @@ func deref[T any](p *T) any {
 	}
 	return *p
 }
+
+// The README's full sample is a line the API server accepts, so a reader
+// who copies it gets no surprise.
+func TestReadmeSampleAccepted(t *testing.T) {
+	raw, err := os.ReadFile(filepath.Join(repoRoot, "README.md"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	text := string(raw)
+	i := strings.Index(text, "## A full sample")
+	if i < 0 {
+		t.Fatal("the README has no full sample")
+	}
+	text = text[i:]
+	start := strings.Index(text, "```yaml\n")
+	end := strings.Index(text[start+8:], "```")
+	if start < 0 || end < 0 {
+		t.Fatal("the README's full sample has no yaml block")
+	}
+	o := fromYAML(t, text[start+8:start+8+end])
+	o.SetNamespace("readme-sample")
+	createNamespace(t, o.GetNamespace())
+	if err := k8s.Create(context.Background(), o, client.DryRunAll); err != nil {
+		t.Errorf("the API server refuses the README's sample: %v", err)
+	}
+}
