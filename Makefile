@@ -74,7 +74,7 @@ bench: controlplane prometheus ## Print the benchmarks' figures: evaluate on a m
 	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench . -benchtime 5x
 
 .PHONY: false-alarms
-false-alarms: ## Print the trigger false-alarm and detection-delay table of the README (about 2 minutes).
+false-alarms: ## Print the trigger false-alarm and detection-delay table of docs/retraining.md (about 2 minutes).
 	go run ./hack/falsealarms
 
 .PHONY: backtest-example

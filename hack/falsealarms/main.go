@@ -1,8 +1,8 @@
 // Command falsealarms prints how often a trigger fires on a healthy but
 // noisy quality signal, how much of the time it cannot judge, and how long
 // it takes to catch a real drop, for a range of windows and coverages. The
-// signals are seeded and synthetic (see trigger.NoisySeries); the README's
-// table of the trade-off comes from this command:
+// signals are seeded and synthetic (see trigger.NoisySeries); the
+// trade-off table in docs/retraining.md comes from this command:
 //
 //	go run ./hack/falsealarms
 package main

@@ -1,5 +1,5 @@
 // Command larkspur-history writes a synthetic quality history for the
-// README's backtest example: 120 days of the daily ROC AUC of Larkspur
+// backtest example of docs/backtest.md: 120 days of the daily ROC AUC of Larkspur
 // Parcels' late-delivery model (a fictional courier; every number is made
 // up), one point every 15 minutes, with a cumulative count of labelled
 // deliveries. The model goes stale slowly, the new Fenwick depot opens on

@@ -329,20 +329,29 @@ func (e *env) describe(l *v1alpha1.ModelLine) error {
 	return nil
 }
 
-func runHistory(ctx context.Context, e *env, pos []string) error {
-	l, err := e.line(ctx, pos[0])
+// lineAndVersions reads a line and its versions.
+func (e *env) lineAndVersions(ctx context.Context, name string) (*v1alpha1.ModelLine, []v1alpha1.ModelVersion, error) {
+	l, err := e.line(ctx, name)
 	if err != nil {
-		return err
+		return nil, nil, err
 	}
 	var list v1alpha1.ModelVersionList
 	if err := e.c.List(ctx, &list, client.InNamespace(e.ns)); err != nil {
-		return fmt.Errorf("list modelversions in namespace %s: %w", e.ns, err)
+		return nil, nil, fmt.Errorf("list modelversions in namespace %s: %w", e.ns, err)
 	}
 	var vs []v1alpha1.ModelVersion
 	for _, v := range list.Items {
 		if v.Spec.Line == l.Name {
 			vs = append(vs, v)
 		}
+	}
+	return l, vs, nil
+}
+
+func runHistory(ctx context.Context, e *env, pos []string) error {
+	l, vs, err := e.lineAndVersions(ctx, pos[0])
+	if err != nil {
+		return err
 	}
 	if e.o.output == outJSON || e.o.output == outYAML {
 		return e.print(&v1alpha1.ModelVersionList{Items: vs})

@@ -10,26 +10,15 @@ import (
 	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/util/duration"
-	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
 )
 
 func runExplain(ctx context.Context, e *env, pos []string) error {
-	l, err := e.line(ctx, pos[0])
+	l, vs, err := e.lineAndVersions(ctx, pos[0])
 	if err != nil {
 		return err
-	}
-	var list v1alpha1.ModelVersionList
-	if err := e.c.List(ctx, &list, client.InNamespace(e.ns)); err != nil {
-		return fmt.Errorf("list modelversions in namespace %s: %w", e.ns, err)
-	}
-	var vs []v1alpha1.ModelVersion
-	for _, v := range list.Items {
-		if v.Spec.Line == l.Name {
-			vs = append(vs, v)
-		}
 	}
 	explain(e.out, l, vs, e.o.now())
 	return nil
