@@ -7,6 +7,10 @@ ROOT := $(shell pwd)
 BIN := $(ROOT)/bin
 K8S_BIN := $(BIN)/k8s
 IMG ?= plumbline:dev
+# make test requires the image test in containerd where it can run (root).
+REQUIRE_CONTAINERD ?= $(shell [ "$$(id -u)" = 0 ] && echo 1)
+# The version stamped into the image's binary and label.
+VERSION ?= dev
 CONTROLLER_GEN_VERSION := v0.23.0
 CONTROLLER_GEN := $(BIN)/controller-gen-$(CONTROLLER_GEN_VERSION)
 KUBECTL ?= kubectl
@@ -30,8 +34,8 @@ demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a sim
 	$(BIN)/plumbline demo --assets $(K8S_BIN) --crds config/crd/bases
 
 .PHONY: test
-test: controlplane simcluster prometheus kubectl alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster), then each fuzz target briefly.
-	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 go test -count=1 $(GO_PACKAGES)
+test: controlplane simcluster prometheus kubectl containerd alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster, the image in containerd), then each fuzz target briefly.
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 PLUMBLINE_REQUIRE_CONTAINERD=$(REQUIRE_CONTAINERD) go test -count=1 $(GO_PACKAGES)
 	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
 
 ##@ Development
@@ -130,6 +134,11 @@ build: ## Build the plumbline binary into bin/, and bin/kubectl-plumbline (a lin
 	go build -o $(BIN)/plumbline .
 	ln -sf plumbline $(BIN)/kubectl-plumbline
 
+.PHONY: image
+image: ## Build the image archive bin/plumbline-image.tar (IMG, VERSION) without a container engine: ctr images import, kind load image-archive, docker load.
+	CGO_ENABLED=0 go build -trimpath -ldflags "-s -w -X main.version=$(VERSION)" -o $(BIN)/plumbline-linux .
+	go run ./hack/image --binary $(BIN)/plumbline-linux --name $(IMG) --version $(VERSION) --out $(BIN)/plumbline-image.tar
+
 .PHONY: run
 run: build ## Run the controller against the cluster of the current kubeconfig.
 	$(BIN)/plumbline manager
@@ -137,6 +146,14 @@ run: build ## Run the controller against the cluster of the current kubeconfig.
 .PHONY: controlplane
 controlplane: ## Build kube-apiserver and etcd from the Go module proxy into bin/k8s (once).
 	hack/build-controlplane.sh etcd kube-apiserver
+
+.PHONY: containerd
+containerd: ## Make containerd and runc available for the image test: the PATH's, else Debian's packages (as root); without root the test is skipped.
+	@if command -v containerd >/dev/null && command -v ctr >/dev/null && command -v runc >/dev/null; then exit 0; fi; \
+	if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null; then \
+	  echo "installing Debian's containerd and runc packages ..."; \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq containerd runc >/dev/null; \
+	else echo "containerd and runc are not installed and need root to install: the image test will be skipped"; fi
 
 .PHONY: kubectl
 kubectl: ## Make kubectl available: the PATH's, else built from the Go module proxy into bin/k8s (about a minute after controlplane).
