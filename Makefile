@@ -7,8 +7,9 @@ ROOT := $(shell pwd)
 BIN := $(ROOT)/bin
 K8S_BIN := $(BIN)/k8s
 IMG ?= plumbline:dev
-# make test requires the image test in containerd where it can run (root).
-REQUIRE_CONTAINERD ?= $(shell [ "$$(id -u)" = 0 ] && echo 1)
+# make test requires the tiers that need root (the image in containerd, the
+# real node) where they can run: as root.
+REQUIRE_ROOT_TIERS ?= $(shell [ "$$(id -u)" = 0 ] && echo 1)
 # The version stamped into the image's binary and label.
 VERSION ?= dev
 CONTROLLER_GEN_VERSION := v0.23.0
@@ -34,8 +35,9 @@ demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a sim
 	$(BIN)/plumbline demo --assets $(K8S_BIN) --crds config/crd/bases
 
 .PHONY: test
-test: controlplane simcluster prometheus kubectl containerd alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster, the image in containerd), then each fuzz target briefly.
-	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 PLUMBLINE_REQUIRE_CONTAINERD=$(REQUIRE_CONTAINERD) go test -count=1 $(GO_PACKAGES)
+test: controlplane simcluster prometheus kubectl node alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster, the image in containerd, the real node), then each fuzz target briefly.
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 \
+	  PLUMBLINE_REQUIRE_CONTAINERD=$(REQUIRE_ROOT_TIERS) PLUMBLINE_REQUIRE_NODE=$(REQUIRE_ROOT_TIERS) go test -count=1 $(GO_PACKAGES)
 	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
 
 ##@ Development
@@ -154,6 +156,14 @@ containerd: ## Make containerd and runc available for the image test: the PATH's
 	  echo "installing Debian's containerd and runc packages ..."; \
 	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq containerd runc >/dev/null; \
 	else echo "containerd and runc are not installed and need root to install: the image test will be skipped"; fi
+
+.PHONY: node
+node: controlplane containerd ## Make the real node tier runnable: the kubelet built into bin/k8s (once, about 13 minutes fresh), Debian's CNI plugins (as root).
+	@if [ "$$(id -u)" != 0 ]; then echo "the real node needs root: its tests will be skipped"; exit 0; fi; \
+	if [ ! -x /usr/lib/cni/bridge ]; then \
+	  echo "installing Debian's containernetworking-plugins package ..."; \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq containernetworking-plugins >/dev/null; fi; \
+	hack/build-controlplane.sh kubelet
 
 .PHONY: kubectl
 kubectl: ## Make kubectl available: the PATH's, else built from the Go module proxy into bin/k8s (about a minute after controlplane).

@@ -5,7 +5,7 @@
 # (kube-apiserver: about 10 minutes on 2 cores).
 #
 # Usage: hack/build-controlplane.sh [component...]
-#   components: etcd kube-apiserver kube-controller-manager kube-scheduler kwok kubectl
+#   components: etcd kube-apiserver kube-controller-manager kube-scheduler kwok kubectl kubelet kube-proxy
 #   default:    etcd kube-apiserver (what the API-server test tier needs)
 set -euo pipefail
 
@@ -30,9 +30,11 @@ for c in "${components[@]}"; do
       (cd "$mod" && go build -trimpath -o "$out/$c.tmp" ./cmd/etcd) ;;
     kube-apiserver|kube-controller-manager|kube-scheduler)
       (cd "$mod" && go build -trimpath -o "$out/$c.tmp" "k8s.io/kubernetes/cmd/$c") ;;
-    kubectl)
-      # For the machines that have none: the tests render config/default
-      # with its kustomize and read kubectl get's columns.
+    kubectl|kubelet|kube-proxy)
+      # kubectl for the machines that have none (the tests render
+      # config/default with its kustomize and read kubectl get's columns);
+      # the kubelet for the real node (kube-proxy builds the same way, for
+      # when the node serves Service addresses).
       v=$(cd "$mod" && go list -m -f '{{.Version}}' k8s.io/kubernetes)
       minor=$(echo "$v" | cut -d. -f2)
       (cd "$mod" && go build -trimpath -ldflags "-X k8s.io/component-base/version.gitVersion=$v -X k8s.io/component-base/version.gitMajor=1 -X k8s.io/component-base/version.gitMinor=$minor" \
@@ -41,7 +43,7 @@ for c in "${components[@]}"; do
       GOBIN="$out/.kwok" go install "sigs.k8s.io/kwok/cmd/kwok@$kwok_version"
       mv "$out/.kwok/kwok" "$out/$c.tmp" && rmdir "$out/.kwok" ;;
     *)
-      echo "build-controlplane: unknown component $c (want etcd, kube-apiserver, kube-controller-manager, kube-scheduler, kwok or kubectl)" >&2
+      echo "build-controlplane: unknown component $c (want etcd, kube-apiserver, kube-controller-manager, kube-scheduler, kwok, kubectl, kubelet or kube-proxy)" >&2
       exit 2 ;;
   esac
   # Rename only after a whole build, so an interrupted build is not mistaken

@@ -48,6 +48,10 @@ type Spec struct {
 	Arch string
 	// Version labels the image.
 	Version string
+	// Path is where the binary lies in the image and what runs; empty is
+	// Entrypoint (/plumbline). Other images of the tests (a node's sandbox
+	// "pause" image) set their own.
+	Path string
 }
 
 // Build makes the image.
@@ -60,7 +64,11 @@ func Build(s Spec) (v1.Image, error) {
 	if err != nil {
 		return nil, fmt.Errorf("the CA certificates: %w", err)
 	}
-	layer, err := rootLayer(bin, certs)
+	entry := s.Path
+	if entry == "" {
+		entry = Entrypoint
+	}
+	layer, err := rootLayer(entry, bin, certs)
 	if err != nil {
 		return nil, err
 	}
@@ -76,11 +84,11 @@ func Build(s Spec) (v1.Image, error) {
 	cf.OS, cf.Architecture, cf.Created = "linux", s.Arch, v1.Time{Time: epoch}
 	cf.Config = v1.Config{
 		User:       User,
-		Entrypoint: []string{Entrypoint},
+		Entrypoint: []string{entry},
 		Env:        []string{"PATH=/usr/local/bin:/usr/bin:/bin", "SSL_CERT_FILE=/etc/ssl/certs/ca-certificates.crt"},
 		WorkingDir: "/",
 		Labels: map[string]string{
-			"org.opencontainers.image.title":   "plumbline",
+			"org.opencontainers.image.title":   strings.TrimPrefix(entry, "/"),
 			"org.opencontainers.image.version": s.Version,
 		},
 	}
@@ -93,7 +101,7 @@ func Build(s Spec) (v1.Image, error) {
 
 // rootLayer is the image's one layer: the binary, the certificates, the
 // user and group files, and a writable /tmp.
-func rootLayer(bin, certs []byte) (v1.Layer, error) {
+func rootLayer(entry string, bin, certs []byte) (v1.Layer, error) {
 	var b bytes.Buffer
 	tw := tar.NewWriter(&b)
 	dir := func(name string, mode int64) error {
@@ -119,7 +127,7 @@ func rootLayer(bin, certs []byte) (v1.Layer, error) {
 		func() error {
 			return tw.WriteHeader(&tar.Header{Typeflag: tar.TypeDir, Name: "home/nonroot/", Mode: 0o700, Uid: UID, Gid: UID, ModTime: epoch, Format: tar.FormatPAX})
 		},
-		func() error { return file(strings.TrimPrefix(Entrypoint, "/"), 0o755, bin) },
+		func() error { return file(strings.TrimPrefix(entry, "/"), 0o755, bin) },
 		func() error { return dir("tmp", 0o1777) },
 	}
 	for _, step := range steps {

@@ -49,6 +49,14 @@ type Daemon struct {
 // Start starts a containerd whose root, state and socket lie under dir,
 // with the CRI plugin off (a node's own start turns it on with its config).
 func Start(dir string) (*Daemon, error) {
+	return StartWithConfig(dir, func(root, state, socket string) string {
+		return fmt.Sprintf("version = 2\nroot = %q\nstate = %q\ndisabled_plugins = [\"io.containerd.grpc.v1.cri\"]\n[grpc]\n  address = %q\n", root, state, socket)
+	})
+}
+
+// StartWithConfig starts a containerd under dir with the configuration
+// config writes for its root, state and socket paths.
+func StartWithConfig(dir string, config func(root, state, socket string) string) (*Daemon, error) {
 	if err := Available(); err != nil {
 		return nil, err
 	}
@@ -56,10 +64,8 @@ func Start(dir string) (*Daemon, error) {
 		return nil, err
 	}
 	d := &Daemon{Socket: filepath.Join(dir, "containerd.sock"), dir: dir}
-	config := fmt.Sprintf("version = 2\nroot = %q\nstate = %q\ndisabled_plugins = [\"io.containerd.grpc.v1.cri\"]\n[grpc]\n  address = %q\n",
-		filepath.Join(dir, "root"), filepath.Join(dir, "state"), d.Socket)
 	cfg := filepath.Join(dir, "config.toml")
-	if err := os.WriteFile(cfg, []byte(config), 0o600); err != nil {
+	if err := os.WriteFile(cfg, []byte(config(filepath.Join(dir, "root"), filepath.Join(dir, "state"), d.Socket)), 0o600); err != nil {
 		return nil, err
 	}
 	log, err := os.Create(filepath.Join(dir, "containerd.log"))

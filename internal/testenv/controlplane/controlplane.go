@@ -22,6 +22,13 @@ type Options struct {
 	CRDDir string
 	// KubeconfigPath, when set, receives an admin kubeconfig for kubectl.
 	KubeconfigPath string
+	// APIServerArgs replace or add kube-apiserver flags (without "--"),
+	// for example authorization-mode for a cluster with a real node.
+	APIServerArgs map[string]string
+	// Dir, when set, holds the API server's certificates and etcd's data
+	// (dir/apiserver, dir/etcd) instead of new temporary directories, so
+	// their command lines name it.
+	Dir string
 }
 
 // Env is a running control plane.
@@ -50,6 +57,22 @@ func Start(o Options) (*Env, error) {
 		ErrorIfCRDPathMissing:    true,
 		ControlPlaneStartTimeout: 2 * time.Minute,
 		ControlPlaneStopTimeout:  time.Minute,
+	}
+	if o.Dir != "" {
+		api, etcd := filepath.Join(o.Dir, "apiserver"), filepath.Join(o.Dir, "etcd")
+		for _, d := range []string{api, etcd} {
+			if err := os.MkdirAll(d, 0o700); err != nil {
+				return nil, err
+			}
+		}
+		env.ControlPlane.GetAPIServer().CertDir = api
+		env.ControlPlane.Etcd = &envtest.Etcd{DataDir: etcd}
+	}
+	if len(o.APIServerArgs) > 0 {
+		args := env.ControlPlane.GetAPIServer().Configure()
+		for k, v := range o.APIServerArgs {
+			args.Set(k, v)
+		}
 	}
 	cfg, err := env.Start()
 	if err != nil {
@@ -83,6 +106,29 @@ func (e *Env) writeKubeconfig(path string) error {
 	e.KubeconfigPath = path
 	return nil
 }
+
+// KubeconfigFor writes a kubeconfig for a user the API server
+// authenticates by a client certificate with name as its CN and groups as
+// its O: a node's kubelet is system:node:NAME in system:nodes.
+func (e *Env) KubeconfigFor(path, name string, groups ...string) error {
+	user, err := e.env.AddUser(envtest.User{Name: name, Groups: groups}, nil)
+	if err != nil {
+		return fmt.Errorf("add user %s: %w", name, err)
+	}
+	kc, err := user.KubeConfig()
+	if err != nil {
+		return fmt.Errorf("render the kubeconfig of %s: %w", name, err)
+	}
+	return os.WriteFile(path, kc, 0o600)
+}
+
+// CertDir holds the API server's certificates and its service-account
+// signing key (sa-signer.key), which a controller manager needs to issue
+// tokens.
+func (e *Env) CertDir() string { return e.env.ControlPlane.APIServer.CertDir }
+
+// CA is the certificate that signed the API server's serving certificate.
+func (e *Env) CA() []byte { return e.env.ControlPlane.APIServer.SecureServing.CA }
 
 // Stop stops the API server and etcd and removes their data.
 func (e *Env) Stop() error {

@@ -1,0 +1,508 @@
+// Package node starts a real single-node Kubernetes cluster on this
+// machine: the control plane of internal/testenv/controlplane with the Node
+// and RBAC authorizers, the real kube-controller-manager and kube-scheduler,
+// and a real kubelet on a private containerd (Debian's, with runc and the
+// CNI bridge plugin), whose pods sit on a bridge the node creates. Images
+// come from archives imported into containerd (no registry); the sandbox
+// image is a tiny pause program built here.
+//
+// Everything it creates on the host (the bridge, the kubelet's fixed
+// paths, mounts under its directory) is recorded in its directory and
+// removed at Stop, and by the next Start after a crash. All traffic stays
+// on loopback and on the bridge. It needs root; Available says why a
+// machine cannot run it.
+package node
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"runtime"
+	"strings"
+	"syscall"
+	"time"
+
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/util/wait"
+	"k8s.io/client-go/kubernetes"
+	"k8s.io/client-go/rest"
+
+	"plumbline.dev/plumbline/internal/image"
+	"plumbline.dev/plumbline/internal/testenv/containerd"
+	"plumbline.dev/plumbline/internal/testenv/controlplane"
+)
+
+// The node's fixed names and addresses.
+const (
+	// Name is the node's name; it resolves to 127.0.0.1, so the API
+	// server reaches the kubelet on loopback.
+	Name = "localhost"
+	// Bridge is the bridge the pods sit on; its address is the node's IP.
+	Bridge   = "plumbline0"
+	BridgeIP = "10.88.0.1"
+	podCIDR  = "10.88.0.0/16"
+	// PauseImage is the sandbox image, built and imported by Start.
+	PauseImage = "plumbline.local/pause:1"
+	cniBinDir  = "/usr/lib/cni"
+)
+
+// kubeletHostPaths are the host paths the kubelet writes whatever its root
+// directory; the ones a start creates are removed at stop.
+var kubeletHostPaths = []string{"/var/lib/kubelet", "/var/log/containers", "/var/log/pods", "/usr/libexec/kubernetes", "/var/lib/cni", "/etc/cni"}
+
+// ErrUnavailable says why the machine cannot run a real node.
+var ErrUnavailable = errors.New("a real node cannot run here")
+
+// Available reports why this machine cannot run a real node, or nil.
+func Available(assets string) error {
+	if err := containerd.Available(); err != nil {
+		return fmt.Errorf("%w: %v", ErrUnavailable, err)
+	}
+	for _, b := range []string{"kubelet", "kube-controller-manager", "kube-scheduler"} {
+		if _, err := os.Stat(filepath.Join(assets, b)); err != nil {
+			return fmt.Errorf("%w: %s is not built in %s (make node builds it)", ErrUnavailable, b, assets)
+		}
+	}
+	for _, p := range []string{filepath.Join(cniBinDir, "bridge"), filepath.Join(cniBinDir, "host-local")} {
+		if _, err := os.Stat(p); err != nil {
+			return fmt.Errorf("%w: %s is missing (apt-get install -y containernetworking-plugins)", ErrUnavailable, p)
+		}
+	}
+	if _, err := exec.LookPath("ip"); err != nil {
+		return fmt.Errorf("%w: the ip command is missing (iproute2)", ErrUnavailable)
+	}
+	if _, err := os.Stat("/sys/fs/cgroup"); err != nil {
+		return fmt.Errorf("%w: no cgroups at /sys/fs/cgroup", ErrUnavailable)
+	}
+	return nil
+}
+
+// Options say where the binaries are and where the node keeps its files.
+type Options struct {
+	// AssetsDir holds etcd, kube-apiserver, kube-controller-manager,
+	// kube-scheduler and kubelet.
+	AssetsDir string
+	// CRDDir holds CRD manifests to install.
+	CRDDir string
+	// WorkDir receives the kubeconfigs, the configs, the logs and the
+	// kubelet's and containerd's state. Keep it short: containerd's socket
+	// lies in it (a socket path has at most 107 bytes).
+	WorkDir string
+	// Images are image archives to import (make image writes one).
+	Images []string
+}
+
+// Node is a running cluster of one real node.
+type Node struct {
+	// Config talks to the API server as an administrator.
+	Config *rest.Config
+	// KubeconfigPath is the admin kubeconfig, for kubectl.
+	KubeconfigPath string
+	// Containerd is the node's container runtime.
+	Containerd *containerd.Daemon
+	// Timings are how long the parts took to start.
+	Timings map[string]time.Duration
+
+	dir   string
+	env   *controlplane.Env
+	procs []*exec.Cmd
+	logs  []*os.File
+	rec   *record
+}
+
+// recordPath is where a start records what it created on the host, at a
+// fixed place (one node per machine at a time), so the next start cleans up
+// after a test that crashed, whatever its directory was.
+const recordPath = "/run/plumbline-node.json"
+
+// record is what a start created on the host.
+type record struct {
+	path    string
+	Dir     string   `json:"dir"`
+	Bridge  bool     `json:"bridge"`
+	Created []string `json:"created"`
+}
+
+func (r *record) save() error {
+	b, err := json.Marshal(r)
+	if err != nil {
+		return err
+	}
+	return os.WriteFile(r.path, b, 0o600)
+}
+
+// Start starts the node and waits until it is Ready and the images are
+// imported. It removes first what an earlier start in the same directory
+// left behind.
+func Start(ctx context.Context, o Options) (*Node, error) {
+	if err := Available(o.AssetsDir); err != nil {
+		return nil, err
+	}
+	if err := os.MkdirAll(o.WorkDir, 0o755); err != nil {
+		return nil, err
+	}
+	cleanupStale(recordPath)
+	n := &Node{dir: o.WorkDir, Timings: map[string]time.Duration{}, rec: &record{path: recordPath, Dir: o.WorkDir}}
+	fail := func(err error) (*Node, error) {
+		n.Stop()
+		return nil, err
+	}
+	t0 := time.Now()
+
+	// The bridge first: it is the node's IP and the pods' network.
+	for _, p := range kubeletHostPaths {
+		if _, err := os.Stat(p); errors.Is(err, os.ErrNotExist) {
+			n.rec.Created = append(n.rec.Created, p)
+		}
+	}
+	if err := ipCmd("link", "add", Bridge, "type", "bridge"); err != nil {
+		return fail(err)
+	}
+	n.rec.Bridge = true
+	if err := n.rec.save(); err != nil {
+		return fail(err)
+	}
+	if err := ipCmd("addr", "add", BridgeIP+"/16", "dev", Bridge); err != nil {
+		return fail(err)
+	}
+	if err := ipCmd("link", "set", Bridge, "up"); err != nil {
+		return fail(err)
+	}
+
+	kc := filepath.Join(o.WorkDir, "admin.kubeconfig")
+	// The control plane's files under the work directory: a crashed test's
+	// API server and etcd are found by it (cleanupStale).
+	env, err := controlplane.Start(controlplane.Options{AssetsDir: o.AssetsDir, CRDDir: o.CRDDir, KubeconfigPath: kc, Dir: filepath.Join(o.WorkDir, "cp"),
+		APIServerArgs: map[string]string{
+			"authorization-mode":              "Node,RBAC",
+			"kubelet-preferred-address-types": "Hostname,InternalIP",
+			"allow-privileged":                "true",
+		}})
+	if err != nil {
+		return fail(err)
+	}
+	n.env, n.Config, n.KubeconfigPath = env, env.Config, kc
+	n.Timings["control plane"] = time.Since(t0)
+	ca := filepath.Join(o.WorkDir, "ca.crt")
+	if err := os.WriteFile(ca, env.CA(), 0o644); err != nil {
+		return fail(err)
+	}
+	auth := []string{"--kubeconfig=" + kc, "--authentication-kubeconfig=" + kc, "--authorization-kubeconfig=" + kc,
+		"--leader-elect=false", "--secure-port=0"}
+	if err := n.run(o.AssetsDir, "kube-controller-manager", append(auth,
+		"--root-ca-file="+ca, "--service-account-private-key-file="+filepath.Join(env.CertDir(), "sa-signer.key"),
+		"--use-service-account-credentials=false")); err != nil {
+		return fail(err)
+	}
+	if err := n.run(o.AssetsDir, "kube-scheduler", auth); err != nil {
+		return fail(err)
+	}
+
+	// containerd with the CRI plugin, as the kubelet's runtime.
+	t1 := time.Now()
+	cniConf := filepath.Join(o.WorkDir, "cni")
+	if err := writeCNI(cniConf, o.WorkDir); err != nil {
+		return fail(err)
+	}
+	d, err := containerd.StartWithConfig(filepath.Join(o.WorkDir, "ctr"), func(root, state, socket string) string {
+		return criConfig(root, state, socket, cniConf)
+	})
+	if err != nil {
+		return fail(err)
+	}
+	n.Containerd = d
+	if err := n.importImages(ctx, o); err != nil {
+		return fail(err)
+	}
+	n.Timings["containerd and images"] = time.Since(t1)
+
+	t2 := time.Now()
+	if err := n.startKubelet(o, d.Socket); err != nil {
+		return fail(err)
+	}
+	if err := n.waitReady(ctx); err != nil {
+		return fail(err)
+	}
+	n.Timings["kubelet to node Ready"] = time.Since(t2)
+	n.Timings["whole start"] = time.Since(t0)
+	return n, nil
+}
+
+func ipCmd(args ...string) error {
+	if out, err := exec.Command("ip", args...).CombinedOutput(); err != nil {
+		return fmt.Errorf("ip %s: %w: %s", strings.Join(args, " "), err, out)
+	}
+	return nil
+}
+
+// writeCNI writes the bridge network: the node's bridge, no gateway and no
+// masquerade (pods talk to each other and to the node, nothing else).
+func writeCNI(dir, work string) error {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return err
+	}
+	conf := map[string]any{
+		"cniVersion": "0.4.0",
+		"name":       "plumbline",
+		"plugins": []any{map[string]any{
+			"type": "bridge", "bridge": Bridge, "isGateway": false, "ipMasq": false, "hairpinMode": true,
+			"ipam": map[string]any{"type": "host-local", "dataDir": filepath.Join(work, "cni-ipam"),
+				"ranges": []any{[]any{map[string]any{"subnet": podCIDR, "rangeStart": "10.88.1.1", "rangeEnd": "10.88.255.254"}}}},
+		}},
+	}
+	b, err := json.MarshalIndent(conf, "", "  ")
+	if err != nil {
+		return err
+	}
+	return os.WriteFile(filepath.Join(dir, "10-plumbline.conflist"), b, 0o644)
+}
+
+// criConfig is containerd's configuration for a node on this machine
+// (see DESIGN.md, "A real node"): overlayfs, runc without systemd cgroups,
+// oom_score_adj restricted (no CAP_SYS_RESOURCE here), no AppArmor, network
+// namespaces under its own state directory, the CNI plugins of Debian.
+func criConfig(root, state, socket, cniConf string) string {
+	return fmt.Sprintf(`version = 2
+root = %q
+state = %q
+[grpc]
+  address = %q
+[plugins."io.containerd.grpc.v1.cri"]
+  sandbox_image = %q
+  restrict_oom_score_adj = true
+  disable_apparmor = true
+  netns_mounts_under_state_dir = true
+  [plugins."io.containerd.grpc.v1.cri".containerd]
+    snapshotter = "overlayfs"
+    default_runtime_name = "runc"
+    [plugins."io.containerd.grpc.v1.cri".containerd.runtimes.runc]
+      runtime_type = "io.containerd.runc.v2"
+      [plugins."io.containerd.grpc.v1.cri".containerd.runtimes.runc.options]
+        SystemdCgroup = false
+  [plugins."io.containerd.grpc.v1.cri".cni]
+    bin_dir = %q
+    conf_dir = %q
+`, root, state, socket, PauseImage, cniBinDir, cniConf)
+}
+
+// importImages builds the pause image and imports it with the given
+// archives.
+func (n *Node) importImages(ctx context.Context, o Options) error {
+	dir := filepath.Join(o.WorkDir, "images")
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return err
+	}
+	bin := filepath.Join(dir, "pause")
+	build := exec.CommandContext(ctx, "go", "build", "-o", bin, "./internal/testenv/node/pause")
+	build.Dir = moduleRoot()
+	build.Env = append(os.Environ(), "CGO_ENABLED=0")
+	if out, err := build.CombinedOutput(); err != nil {
+		return fmt.Errorf("build the pause program: %w: %s", err, out)
+	}
+	img, err := image.Build(image.Spec{Binary: bin, Path: "/pause", CACerts: filepath.Join(o.WorkDir, "ca.crt"), Arch: runtime.GOARCH, Version: "1"})
+	if err != nil {
+		return err
+	}
+	var b bytes.Buffer
+	if err := image.WriteArchive(&b, PauseImage, img); err != nil {
+		return err
+	}
+	pause := filepath.Join(dir, "pause.tar")
+	if err := os.WriteFile(pause, b.Bytes(), 0o644); err != nil {
+		return err
+	}
+	for _, a := range append([]string{pause}, o.Images...) {
+		if _, err := n.Containerd.Import(ctx, a); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// moduleRoot is the repository root, from this file's place in it.
+func moduleRoot() string {
+	_, file, _, _ := runtime.Caller(0)
+	return filepath.Join(filepath.Dir(file), "..", "..", "..")
+}
+
+func (n *Node) startKubelet(o Options, socket string) error {
+	dir := filepath.Join(o.WorkDir, "kubelet")
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return err
+	}
+	kc := filepath.Join(o.WorkDir, "kubelet.kubeconfig")
+	if err := n.env.KubeconfigFor(kc, "system:node:"+Name, "system:nodes"); err != nil {
+		return err
+	}
+	config := fmt.Sprintf(`apiVersion: kubelet.config.k8s.io/v1beta1
+kind: KubeletConfiguration
+address: 127.0.0.1
+port: 10250
+readOnlyPort: 0
+healthzPort: 0
+failCgroupV1: false
+cgroupDriver: cgroupfs
+failSwapOn: false
+containerRuntimeEndpoint: unix://%s
+authentication:
+  anonymous:
+    enabled: false
+  webhook:
+    enabled: false
+  x509:
+    clientCAFile: %s
+authorization:
+  mode: AlwaysAllow
+podCIDR: %s
+resolvConf: ""
+imageGCHighThresholdPercent: 100
+imageGCLowThresholdPercent: 99
+evictionHard:
+  memory.available: "1Mi"
+  nodefs.available: "1%%"
+  imagefs.available: "1%%"
+serializeImagePulls: false
+`, socket, filepath.Join(o.WorkDir, "ca.crt"), podCIDR)
+	cfg := filepath.Join(o.WorkDir, "kubelet-config.yaml")
+	if err := os.WriteFile(cfg, []byte(config), 0o644); err != nil {
+		return err
+	}
+	return n.run(o.AssetsDir, "kubelet", []string{"--config=" + cfg, "--kubeconfig=" + kc, "--root-dir=" + dir,
+		"--cert-dir=" + filepath.Join(dir, "pki"), "--hostname-override=" + Name, "--node-ip=" + BridgeIP, "--v=1"})
+}
+
+func (n *Node) waitReady(ctx context.Context) error {
+	cs, err := kubernetes.NewForConfig(n.Config)
+	if err != nil {
+		return err
+	}
+	return wait.PollUntilContextTimeout(ctx, 200*time.Millisecond, 2*time.Minute, true, func(ctx context.Context) (bool, error) {
+		node, err := cs.CoreV1().Nodes().Get(ctx, Name, metav1.GetOptions{})
+		if err != nil {
+			return false, nil
+		}
+		for _, c := range node.Status.Conditions {
+			if c.Type == corev1.NodeReady && c.Status == corev1.ConditionTrue {
+				return true, nil
+			}
+		}
+		return false, nil
+	})
+}
+
+func (n *Node) run(assets, name string, args []string) error {
+	log, err := os.Create(filepath.Join(n.dir, name+".log"))
+	if err != nil {
+		return err
+	}
+	cmd := exec.Command(filepath.Join(assets, name), args...)
+	cmd.Stdout, cmd.Stderr = log, log
+	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
+	if err := cmd.Start(); err != nil {
+		log.Close()
+		return fmt.Errorf("start %s: %w", name, err)
+	}
+	n.procs = append(n.procs, cmd)
+	n.logs = append(n.logs, log)
+	return nil
+}
+
+// Stop stops the kubelet, the pods' containers, containerd, the controllers
+// and the control plane, and removes from the host what the start created.
+func (n *Node) Stop() {
+	for i := len(n.procs) - 1; i >= 0; i-- {
+		stopProc(n.procs[i])
+	}
+	if d := n.Containerd; d != nil {
+		ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+		// The pods' containers outlive the kubelet: end them first.
+		if out, err := d.Ctr(ctx, "tasks", "ls", "-q"); err == nil {
+			for _, id := range strings.Fields(out) {
+				_, _ = d.Ctr(ctx, "tasks", "kill", "-s", "SIGKILL", id)
+			}
+		}
+		cancel()
+		d.Stop()
+	}
+	if n.env != nil {
+		_ = n.env.Stop()
+	}
+	for _, l := range n.logs {
+		l.Close()
+	}
+	if n.rec != nil {
+		undo(n.rec, n.dir)
+	}
+}
+
+func stopProc(cmd *exec.Cmd) {
+	if cmd.Process == nil {
+		return
+	}
+	_ = syscall.Kill(-cmd.Process.Pid, syscall.SIGTERM)
+	done := make(chan struct{})
+	go func() { _ = cmd.Wait(); close(done) }()
+	select {
+	case <-done:
+	case <-time.After(10 * time.Second):
+		_ = syscall.Kill(-cmd.Process.Pid, syscall.SIGKILL)
+		<-done
+	}
+}
+
+// undo removes what a start recorded: mounts under its directory, the
+// bridge, and the host paths it created.
+func undo(r *record, dir string) {
+	unmountUnder(dir)
+	if r.Bridge {
+		_ = ipCmd("link", "del", Bridge)
+	}
+	for _, p := range r.Created {
+		unmountUnder(p)
+		_ = os.RemoveAll(p)
+	}
+	_ = os.Remove(r.path)
+}
+
+// cleanupStale undoes what an earlier start recorded and did not undo (its
+// test crashed): it stops that start's processes (their command lines name
+// its directory), then removes what it created.
+func cleanupStale(path string) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return
+	}
+	var r record
+	if json.Unmarshal(b, &r) != nil || r.Dir == "" {
+		_ = os.Remove(path)
+		return
+	}
+	r.path = path
+	_ = exec.Command("pkill", "-KILL", "-f", r.Dir).Run()
+	time.Sleep(200 * time.Millisecond)
+	undo(&r, r.Dir)
+	_ = os.RemoveAll(r.Dir)
+}
+
+// unmountUnder unmounts every mount below dir, deepest first.
+func unmountUnder(dir string) {
+	b, err := os.ReadFile("/proc/self/mounts")
+	if err != nil {
+		return
+	}
+	var under []string
+	for _, l := range strings.Split(string(b), "\n") {
+		if f := strings.Fields(l); len(f) > 1 && strings.HasPrefix(f[1], strings.TrimSuffix(dir, "/")+"/") {
+			under = append(under, f[1])
+		}
+	}
+	for i := len(under) - 1; i >= 0; i-- {
+		_ = syscall.Unmount(under[i], syscall.MNT_DETACH)
+	}
+}
