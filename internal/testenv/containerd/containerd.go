@@ -15,6 +15,8 @@ import (
 	"strings"
 	"syscall"
 	"time"
+
+	"plumbline.dev/plumbline/internal/testenv/proc"
 )
 
 // Namespace is the containerd namespace the kubelet's CRI uses; images
@@ -42,8 +44,7 @@ type Daemon struct {
 	// Socket is its gRPC address.
 	Socket string
 	dir    string
-	cmd    *exec.Cmd
-	log    *os.File
+	proc   *proc.Proc
 }
 
 // Start starts a containerd whose root, state and socket lie under dir,
@@ -68,18 +69,11 @@ func StartWithConfig(dir string, config func(root, state, socket string) string)
 	if err := os.WriteFile(cfg, []byte(config(filepath.Join(dir, "root"), filepath.Join(dir, "state"), d.Socket)), 0o600); err != nil {
 		return nil, err
 	}
-	log, err := os.Create(filepath.Join(dir, "containerd.log"))
+	p, err := proc.Start("containerd", []string{"--config", cfg}, filepath.Join(dir, "containerd.log"))
 	if err != nil {
 		return nil, err
 	}
-	d.log = log
-	d.cmd = exec.Command("containerd", "--config", cfg)
-	d.cmd.Stdout, d.cmd.Stderr = log, log
-	d.cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
-	if err := d.cmd.Start(); err != nil {
-		log.Close()
-		return nil, fmt.Errorf("start containerd: %w", err)
-	}
+	d.proc = p
 	deadline := time.Now().Add(20 * time.Second)
 	for {
 		if _, err := d.Ctr(context.Background(), "version"); err == nil {
@@ -87,7 +81,7 @@ func StartWithConfig(dir string, config func(root, state, socket string) string)
 		}
 		if time.Now().After(deadline) {
 			d.Stop()
-			return nil, fmt.Errorf("containerd did not answer on %s within 20s (log: %s)", d.Socket, log.Name())
+			return nil, fmt.Errorf("containerd did not answer on %s within 20s (log: %s)", d.Socket, p.Log.Name())
 		}
 		time.Sleep(100 * time.Millisecond)
 	}
@@ -117,16 +111,8 @@ func (d *Daemon) Run(ctx context.Context, image, id string, args ...string) (str
 // Stop stops the daemon and its shims, and unmounts what it mounted under
 // its directory.
 func (d *Daemon) Stop() {
-	if d.cmd != nil && d.cmd.Process != nil {
-		_ = syscall.Kill(-d.cmd.Process.Pid, syscall.SIGTERM)
-		done := make(chan struct{})
-		go func() { _ = d.cmd.Wait(); close(done) }()
-		select {
-		case <-done:
-		case <-time.After(10 * time.Second):
-			_ = syscall.Kill(-d.cmd.Process.Pid, syscall.SIGKILL)
-			<-done
-		}
+	if d.proc != nil {
+		d.proc.Stop(10 * time.Second)
 	}
 	// Shims outlive the daemon by design; theirs carry the socket's path.
 	_ = exec.Command("pkill", "-f", "containerd-shim.*"+d.Socket).Run()
@@ -136,8 +122,5 @@ func (d *Daemon) Stop() {
 				_ = syscall.Unmount(f[1], syscall.MNT_DETACH)
 			}
 		}
-	}
-	if d.log != nil {
-		d.log.Close()
 	}
 }

@@ -36,6 +36,7 @@ import (
 	"plumbline.dev/plumbline/internal/image"
 	"plumbline.dev/plumbline/internal/testenv/containerd"
 	"plumbline.dev/plumbline/internal/testenv/controlplane"
+	"plumbline.dev/plumbline/internal/testenv/proc"
 )
 
 // The node's fixed names and addresses.
@@ -111,8 +112,7 @@ type Node struct {
 
 	dir   string
 	env   *controlplane.Env
-	procs []*exec.Cmd
-	logs  []*os.File
+	procs []*proc.Proc
 	rec   *record
 }
 
@@ -397,19 +397,11 @@ func (n *Node) waitReady(ctx context.Context) error {
 }
 
 func (n *Node) run(assets, name string, args []string) error {
-	log, err := os.Create(filepath.Join(n.dir, name+".log"))
+	p, err := proc.Start(filepath.Join(assets, name), args, filepath.Join(n.dir, name+".log"))
 	if err != nil {
 		return err
 	}
-	cmd := exec.Command(filepath.Join(assets, name), args...)
-	cmd.Stdout, cmd.Stderr = log, log
-	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
-	if err := cmd.Start(); err != nil {
-		log.Close()
-		return fmt.Errorf("start %s: %w", name, err)
-	}
-	n.procs = append(n.procs, cmd)
-	n.logs = append(n.logs, log)
+	n.procs = append(n.procs, p)
 	return nil
 }
 
@@ -417,7 +409,7 @@ func (n *Node) run(assets, name string, args []string) error {
 // and the control plane, and removes from the host what the start created.
 func (n *Node) Stop() {
 	for i := len(n.procs) - 1; i >= 0; i-- {
-		stopProc(n.procs[i])
+		n.procs[i].Stop(10 * time.Second)
 	}
 	if d := n.Containerd; d != nil {
 		ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
@@ -433,26 +425,8 @@ func (n *Node) Stop() {
 	if n.env != nil {
 		_ = n.env.Stop()
 	}
-	for _, l := range n.logs {
-		l.Close()
-	}
 	if n.rec != nil {
 		undo(n.rec, n.dir)
-	}
-}
-
-func stopProc(cmd *exec.Cmd) {
-	if cmd.Process == nil {
-		return
-	}
-	_ = syscall.Kill(-cmd.Process.Pid, syscall.SIGTERM)
-	done := make(chan struct{})
-	go func() { _ = cmd.Wait(); close(done) }()
-	select {
-	case <-done:
-	case <-time.After(10 * time.Second):
-		_ = syscall.Kill(-cmd.Process.Pid, syscall.SIGKILL)
-		<-done
 	}
 }
 

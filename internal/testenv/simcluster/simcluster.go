@@ -15,9 +15,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
-	"os/exec"
 	"path/filepath"
-	"syscall"
 	"time"
 
 	corev1 "k8s.io/api/core/v1"
@@ -27,6 +25,7 @@ import (
 	"k8s.io/client-go/rest"
 
 	"plumbline.dev/plumbline/internal/testenv/controlplane"
+	"plumbline.dev/plumbline/internal/testenv/proc"
 )
 
 //go:embed stages.yaml
@@ -58,8 +57,7 @@ type Cluster struct {
 	// KubeconfigPath is the admin kubeconfig, for kubectl.
 	KubeconfigPath string
 	env            *controlplane.Env
-	procs          []*exec.Cmd
-	logs           []*os.File
+	procs          []*proc.Proc
 }
 
 // AssetsDir is where the binaries are for a checkout at root:
@@ -127,22 +125,11 @@ func Start(ctx context.Context, o Options) (*Cluster, error) {
 }
 
 func (c *Cluster) run(o Options, name string, args []string) error {
-	logPath := filepath.Join(o.WorkDir, name+".log")
-	log, err := os.Create(logPath)
+	p, err := proc.Start(filepath.Join(o.AssetsDir, name), args, filepath.Join(o.WorkDir, name+".log"))
 	if err != nil {
-		return fmt.Errorf("create %s: %w", logPath, err)
+		return err
 	}
-	cmd := exec.Command(filepath.Join(o.AssetsDir, name), args...)
-	cmd.Stdout, cmd.Stderr = log, log
-	// Its own process group, so a Ctrl-C at the terminal reaches the demo
-	// first and the demo stops the components in order.
-	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
-	if err := cmd.Start(); err != nil {
-		log.Close()
-		return fmt.Errorf("start %s: %w", name, err)
-	}
-	c.procs = append(c.procs, cmd)
-	c.logs = append(c.logs, log)
+	c.procs = append(c.procs, p)
 	return nil
 }
 
@@ -193,19 +180,9 @@ func (c *Cluster) addNodes(ctx context.Context, n int) error {
 func (c *Cluster) Stop() error {
 	var errs []error
 	for i := len(c.procs) - 1; i >= 0; i-- {
-		p := c.procs[i]
-		_ = p.Process.Signal(syscall.SIGTERM)
-		done := make(chan struct{})
-		go func() { _ = p.Wait(); close(done) }()
-		select {
-		case <-done:
-		case <-time.After(10 * time.Second):
-			_ = p.Process.Kill()
-			<-done
-		}
-		c.logs[i].Close()
+		c.procs[i].Stop(10 * time.Second)
 	}
-	c.procs, c.logs = nil, nil
+	c.procs = nil
 	if c.env != nil {
 		if err := c.env.Stop(); err != nil {
 			errs = append(errs, err)
