@@ -158,12 +158,12 @@ containerd: ## Make containerd and runc available for the image test: the PATH's
 	else echo "containerd and runc are not installed and need root to install: the image test will be skipped"; fi
 
 .PHONY: node
-node: controlplane containerd ## Make the real node tier runnable: the kubelet built into bin/k8s (once, about 13 minutes fresh), Debian's CNI plugins (as root).
+node: controlplane containerd ## Make the real node tier runnable: the kubelet and kube-proxy built into bin/k8s (once, about 15 minutes fresh), Debian's CNI plugins and iptables (as root).
 	@if [ "$$(id -u)" != 0 ]; then echo "the real node needs root: its tests will be skipped"; exit 0; fi; \
-	if [ ! -x /usr/lib/cni/bridge ]; then \
-	  echo "installing Debian's containernetworking-plugins package ..."; \
-	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq containernetworking-plugins >/dev/null; fi; \
-	hack/build-controlplane.sh kubelet
+	if [ ! -x /usr/lib/cni/bridge ] || ! command -v iptables >/dev/null || ! command -v conntrack >/dev/null; then \
+	  echo "installing Debian's containernetworking-plugins, iptables and conntrack packages ..."; \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq containernetworking-plugins iptables conntrack >/dev/null; fi; \
+	hack/build-controlplane.sh kubelet kube-proxy
 
 .PHONY: kubectl
 kubectl: ## Make kubectl available: the PATH's, else built from the Go module proxy into bin/k8s (about a minute after controlplane).

@@ -33,8 +33,7 @@ for c in "${components[@]}"; do
     kubectl|kubelet|kube-proxy)
       # kubectl for the machines that have none (the tests render
       # config/default with its kustomize and read kubectl get's columns);
-      # the kubelet for the real node (kube-proxy builds the same way, for
-      # when the node serves Service addresses).
+      # the kubelet and kube-proxy for the real node.
       v=$(cd "$mod" && go list -m -f '{{.Version}}' k8s.io/kubernetes)
       minor=$(echo "$v" | cut -d. -f2)
       (cd "$mod" && go build -trimpath -ldflags "-X k8s.io/component-base/version.gitVersion=$v -X k8s.io/component-base/version.gitMajor=1 -X k8s.io/component-base/version.gitMinor=$minor" \

@@ -29,6 +29,11 @@ type Options struct {
 	// (dir/apiserver, dir/etcd) instead of new temporary directories, so
 	// their command lines name it.
 	Dir string
+	// ServingCA, with Dir, says that dir/apiserver already holds the
+	// serving certificate and the service-account key pair (apiserver.crt
+	// and .key, sa-signer.crt and .key), signed by this CA, to use instead
+	// of the ones the control plane would make.
+	ServingCA []byte
 }
 
 // Env is a running control plane.
@@ -67,6 +72,9 @@ func Start(o Options) (*Env, error) {
 		}
 		env.ControlPlane.GetAPIServer().CertDir = api
 		env.ControlPlane.Etcd = &envtest.Etcd{DataDir: etcd}
+		if o.ServingCA != nil {
+			env.ControlPlane.GetAPIServer().SecureServing.CA = o.ServingCA
+		}
 	}
 	if len(o.APIServerArgs) > 0 {
 		args := env.ControlPlane.GetAPIServer().Configure()

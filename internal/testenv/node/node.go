@@ -19,6 +19,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"net/url"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -48,6 +49,8 @@ const (
 	Bridge   = "plumbline0"
 	BridgeIP = "10.88.0.1"
 	podCIDR  = "10.88.0.0/16"
+	// serviceCIDR is the API server's service range (envtest's).
+	serviceCIDR = "10.0.0.0/24"
 	// PauseImage is the sandbox image, built and imported by Start.
 	PauseImage = "plumbline.local/pause:1"
 	cniBinDir  = "/usr/lib/cni"
@@ -65,7 +68,7 @@ func Available(assets string) error {
 	if err := containerd.Available(); err != nil {
 		return fmt.Errorf("%w: %v", ErrUnavailable, err)
 	}
-	for _, b := range []string{"kubelet", "kube-controller-manager", "kube-scheduler"} {
+	for _, b := range []string{"kubelet", "kube-proxy", "kube-controller-manager", "kube-scheduler"} {
 		if _, err := os.Stat(filepath.Join(assets, b)); err != nil {
 			return fmt.Errorf("%w: %s is not built in %s (make node builds it)", ErrUnavailable, b, assets)
 		}
@@ -75,8 +78,10 @@ func Available(assets string) error {
 			return fmt.Errorf("%w: %s is missing (apt-get install -y containernetworking-plugins)", ErrUnavailable, p)
 		}
 	}
-	if _, err := exec.LookPath("ip"); err != nil {
-		return fmt.Errorf("%w: the ip command is missing (iproute2)", ErrUnavailable)
+	for _, tool := range []string{"ip", "iptables", "ip6tables", "conntrack"} {
+		if _, err := exec.LookPath(tool); err != nil {
+			return fmt.Errorf("%w: %s is missing (apt-get install -y iproute2 iptables conntrack)", ErrUnavailable, tool)
+		}
 	}
 	if _, err := os.Stat("/sys/fs/cgroup"); err != nil {
 		return fmt.Errorf("%w: no cgroups at /sys/fs/cgroup", ErrUnavailable)
@@ -127,6 +132,51 @@ type record struct {
 	Dir     string   `json:"dir"`
 	Bridge  bool     `json:"bridge"`
 	Created []string `json:"created"`
+	// Proxy is the kube-proxy binary whose rules to clean up.
+	Proxy string `json:"proxy,omitempty"`
+	// Rule is the nat rule that leads the kubernetes Service to the API
+	// server on loopback (iptables arguments after the chain).
+	Rule []string `json:"rule,omitempty"`
+	// Chains are the kubelet's iptables chains ("tool table chain") that
+	// were not there before the start.
+	Chains []string `json:"chains,omitempty"`
+}
+
+// kubeletChains are the chains the kubelet makes in each table, with
+// the jumps to KUBE-FIREWALL from INPUT and OUTPUT in filter.
+var kubeletChains = []struct{ table, chain string }{
+	{"nat", "KUBE-KUBELET-CANARY"}, {"filter", "KUBE-KUBELET-CANARY"}, {"mangle", "KUBE-KUBELET-CANARY"},
+	{"filter", "KUBE-FIREWALL"}, {"mangle", "KUBE-IPTABLES-HINT"},
+}
+
+// newChains lists the kubelet's chains missing now, for both IP versions.
+func newChains() []string {
+	var out []string
+	for _, tool := range []string{"iptables", "ip6tables"} {
+		for _, c := range kubeletChains {
+			if exec.Command(tool, "-t", c.table, "-S", c.chain).Run() != nil {
+				out = append(out, tool+" "+c.table+" "+c.chain)
+			}
+		}
+	}
+	return out
+}
+
+// removeChains removes chains a start made, with the jumps to them.
+func removeChains(chains []string) {
+	for _, c := range chains {
+		f := strings.Fields(c)
+		if len(f) != 3 {
+			continue
+		}
+		tool, table, chain := f[0], f[1], f[2]
+		for _, from := range []string{"INPUT", "OUTPUT", "FORWARD", "PREROUTING", "POSTROUTING"} {
+			for exec.Command(tool, "-t", table, "-D", from, "-j", chain).Run() == nil {
+			}
+		}
+		_ = exec.Command(tool, "-t", table, "-F", chain).Run()
+		_ = exec.Command(tool, "-t", table, "-X", chain).Run()
+	}
 }
 
 func (r *record) save() error {
@@ -156,6 +206,7 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 	t0 := time.Now()
 
 	// The bridge first: it is the node's IP and the pods' network.
+	n.rec.Chains = newChains()
 	for _, p := range kubeletHostPaths {
 		if _, err := os.Stat(p); errors.Is(err, os.ErrNotExist) {
 			n.rec.Created = append(n.rec.Created, p)
@@ -176,13 +227,21 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 	}
 
 	kc := filepath.Join(o.WorkDir, "admin.kubeconfig")
+	cp := filepath.Join(o.WorkDir, "cp")
+	servingCA, err := writeServingCerts(filepath.Join(cp, "apiserver"))
+	if err != nil {
+		return fail(err)
+	}
 	// The control plane's files under the work directory: a crashed test's
-	// API server and etcd are found by it (cleanupStale).
-	env, err := controlplane.Start(controlplane.Options{AssetsDir: o.AssetsDir, CRDDir: o.CRDDir, KubeconfigPath: kc, Dir: filepath.Join(o.WorkDir, "cp"),
+	// API server and etcd are found by it (cleanupStale). Pods get
+	// service-account tokens (the admission plugin the test control plane
+	// turns off is on) and reach the API server as the kubernetes Service.
+	env, err := controlplane.Start(controlplane.Options{AssetsDir: o.AssetsDir, CRDDir: o.CRDDir, KubeconfigPath: kc, Dir: cp, ServingCA: servingCA,
 		APIServerArgs: map[string]string{
 			"authorization-mode":              "Node,RBAC",
 			"kubelet-preferred-address-types": "Hostname,InternalIP",
 			"allow-privileged":                "true",
+			"disable-admission-plugins":       "",
 		}})
 	if err != nil {
 		return fail(err)
@@ -230,6 +289,12 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 		return fail(err)
 	}
 	n.Timings["kubelet to node Ready"] = time.Since(t2)
+	// kube-proxy once the node is there: it waits for its Node object.
+	t3 := time.Now()
+	if err := n.startProxy(o, kc); err != nil {
+		return fail(err)
+	}
+	n.Timings["kube-proxy's rules"] = time.Since(t3)
 	n.Timings["whole start"] = time.Since(t0)
 	return n, nil
 }
@@ -253,7 +318,9 @@ func writeCNI(dir, work string) error {
 		"plugins": []any{map[string]any{
 			"type": "bridge", "bridge": Bridge, "isGateway": false, "ipMasq": false, "hairpinMode": true,
 			"ipam": map[string]any{"type": "host-local", "dataDir": filepath.Join(work, "cni-ipam"),
-				"ranges": []any{[]any{map[string]any{"subnet": podCIDR, "rangeStart": "10.88.1.1", "rangeEnd": "10.88.255.254"}}}},
+				"ranges": []any{[]any{map[string]any{"subnet": podCIDR, "rangeStart": "10.88.1.1", "rangeEnd": "10.88.255.254"}}},
+				// Services through the node, where kube-proxy's rules are.
+				"routes": []any{map[string]any{"dst": serviceCIDR, "gw": BridgeIP}}},
 		}},
 	}
 	b, err := json.MarshalIndent(conf, "", "  ")
@@ -434,6 +501,13 @@ func (n *Node) Stop() {
 // bridge, and the host paths it created.
 func undo(r *record, dir string) {
 	unmountUnder(dir)
+	if r.Proxy != "" {
+		_ = exec.Command(r.Proxy, "--cleanup").Run()
+	}
+	if len(r.Rule) > 0 {
+		_ = exec.Command("iptables", append([]string{"-t", "nat", "-D", "PREROUTING"}, r.Rule...)...).Run()
+	}
+	removeChains(r.Chains)
 	if r.Bridge {
 		_ = ipCmd("link", "del", Bridge)
 	}
@@ -479,4 +553,46 @@ func unmountUnder(dir string) {
 	for i := len(under) - 1; i >= 0; i-- {
 		_ = syscall.Unmount(under[i], syscall.MNT_DETACH)
 	}
+}
+
+// startProxy runs kube-proxy (iptables mode), so pods reach Services; the
+// kubernetes Service's endpoint is the API server on 127.0.0.1, which a
+// packet from the bridge may be routed to only with route_localnet on it.
+func (n *Node) startProxy(o Options, kc string) error {
+	bin := filepath.Join(o.AssetsDir, "kube-proxy")
+	u, err := url.Parse(n.Config.Host)
+	if err != nil {
+		return err
+	}
+	// The API server listens on loopback only, and an Endpoints address
+	// may not be a loopback one (the test control plane advertises a
+	// documentation address): one rule before kube-proxy's leads the
+	// kubernetes Service from the bridge to it.
+	n.rec.Proxy = bin
+	n.rec.Rule = []string{"-i", Bridge, "-d", serviceIP + "/32", "-p", "tcp", "--dport", "443", "-j", "DNAT", "--to-destination", "127.0.0.1:" + u.Port()}
+	if err := n.rec.save(); err != nil {
+		return err
+	}
+	if err := os.WriteFile("/proc/sys/net/ipv4/conf/"+Bridge+"/route_localnet", []byte("1"), 0o644); err != nil {
+		return fmt.Errorf("route_localnet on %s: %w", Bridge, err)
+	}
+	if err := n.run(o.AssetsDir, "kube-proxy", []string{"--kubeconfig=" + kc, "--hostname-override=" + Name, "--proxy-mode=iptables",
+		"--cluster-cidr=" + podCIDR, "--conntrack-max-per-core=0", "--healthz-bind-address=127.0.0.1:10256", "--metrics-bind-address=127.0.0.1:10249",
+		"--nodeport-addresses=" + BridgeIP + "/32", "--v=1"}); err != nil {
+		return err
+	}
+	// Ours goes before kube-proxy's jump, once that is there (kube-proxy
+	// keeps its jump where it is once made).
+	portals := []string{"-t", "nat", "-C", "PREROUTING", "-m", "comment", "--comment", "kubernetes service portals", "-j", "KUBE-SERVICES"}
+	deadline := time.Now().Add(30 * time.Second)
+	for exec.Command("iptables", portals...).Run() != nil {
+		if time.Now().After(deadline) {
+			return fmt.Errorf("kube-proxy made no rules within 30s (log: %s)", filepath.Join(n.dir, "kube-proxy.log"))
+		}
+		time.Sleep(200 * time.Millisecond)
+	}
+	if out, err := exec.Command("iptables", append([]string{"-t", "nat", "-I", "PREROUTING", "1"}, n.rec.Rule...)...).CombinedOutput(); err != nil {
+		return fmt.Errorf("iptables: %w: %s", err, out)
+	}
+	return nil
 }

@@ -26,13 +26,15 @@ const testImage = "plumbline.local/plumbline:node-test"
 
 // The real node runs Jobs of the plumbline image in real containers: one
 // that succeeds, and one whose failure the kubelet reports in the
-// container's termination message (from its log, as the Job asks). The
-// figures (the node's start, a Job pod from creation to completion) are
-// printed. Needs root, Debian's containerd, runc and CNI plugins, and the
+// container's termination message (from its log, as the Job asks); then
+// the manager, deployed from config/default as a user would, runs in a pod
+// under its own ServiceAccount and RBAC and acts on a line. The figures
+// (the node's start, a Job pod from creation to completion, the manager's
+// pod) are printed. Needs root, Debian's containerd, runc and CNI plugins, and the
 // kubelet built into bin/k8s (make node); make test requires it where it
 // can run (PLUMBLINE_REQUIRE_NODE=1), elsewhere it is skipped with the
 // reason.
-func TestNodeRunsJobs(t *testing.T) {
+func TestRealNode(t *testing.T) {
 	if testing.Short() {
 		t.Skip("starts a real node")
 	}
@@ -67,8 +69,11 @@ func TestNodeRunsJobs(t *testing.T) {
 		if out, _ := exec.Command("ip", "link", "show", Bridge).CombinedOutput(); !strings.Contains(string(out), "does not exist") {
 			t.Errorf("the bridge %s is still there after Stop: %s", Bridge, out)
 		}
+		if out, _ := exec.Command("iptables", "-t", "nat", "-S", "PREROUTING").CombinedOutput(); strings.Contains(string(out), serviceIP) || strings.Contains(string(out), "KUBE-SERVICES") {
+			t.Errorf("nat rules are still there after Stop:\n%s", out)
+		}
 	})
-	for _, k := range []string{"control plane", "containerd and images", "kubelet to node Ready", "whole start"} {
+	for _, k := range []string{"control plane", "containerd and images", "kubelet to node Ready", "kube-proxy's rules", "whole start"} {
 		t.Logf("node: %s %s", k, n.Timings[k].Round(100*time.Millisecond))
 	}
 
@@ -92,6 +97,100 @@ func TestNodeRunsJobs(t *testing.T) {
 	term := pods.Items[0].Status.ContainerStatuses[0].State.Terminated
 	if term == nil || term.ExitCode != 2 || !strings.Contains(term.Message, "--history is required") {
 		t.Errorf("the failed container's state: %+v", term)
+	}
+
+	managerInAPod(ctx, t, n, cs, root)
+}
+
+// managerInAPod applies config/default as a user would (kubectl apply
+// --server-side of its kustomization, the image set), and checks that the
+// manager, a pod under its own ServiceAccount and the generated RBAC,
+// reaches the API server through the kubernetes Service and acts on a line.
+func managerInAPod(ctx context.Context, t *testing.T, n *Node, cs kubernetes.Interface, root string) {
+	t.Helper()
+	kubectl, err := exec.LookPath("kubectl")
+	if err != nil {
+		t.Skip("kubectl is not installed (make kubectl)")
+	}
+	rendered, err := exec.Command(kubectl, "kustomize", filepath.Join(root, "config", "default")).Output()
+	if err != nil {
+		t.Fatalf("kubectl kustomize config/default: %v", err)
+	}
+	// The image set as kustomize's images field would, pulled never: it is
+	// in the node's containerd.
+	var lines []string
+	for _, l := range strings.Split(string(rendered), "\n") {
+		if strings.TrimSpace(l) == "image: plumbline:dev" {
+			indent := l[:len(l)-len(strings.TrimLeft(l, " "))]
+			lines = append(lines, indent+"image: "+testImage, indent+"imagePullPolicy: Never")
+			continue
+		}
+		lines = append(lines, l)
+	}
+	manifest := strings.Join(lines, "\n")
+	apply := exec.Command(kubectl, "--kubeconfig", n.KubeconfigPath, "apply", "--server-side", "-f", "-")
+	apply.Stdin = strings.NewReader(manifest)
+	if out, err := apply.CombinedOutput(); err != nil {
+		t.Fatalf("kubectl apply --server-side: %v\n%s", err, out)
+	}
+	start := time.Now()
+	err = wait.PollUntilContextTimeout(ctx, time.Second, 50*time.Second, true, func(ctx context.Context) (bool, error) {
+		d, err := cs.AppsV1().Deployments("plumbline-system").Get(ctx, "plumbline-manager", metav1.GetOptions{})
+		return err == nil && d.Status.AvailableReplicas == 1, nil
+	})
+	if err != nil {
+		pods, _ := cs.CoreV1().Pods("plumbline-system").List(ctx, metav1.ListOptions{})
+		for _, p := range pods.Items {
+			t.Logf("pod %s: %s %+v", p.Name, p.Status.Phase, p.Status.ContainerStatuses)
+		}
+		b, _ := os.ReadFile(filepath.Join(n.dir, "kube-proxy.log"))
+		t.Logf("kube-proxy.log:\n%s", b)
+		if out, err := exec.Command("iptables-save", "-t", "nat").CombinedOutput(); err == nil {
+			t.Logf("iptables nat:\n%s", out)
+		}
+		// The container's own log, as the kubelet keeps it.
+		files, _ := filepath.Glob("/var/log/pods/plumbline-system_*/manager/*.log")
+		for _, f := range files {
+			b, _ := os.ReadFile(f)
+			t.Logf("%s:\n%s", f, b)
+		}
+		t.Fatalf("the manager's Deployment is not available: %v", err)
+	}
+	t.Logf("node: the manager pod available %s after apply", time.Since(start).Round(100*time.Millisecond))
+
+	// It acts: a line whose serving Deployment is missing gets Ready=False
+	// (ServingNotFound) from the manager in the pod.
+	line := `apiVersion: v1
+kind: Namespace
+metadata:
+  name: larkspur
+---
+apiVersion: plumbline.dev/v1alpha1
+kind: ModelLine
+metadata:
+  name: late-risk
+  namespace: larkspur
+spec:
+  serving: {deploymentName: late-risk-scorer, containerName: scorer}
+  training:
+    artifactURI: s3://larkspur-models/late-risk/{{.Number}}
+    jobTemplate: {spec: {template: {spec: {restartPolicy: Never, containers: [{name: train, image: ` + testImage + `}]}}}}
+  gate:
+    jobTemplate: {spec: {template: {spec: {restartPolicy: Never, containers: [{name: gate, image: ` + testImage + `}]}}}}
+    criteria: [{metric: roc_auc, minimum: 0.8}]
+`
+	apply = exec.Command(kubectl, "--kubeconfig", n.KubeconfigPath, "apply", "--server-side", "-f", "-")
+	apply.Stdin = strings.NewReader(line)
+	if out, err := apply.CombinedOutput(); err != nil {
+		t.Fatalf("apply a line: %v\n%s", err, out)
+	}
+	err = wait.PollUntilContextTimeout(ctx, time.Second, time.Minute, true, func(ctx context.Context) (bool, error) {
+		out, err := exec.Command(kubectl, "--kubeconfig", n.KubeconfigPath, "-n", "larkspur", "get", "mline", "late-risk",
+			"-o", `jsonpath={.status.conditions[?(@.type=="Ready")].reason}`).Output()
+		return err == nil && string(out) == "ServingNotFound", nil
+	})
+	if err != nil {
+		t.Errorf("the manager in its pod did not judge the line: %v", err)
 	}
 }
 
