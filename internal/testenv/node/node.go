@@ -140,6 +140,30 @@ type record struct {
 	// Chains are the kubelet's iptables chains ("tool table chain") that
 	// were not there before the start.
 	Chains []string `json:"chains,omitempty"`
+	// Sysctls are the kernel settings the kubelet and kube-proxy change,
+	// with their values before the start.
+	Sysctls map[string]string `json:"sysctls,omitempty"`
+}
+
+// changedSysctls are the settings the kubelet sets for itself (its
+// defaults for overcommit and panics) and kube-proxy for conntrack; they
+// are put back at stop.
+var changedSysctls = []string{
+	"vm/overcommit_memory", "vm/panic_on_oom", "kernel/panic", "kernel/panic_on_oops",
+	"kernel/keys/root_maxkeys", "kernel/keys/root_maxbytes",
+	"net/netfilter/nf_conntrack_max", "net/netfilter/nf_conntrack_tcp_timeout_established",
+	"net/netfilter/nf_conntrack_tcp_timeout_close_wait",
+}
+
+// readSysctls reads the settings that can be read here.
+func readSysctls() map[string]string {
+	out := map[string]string{}
+	for _, k := range changedSysctls {
+		if b, err := os.ReadFile("/proc/sys/" + k); err == nil {
+			out[k] = strings.TrimSpace(string(b))
+		}
+	}
+	return out
 }
 
 // kubeletChains are the chains the kubelet makes in each table, with
@@ -207,6 +231,7 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 
 	// The bridge first: it is the node's IP and the pods' network.
 	n.rec.Chains = newChains()
+	n.rec.Sysctls = readSysctls()
 	for _, p := range kubeletHostPaths {
 		if _, err := os.Stat(p); errors.Is(err, os.ErrNotExist) {
 			n.rec.Created = append(n.rec.Created, p)
@@ -508,6 +533,9 @@ func undo(r *record, dir string) {
 		_ = exec.Command("iptables", append([]string{"-t", "nat", "-D", "PREROUTING"}, r.Rule...)...).Run()
 	}
 	removeChains(r.Chains)
+	for k, v := range r.Sysctls {
+		_ = os.WriteFile("/proc/sys/"+k, []byte(v), 0o644)
+	}
 	if r.Bridge {
 		_ = ipCmd("link", "del", Bridge)
 	}

@@ -3,6 +3,7 @@ package node
 import (
 	"bytes"
 	"context"
+	"maps"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -59,6 +60,7 @@ func TestRealNode(t *testing.T) {
 
 	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Minute)
 	defer cancel()
+	before := readSysctls()
 	n, err := Start(ctx, Options{AssetsDir: assets, CRDDir: filepath.Join(root, "config", "crd", "bases"), WorkDir: filepath.Join(dir, "node"), Images: []string{archive}})
 	if err != nil {
 		logs(t, filepath.Join(dir, "node"))
@@ -66,6 +68,9 @@ func TestRealNode(t *testing.T) {
 	}
 	t.Cleanup(func() {
 		n.Stop()
+		if after := readSysctls(); !maps.Equal(before, after) {
+			t.Errorf("kernel settings changed by the node and not put back:\nbefore %v\nafter  %v", before, after)
+		}
 		if out, _ := exec.Command("ip", "link", "show", Bridge).CombinedOutput(); !strings.Contains(string(out), "does not exist") {
 			t.Errorf("the bridge %s is still there after Stop: %s", Bridge, out)
 		}
