@@ -8,7 +8,6 @@ import (
 	"flag"
 	"fmt"
 	"os"
-	"path/filepath"
 	"runtime"
 
 	"plumbline.dev/plumbline/internal/image"
@@ -31,30 +30,8 @@ func main() {
 }
 
 func run(s image.Spec, name, out string) error {
-	img, err := image.Build(s)
+	digest, err := image.WriteFile(out, name, s)
 	if err != nil {
-		return err
-	}
-	digest, err := img.Digest()
-	if err != nil {
-		return err
-	}
-	tmp, err := os.CreateTemp(filepath.Dir(out), ".image-*.tar")
-	if err != nil {
-		return err
-	}
-	defer os.Remove(tmp.Name())
-	if err := image.WriteArchive(tmp, name, img); err != nil {
-		tmp.Close()
-		return fmt.Errorf("write %s: %w", out, err)
-	}
-	if err := tmp.Close(); err != nil {
-		return err
-	}
-	if err := os.Chmod(tmp.Name(), 0o644); err != nil {
-		return err
-	}
-	if err := os.Rename(tmp.Name(), out); err != nil {
 		return err
 	}
 	fmt.Printf("%s: %s (%s), load with: ctr -n k8s.io images import %s | kind load image-archive %s | docker load -i %s\n",

@@ -1,7 +1,6 @@
 package image
 
 import (
-	"bytes"
 	"context"
 	"errors"
 	"fmt"
@@ -40,16 +39,8 @@ func TestImageRunsInContainerd(t *testing.T) {
 	if out, err := build.CombinedOutput(); err != nil {
 		t.Fatalf("build the static binary: %v\n%s", err, out)
 	}
-	img, err := Build(Spec{Binary: bin, CACerts: "/etc/ssl/certs/ca-certificates.crt", Arch: "amd64", Version: "image-test"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var b bytes.Buffer
-	if err := WriteArchive(&b, "plumbline:image-test", img); err != nil {
-		t.Fatal(err)
-	}
 	archive := filepath.Join(dir, "plumbline.tar")
-	if err := os.WriteFile(archive, b.Bytes(), 0o644); err != nil {
+	if _, err := WriteFile(archive, "plumbline:image-test", Spec{Binary: bin, CACerts: "/etc/ssl/certs/ca-certificates.crt", Arch: "amd64", Version: "image-test"}); err != nil {
 		t.Fatal(err)
 	}
 

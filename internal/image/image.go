@@ -15,6 +15,7 @@ import (
 	"io"
 	"os"
 	"path"
+	"path/filepath"
 	"strings"
 	"time"
 
@@ -238,6 +239,35 @@ func WriteArchive(w io.Writer, name string, img v1.Image) error {
 		}
 	}
 	return tw.Close()
+}
+
+// WriteFile builds the image of s and writes its archive, named name, to
+// path (whole or not at all), and returns the image's digest.
+func WriteFile(path, name string, s Spec) (v1.Hash, error) {
+	img, err := Build(s)
+	if err != nil {
+		return v1.Hash{}, err
+	}
+	digest, err := img.Digest()
+	if err != nil {
+		return v1.Hash{}, err
+	}
+	tmp, err := os.CreateTemp(filepath.Dir(path), ".image-*.tar")
+	if err != nil {
+		return v1.Hash{}, err
+	}
+	defer os.Remove(tmp.Name())
+	if err := WriteArchive(tmp, name, img); err != nil {
+		tmp.Close()
+		return v1.Hash{}, fmt.Errorf("write %s: %w", path, err)
+	}
+	if err := tmp.Close(); err != nil {
+		return v1.Hash{}, err
+	}
+	if err := os.Chmod(tmp.Name(), 0o644); err != nil {
+		return v1.Hash{}, err
+	}
+	return digest, os.Rename(tmp.Name(), path)
 }
 
 // fullName is a reference as containerd records it, and its tag.

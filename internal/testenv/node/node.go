@@ -14,7 +14,6 @@
 package node
 
 import (
-	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -397,16 +396,8 @@ func (n *Node) importImages(ctx context.Context, o Options) error {
 	if out, err := build.CombinedOutput(); err != nil {
 		return fmt.Errorf("build the pause program: %w: %s", err, out)
 	}
-	img, err := image.Build(image.Spec{Binary: bin, Path: "/pause", CACerts: filepath.Join(o.WorkDir, "ca.crt"), Arch: runtime.GOARCH, Version: "1"})
-	if err != nil {
-		return err
-	}
-	var b bytes.Buffer
-	if err := image.WriteArchive(&b, PauseImage, img); err != nil {
-		return err
-	}
 	pause := filepath.Join(dir, "pause.tar")
-	if err := os.WriteFile(pause, b.Bytes(), 0o644); err != nil {
+	if _, err := image.WriteFile(pause, PauseImage, image.Spec{Binary: bin, Path: "/pause", CACerts: filepath.Join(o.WorkDir, "ca.crt"), Arch: runtime.GOARCH, Version: "1"}); err != nil {
 		return err
 	}
 	for _, a := range append([]string{pause}, o.Images...) {

@@ -1,7 +1,6 @@
 package node
 
 import (
-	"bytes"
 	"context"
 	"maps"
 	"os"
@@ -251,16 +250,8 @@ func buildImage(t *testing.T, root, dir string) string {
 	if out, err := build.CombinedOutput(); err != nil {
 		t.Fatalf("build the static binary: %v\n%s", err, out)
 	}
-	img, err := image.Build(image.Spec{Binary: bin, CACerts: "/etc/ssl/certs/ca-certificates.crt", Arch: runtime.GOARCH, Version: "node-test"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var b bytes.Buffer
-	if err := image.WriteArchive(&b, testImage, img); err != nil {
-		t.Fatal(err)
-	}
 	archive := filepath.Join(dir, "plumbline.tar")
-	if err := os.WriteFile(archive, b.Bytes(), 0o644); err != nil {
+	if _, err := image.WriteFile(archive, testImage, image.Spec{Binary: bin, CACerts: "/etc/ssl/certs/ca-certificates.crt", Arch: runtime.GOARCH, Version: "node-test"}); err != nil {
 		t.Fatal(err)
 	}
 	return archive

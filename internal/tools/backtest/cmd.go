@@ -146,16 +146,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	if err := cli.Parse(fs, args, 0); err != nil {
 		return err
 	}
-	fs.Visit(func(f *flag.Flag) {
-		switch f.Name {
-		case "after-retrain":
-			afterRetrainSet = true
-		case "target":
-			targetSet = true
-		case "chart-policy":
-			chartPolicySet = true
-		}
-	})
+	afterRetrainSet, targetSet, chartPolicySet = cli.IsSet(fs, "after-retrain"), cli.IsSet(fs, "target"), cli.IsSet(fs, "chart-policy")
 	usage := func(format string, args ...any) error { return cli.Usagef(fs, format, args...) }
 	if err := hf.given(usage); err != nil {
 		return err

@@ -120,6 +120,14 @@ func Usagef(fs *flag.FlagSet, format string, args ...any) error {
 	return ErrUsage
 }
 
+// IsSet reports whether the command line gave the named flag (a default
+// left alone is not given).
+func IsSet(fs *flag.FlagSet, name string) bool {
+	set := false
+	fs.Visit(func(f *flag.Flag) { set = set || f.Name == name })
+	return set
+}
+
 // Required refuses, as a usage error, the first of the named flags left
 // empty.
 func Required(fs *flag.FlagSet, names ...string) error {

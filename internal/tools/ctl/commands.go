@@ -20,7 +20,6 @@ import (
 	"sigs.k8s.io/yaml"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/manager"
 )
 
 func (e *env) line(ctx context.Context, name string) (*v1alpha1.ModelLine, error) {
@@ -238,10 +237,7 @@ func (t *lineTable) flush() error {
 // without managedFields, as kubectl get does.
 func (e *env) print(obj runtime.Object) error {
 	obj = obj.DeepCopyObject()
-	scheme, err := manager.Scheme()
-	if err != nil {
-		return err
-	}
+	scheme := e.c.Scheme()
 	setKind := func(o runtime.Object) error {
 		gvks, _, err := scheme.ObjectKinds(o)
 		if err != nil || len(gvks) == 0 {

@@ -87,7 +87,13 @@ func decodeSchema(raw []byte) (*Schema, error) {
 		return nil, fmt.Errorf("want a mapping with the keys id and columns, got %s", kindOf(doc))
 	}
 	s := &Schema{}
-	for k, v := range top {
+	keys := make([]string, 0, len(top))
+	for k := range top {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys) // the first fault found is the same every time
+	for _, k := range keys {
+		v := top[k]
 		switch k {
 		case "id":
 			id, ok := v.(string)

@@ -1,7 +1,6 @@
 package evaluate
 
 import (
-	"flag"
 	"fmt"
 	"io"
 	"os"
@@ -129,7 +128,7 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 		}
 	}
 	table := WriteTable
-	if flagSet(fs, "max-regression") {
+	if cli.IsSet(fs, "max-regression") {
 		table = WriteTableWithVerdicts
 	}
 	if err := table(stdout, rep); err != nil {
@@ -150,13 +149,6 @@ func Command(args []string, getenv func(string) string, stdout, stderr io.Writer
 		fmt.Fprintf(stdout, "gate report: %d bytes, %d rows, to %s%s\n", len(b), len(compact.Metrics), termFile, note)
 	}
 	return nil
-}
-
-// flagSet reports whether the command line gave the named flag.
-func flagSet(fs *flag.FlagSet, name string) bool {
-	set := false
-	fs.Visit(func(f *flag.Flag) { set = set || f.Name == name })
-	return set
 }
 
 func envFloat(s string, def float64) float64 {
