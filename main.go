@@ -51,7 +51,7 @@ type command struct {
 
 var commands = []command{
 	{"manager", "run the controller against the cluster of the current kubeconfig", runManager},
-	{"demo", "run the Larkspur demo on a simulated cluster on loopback ('demo train', 'demo score' and 'demo extract' are its Jobs' programs)", runDemo},
+	{"demo", "run the Larkspur demo on a simulated cluster on loopback ('demo train', 'demo score' and 'demo extract' are its Jobs' programs; 'demo world' and 'demo serve' its story's on a real cluster)", runDemo},
 	{"evaluate", "measure a candidate against the live model on a golden set (the gate Job's tool)", runEvaluate},
 	{"datacheck", "check a current batch of data against a reference batch: quality and drift (the check Job's tool)", runDatacheck},
 	{"backtest", "replay retraining policies over a quality history; 'backtest staleness' fits how fast a model decays", runBacktest},
@@ -210,6 +210,10 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 			return demoTool(demo.Score(args[1:], stdout, stderr))
 		case "extract":
 			return demoTool(demo.Extract(args[1:], stdout, stderr))
+		case "world":
+			return demoTool(demo.WorldCommand(args[1:], stdout, stderr))
+		case "serve":
+			return demoTool(demo.Serve(ctx, args[1:], stdout, stderr))
 		}
 	}
 	fs := cli.NewFlagSet(cli.Command{

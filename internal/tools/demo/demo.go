@@ -120,7 +120,7 @@ func Run(ctx context.Context, o Options, out io.Writer) (*Result, error) {
 		return nil, fmt.Errorf("create work directory: %w", err)
 	}
 	d := &player{ctx: ctx, out: out, timeout: o.StepTimeout, short: o.Short, start: time.Now(), seen: map[types.UID]bool{},
-		work: work, worldPath: filepath.Join(work, "world.json"), models: filepath.Join(work, "models"), result: &Result{}}
+		work: work, worldPath: filepath.Join(work, worldFile), models: filepath.Join(work, modelsDir), result: &Result{}}
 
 	d.say("plumbline demo: Larkspur Parcels, a fictional courier. Every name, number and parcel here is synthetic.")
 	d.say("Starting a simulated cluster on loopback: etcd, kube-apiserver, kube-controller-manager and")
@@ -244,24 +244,17 @@ func (d *player) step(n int, title string) {
 	fmt.Fprintf(d.out, "\n== %d. %s\n", n, title)
 }
 
-// prepareWorld writes the world's first phase, the reference parcels the
-// monitoring compares against, the model Larkspur trained before adopting
-// plumbline (the Imported version) and its old rules (the fallback).
+// prepareWorld writes the world's first phase, the model Larkspur trained
+// before adopting plumbline (the Imported version) and its old rules (the
+// fallback), and keeps the reference parcels the monitoring compares
+// against.
 func (d *player) prepareWorld() error {
-	now := time.Now()
-	d.world = &World{Seed: uint64(now.UnixNano()), Phases: []Phase{{At: now.Add(-time.Minute), Note: "ordinary weeks at three depots"}}}
-	if err := d.world.Save(d.worldPath); err != nil {
-		return err
-	}
-	d.reference = d.world.Sample(now.Add(-time.Minute), now, 5000, 1)
-	m, err := TrainModel(d.world.Sample(now.Add(-time.Minute), now, 10000, 2))
+	w, err := PrepareWorld(d.work, time.Now())
 	if err != nil {
 		return err
 	}
-	if err := WriteArtifact(d.uri("late-risk-v0"), m); err != nil {
-		return err
-	}
-	return WriteArtifact(d.uri("late-risk-rules"), &Model{Schema: ArtifactSchema, Kind: "rules"})
+	d.world, d.reference = w, referenceOf(w)
+	return nil
 }
 
 func (d *player) uri(version string) string {
@@ -274,14 +267,7 @@ func (d *player) phaseNow() Phase { return d.world.PhaseAt(time.Now()) }
 // addresses the feed lost restored (backfilled) in the data read later.
 func (d *player) changeWorld(p Phase) error {
 	p.At = time.Now()
-	if !p.FeedBroken {
-		for i := range d.world.Phases {
-			if d.world.Phases[i].FeedBroken {
-				d.world.Phases[i].Backfilled = true
-			}
-		}
-	}
-	d.world.Phases = append(d.world.Phases, p)
+	d.world.Change(p)
 	d.say("WORLD: " + p.Note)
 	return d.world.Save(d.worldPath)
 }

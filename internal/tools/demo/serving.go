@@ -8,9 +8,6 @@ import (
 	"math/rand/v2"
 	"net"
 	"net/http"
-	"slices"
-	"sort"
-	"sync"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -22,7 +19,6 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
-	"plumbline.dev/plumbline/internal/tools/stats"
 )
 
 // servingSim exists for the demo only. It plays Larkspur's scorer pods and
@@ -36,6 +32,7 @@ import (
 // Prometheus scrapes it. In a cluster, the scorer serves real traffic and
 // the team's monitoring feeds Prometheus; none of this exists there.
 type servingSim struct {
+	*monitor
 	c          client.Client
 	ns         string
 	deployment string
@@ -43,58 +40,21 @@ type servingSim struct {
 	artifact   string // the env var that holds the artifact URI
 	world      func() Phase
 	rate       float64 // parcels per second
-	window     int     // parcels in the quality window
 
-	rng       *rand.Rand
-	weightCut []float64 // reference deciles of weight
-	// The reference's histograms, which the PSI compares against.
-	refDepots, refWeights []float64
+	rng *rand.Rand
 
-	mu      sync.Mutex
-	recent  []scored
-	lastAUC float64 // of the recent parcels, at the last tick
-	models  map[string]*Model
-	served  map[string]int // parcels per version since the start
-
-	auc, missing prometheus.Gauge
-	psi          *prometheus.GaugeVec
-	labelled     prometheus.Counter
-	scoredBy     *prometheus.CounterVec
-	registry     *prometheus.Registry
-}
-
-type scored struct {
-	score   float64
-	late    bool
-	missing bool
-	depot   string
-	weight  float64
+	models   map[string]*Model // guarded by monitor.mu
+	served   map[string]int    // parcels per version since the start; guarded by monitor.mu
+	scoredBy *prometheus.CounterVec
 }
 
 func newServingSim(c client.Client, ns string, world func() Phase, reference []Parcel, seed uint64) *servingSim {
-	s := &servingSim{c: c, ns: ns, deployment: scorer, container: "scorer", artifact: "MODEL_URI", world: world,
-		rate: 300, window: 2000, rng: rand.New(rand.NewPCG(seed, 3)), lastAUC: math.NaN(),
-		models: map[string]*Model{}, served: map[string]int{}, registry: prometheus.NewRegistry()}
-	w := make([]float64, len(reference))
-	for i, p := range reference {
-		w[i] = p.Weight
-	}
-	sort.Float64s(w)
-	for q := 1; q < 10; q++ {
-		s.weightCut = append(s.weightCut, w[q*len(w)/10])
-	}
-	s.refDepots, s.refWeights = s.histograms(reference)
-	s.auc = prometheus.NewGauge(prometheus.GaugeOpts{Name: "larkspur_late_risk_roc_auc",
-		Help: "ROC AUC of the served late-delivery scores over the last labelled parcels (demo simulator)."})
-	s.missing = prometheus.NewGauge(prometheus.GaugeOpts{Name: "larkspur_feature_missing_ratio",
-		Help: "Share of recent parcels whose address confidence is missing (demo simulator).", ConstLabels: prometheus.Labels{"feature": "address_confidence"}})
-	s.psi = prometheus.NewGaugeVec(prometheus.GaugeOpts{Name: "larkspur_feature_psi",
-		Help: "Population stability index of a feature, recent parcels against the reference (demo simulator)."}, []string{"feature"})
-	s.labelled = prometheus.NewCounter(prometheus.CounterOpts{Name: "larkspur_labelled_deliveries_total",
-		Help: "Parcels whose outcome is known (demo simulator)."})
+	s := &servingSim{monitor: newMonitor(reference, 2000, "demo simulator"), c: c, ns: ns, deployment: scorer, container: "scorer",
+		artifact: "MODEL_URI", world: world, rate: 300, rng: rand.New(rand.NewPCG(seed, 3)),
+		models: map[string]*Model{}, served: map[string]int{}}
 	s.scoredBy = prometheus.NewCounterVec(prometheus.CounterOpts{Name: "larkspur_scored_parcels_total",
 		Help: "Parcels scored, by the model version the pod served (demo simulator)."}, []string{"version"})
-	s.registry.MustRegister(s.auc, s.missing, s.psi, s.labelled, s.scoredBy)
+	s.registry.MustRegister(s.scoredBy)
 	return s
 }
 
@@ -201,61 +161,22 @@ func (s *servingSim) tick(ctx context.Context, n int) error {
 		return err
 	}
 	phase := s.world()
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	for i := 0; i < n; i++ {
+	batch := make([]scored, n)
+	by := make([]string, n)
+	for i := range batch {
 		p := phase.Draw(s.rng, "")
-		by := pods[s.rng.IntN(len(pods))]
-		s.recent = append(s.recent, scored{score: by.model.Score(p), late: p.Late, missing: math.IsNaN(p.Address), depot: p.Depot, weight: p.Weight})
-		s.served[by.version]++
-		s.scoredBy.WithLabelValues(by.version).Inc()
+		pod := pods[s.rng.IntN(len(pods))]
+		batch[i] = scored{score: pod.model.Score(p), late: p.Late, missing: math.IsNaN(p.Address), depot: p.Depot, weight: p.Weight}
+		by[i] = pod.version
 	}
-	s.labelled.Add(float64(n))
-	if over := len(s.recent) - s.window; over > 0 {
-		s.recent = append(s.recent[:0], s.recent[over:]...)
+	s.mu.Lock()
+	for _, v := range by {
+		s.served[v]++
+		s.scoredBy.WithLabelValues(v).Inc()
 	}
-	s.export()
+	s.mu.Unlock()
+	s.add(batch)
 	return nil
-}
-
-// histograms bins parcels by depot (in allDepots' order) and by the
-// reference's weight deciles.
-func (s *servingSim) histograms(ps []Parcel) (depots, weights []float64) {
-	depots = make([]float64, len(allDepots))
-	weights = make([]float64, len(s.weightCut)+1)
-	for _, p := range ps {
-		if i := slices.Index(allDepots, p.Depot); i >= 0 {
-			depots[i]++
-		}
-		weights[sort.SearchFloat64s(s.weightCut, p.Weight)]++
-	}
-	return depots, weights
-}
-
-// export sets the gauges from the recent parcels.
-func (s *servingSim) export() {
-	label := make([]uint8, len(s.recent))
-	score := make([]float64, len(s.recent))
-	batch := make([]Parcel, len(s.recent))
-	missing := 0
-	for i, r := range s.recent {
-		score[i] = r.score
-		if r.late {
-			label[i] = 1
-		}
-		if r.missing {
-			missing++
-		}
-		batch[i] = Parcel{Depot: r.depot, Weight: r.weight}
-	}
-	if v := stats.ROCAUC(label, score, stats.Order(score), nil); v.Defined() {
-		s.lastAUC = v.V
-		s.auc.Set(v.V)
-	}
-	s.missing.Set(float64(missing) / float64(len(s.recent)))
-	depots, weights := s.histograms(batch)
-	s.psi.WithLabelValues("depot").Set(stats.PSI(s.refDepots, depots))
-	s.psi.WithLabelValues("weight_kg").Set(stats.PSI(s.refWeights, weights))
 }
 
 // servedBy is how many parcels each version has scored.
@@ -263,11 +184,4 @@ func (s *servingSim) servedBy() map[string]int {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return maps.Clone(s.served)
-}
-
-// currentAUC is the quality over the last parcels, for the timeline.
-func (s *servingSim) currentAUC() float64 {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.lastAUC
 }
