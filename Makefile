@@ -37,8 +37,16 @@ demo: build controlplane simcluster prometheus ## Run the Larkspur demo on a sim
 .PHONY: test
 test: controlplane simcluster prometheus kubectl node alerts ## Run every test tier that can run here (unit, API server, Prometheus, simulated cluster, the image in containerd, the real node), then each fuzz target briefly.
 	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_ENVTEST=1 PLUMBLINE_REQUIRE_SIMCLUSTER=1 \
-	  PLUMBLINE_REQUIRE_CONTAINERD=$(REQUIRE_ROOT_TIERS) PLUMBLINE_REQUIRE_NODE=$(REQUIRE_ROOT_TIERS) go test -count=1 $(GO_PACKAGES)
+	  PLUMBLINE_REQUIRE_CONTAINERD=$(REQUIRE_ROOT_TIERS) PLUMBLINE_REQUIRE_NODE=$(REQUIRE_ROOT_TIERS) go test -count=1 -timeout 40m $(GO_PACKAGES)
 	FUZZTIME=$(FUZZTIME) hack/fuzz.sh
+
+.PHONY: demo-real
+demo-real: controlplane prometheus kubectl node ## The same story with real containers on a real node on this machine (root; builds what it needs once).
+	go run ./hack/demo-real --assets $(K8S_BIN)
+
+.PHONY: e2e
+e2e: controlplane prometheus kubectl node ## Run the end-to-end suite on this machine's real node (root), or on the cluster PLUMBLINE_E2E_KUBECONFIG names.
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_REQUIRE_NODE=$(REQUIRE_ROOT_TIERS) go test -count=1 -timeout 40m -v -run '^TestStory$$' ./test/e2e
 
 ##@ Development
 

@@ -214,6 +214,8 @@ func runDemo(ctx context.Context, args []string, stdout, stderr io.Writer) error
 			return demoTool(demo.WorldCommand(args[1:], stdout, stderr))
 		case "serve":
 			return demoTool(demo.Serve(ctx, args[1:], stdout, stderr))
+		case "targets":
+			return demoTool(demo.Targets(ctx, args[1:], stdout, stderr))
 		}
 	}
 	fs := cli.NewFlagSet(cli.Command{

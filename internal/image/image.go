@@ -13,9 +13,11 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"maps"
 	"os"
 	"path"
 	"path/filepath"
+	"slices"
 	"strings"
 	"time"
 
@@ -53,6 +55,11 @@ type Spec struct {
 	// Entrypoint (/plumbline). Other images of the tests (a node's sandbox
 	// "pause" image) set their own.
 	Path string
+	// Files are more files for the image, by their path in it, read from
+	// the host path they map to (a symbolic link is followed): the shared
+	// libraries of a dynamically linked program such as Debian's
+	// prometheus, for the end-to-end suite's own Prometheus image.
+	Files map[string]string
 }
 
 // Build makes the image.
@@ -69,7 +76,18 @@ func Build(s Spec) (v1.Image, error) {
 	if entry == "" {
 		entry = Entrypoint
 	}
-	layer, err := rootLayer(entry, bin, certs)
+	extra := make(map[string][]byte, len(s.Files))
+	for in, host := range s.Files {
+		if !path.IsAbs(in) || path.Clean(in) != in {
+			return nil, fmt.Errorf("image file %q: want an absolute, clean path in the image", in)
+		}
+		b, err := os.ReadFile(host)
+		if err != nil {
+			return nil, fmt.Errorf("image file %s: %w", in, err)
+		}
+		extra[in] = b
+	}
+	layer, err := rootLayer(entry, bin, certs, extra)
 	if err != nil {
 		return nil, err
 	}
@@ -101,8 +119,9 @@ func Build(s Spec) (v1.Image, error) {
 }
 
 // rootLayer is the image's one layer: the binary, the certificates, the
-// user and group files, and a writable /tmp.
-func rootLayer(entry string, bin, certs []byte) (v1.Layer, error) {
+// user and group files, a writable /tmp, and the extra files by their path
+// in the image.
+func rootLayer(entry string, bin, certs []byte, extra map[string][]byte) (v1.Layer, error) {
 	var b bytes.Buffer
 	tw := tar.NewWriter(&b)
 	dir := func(name string, mode int64) error {
@@ -128,8 +147,27 @@ func rootLayer(entry string, bin, certs []byte) (v1.Layer, error) {
 		func() error {
 			return tw.WriteHeader(&tar.Header{Typeflag: tar.TypeDir, Name: "home/nonroot/", Mode: 0o700, Uid: UID, Gid: UID, ModTime: epoch, Format: tar.FormatPAX})
 		},
-		func() error { return file(strings.TrimPrefix(entry, "/"), 0o755, bin) },
 		func() error { return dir("tmp", 0o1777) },
+	}
+	// The program and the extra files in a stable order, each after the
+	// directories above it that are not there yet.
+	made := map[string]bool{"etc": true, "etc/ssl": true, "etc/ssl/certs": true, "home": true, "tmp": true}
+	add := func(name string, data []byte) {
+		var parents []string
+		for d := path.Dir(name); d != "."; d = path.Dir(d) {
+			parents = append([]string{d}, parents...)
+		}
+		for _, d := range parents {
+			if !made[d] {
+				made[d] = true
+				steps = append(steps, func() error { return dir(d, 0o755) })
+			}
+		}
+		steps = append(steps, func() error { return file(name, 0o755, data) })
+	}
+	add(strings.TrimPrefix(entry, "/"), bin)
+	for _, in := range slices.Sorted(maps.Keys(extra)) {
+		add(strings.TrimPrefix(in, "/"), extra[in])
 	}
 	for _, step := range steps {
 		if err := step(); err != nil {

@@ -225,3 +225,43 @@ func mustRead(t *testing.T, p string) []byte {
 	}
 	return b
 }
+
+// Extra files (a dynamically linked program's libraries) go into the
+// layer at their path, with the directories above them, read through the
+// host's symbolic links; a relative path in the image is refused.
+func TestExtraFiles(t *testing.T) {
+	s := spec(t, "a program")
+	dir := t.TempDir()
+	lib := filepath.Join(dir, "libc.so.6")
+	if err := os.WriteFile(lib, []byte("the library"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	link := filepath.Join(dir, "ld.so")
+	if err := os.Symlink(lib, link); err != nil {
+		t.Fatal(err)
+	}
+	s.Path = "/bin/prometheus"
+	s.Files = map[string]string{"/lib/x86_64-linux-gnu/libc.so.6": lib, "/lib64/ld-linux-x86-64.so.2": link}
+	img, err := Build(s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files := filesOf(t, img)
+	for _, name := range []string{"bin", "lib", "lib/x86_64-linux-gnu", "lib64"} {
+		if f, ok := files[name]; !ok || f.h.Typeflag != tar.TypeDir {
+			t.Errorf("no directory %s in the image", name)
+		}
+	}
+	for _, name := range []string{"lib/x86_64-linux-gnu/libc.so.6", "lib64/ld-linux-x86-64.so.2"} {
+		if f, ok := files[name]; !ok || f.body != "the library" || f.h.Typeflag != tar.TypeReg {
+			t.Errorf("%s in the image: %+v", name, f)
+		}
+	}
+	if f, ok := files["bin/prometheus"]; !ok || f.body != "a program" {
+		t.Errorf("the program is not at its path: %+v", f)
+	}
+	s.Files = map[string]string{"lib/libc.so.6": lib}
+	if _, err := Build(s); err == nil || !strings.Contains(err.Error(), "absolute") {
+		t.Errorf("a relative path in the image: %v", err)
+	}
+}

@@ -18,6 +18,13 @@ import (
 // service range (envtest's 10.0.0.0/24): the address pods reach it at.
 const serviceIP = "10.0.0.1"
 
+// The API server's client certificate and key for the kubelet, in the
+// directory writeServingCerts writes.
+const (
+	kubeletClientCert = "kubelet-client.crt"
+	kubeletClientKey  = "kubelet-client.key"
+)
+
 // writeServingCerts writes the API server's serving certificate, valid for
 // loopback and for the kubernetes Service (so a pod's in-cluster client
 // verifies it), and the service-account signing key pair, into dir, where
@@ -66,12 +73,27 @@ func writeServingCerts(dir string) ([]byte, error) {
 	if err != nil {
 		return nil, err
 	}
+	// The API server's client certificate for the kubelet (logs, exec,
+	// port-forward), signed by the CA the kubelet trusts for clients.
+	kcKey, err := rsa.GenerateKey(rand.Reader, 2048)
+	if err != nil {
+		return nil, err
+	}
+	kcTmpl := &x509.Certificate{SerialNumber: big.NewInt(4), Subject: pkix.Name{CommonName: "kube-apiserver-kubelet-client", Organization: []string{"system:masters"}},
+		NotBefore: now.Add(-time.Hour), NotAfter: now.Add(24 * time.Hour),
+		KeyUsage: x509.KeyUsageDigitalSignature | x509.KeyUsageKeyEncipherment, ExtKeyUsage: []x509.ExtKeyUsage{x509.ExtKeyUsageClientAuth}}
+	kcDER, err := x509.CreateCertificate(rand.Reader, kcTmpl, ca, &kcKey.PublicKey, caKey)
+	if err != nil {
+		return nil, err
+	}
 	pemOf := func(typ string, b []byte) []byte { return pem.EncodeToMemory(&pem.Block{Type: typ, Bytes: b}) }
 	for name, data := range map[string][]byte{
-		"apiserver.crt": pemOf("CERTIFICATE", der),
-		"apiserver.key": pemOf("RSA PRIVATE KEY", x509.MarshalPKCS1PrivateKey(key)),
-		"sa-signer.crt": pemOf("CERTIFICATE", saDER),
-		"sa-signer.key": pemOf("RSA PRIVATE KEY", x509.MarshalPKCS1PrivateKey(saKey)),
+		kubeletClientCert: pemOf("CERTIFICATE", kcDER),
+		kubeletClientKey:  pemOf("RSA PRIVATE KEY", x509.MarshalPKCS1PrivateKey(kcKey)),
+		"apiserver.crt":   pemOf("CERTIFICATE", der),
+		"apiserver.key":   pemOf("RSA PRIVATE KEY", x509.MarshalPKCS1PrivateKey(key)),
+		"sa-signer.crt":   pemOf("CERTIFICATE", saDER),
+		"sa-signer.key":   pemOf("RSA PRIVATE KEY", x509.MarshalPKCS1PrivateKey(saKey)),
 	} {
 		if err := os.WriteFile(filepath.Join(dir, name), data, 0o600); err != nil {
 			return nil, fmt.Errorf("write %s: %w", name, err)

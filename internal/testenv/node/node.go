@@ -118,6 +118,36 @@ type Node struct {
 	env   *controlplane.Env
 	procs []*proc.Proc
 	rec   *record
+	lock  *os.File
+}
+
+// lockPath is the machine-wide lock a running node holds.
+const lockPath = "/run/plumbline-node.lock"
+
+// lockMachine waits until no other node runs on this machine and takes
+// the lock; the kernel releases it when the process ends, so a crashed
+// test does not hold it.
+func lockMachine(ctx context.Context) (*os.File, error) {
+	f, err := os.OpenFile(lockPath, os.O_CREATE|os.O_RDWR, 0o644)
+	if err != nil {
+		return nil, fmt.Errorf("open the node lock: %w", err)
+	}
+	for {
+		err := syscall.Flock(int(f.Fd()), syscall.LOCK_EX|syscall.LOCK_NB)
+		if err == nil {
+			return f, nil
+		}
+		if !errors.Is(err, syscall.EWOULDBLOCK) {
+			f.Close()
+			return nil, fmt.Errorf("take the node lock %s: %w", lockPath, err)
+		}
+		select {
+		case <-ctx.Done():
+			f.Close()
+			return nil, fmt.Errorf("waiting for another real node on this machine to stop (%s): %w", lockPath, ctx.Err())
+		case <-time.After(500 * time.Millisecond):
+		}
+	}
 }
 
 // recordPath is where a start records what it created on the host, at a
@@ -220,8 +250,14 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 	if err := os.MkdirAll(o.WorkDir, 0o755); err != nil {
 		return nil, err
 	}
+	// One node per machine at a time (test packages run in parallel):
+	// wait for the lock before touching what another start recorded.
+	lock, err := lockMachine(ctx)
+	if err != nil {
+		return nil, err
+	}
 	cleanupStale(recordPath)
-	n := &Node{dir: o.WorkDir, Timings: map[string]time.Duration{}, rec: &record{path: recordPath, Dir: o.WorkDir}}
+	n := &Node{dir: o.WorkDir, Timings: map[string]time.Duration{}, rec: &record{path: recordPath, Dir: o.WorkDir}, lock: lock}
 	fail := func(err error) (*Node, error) {
 		n.Stop()
 		return nil, err
@@ -249,6 +285,14 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 	if err := ipCmd("link", "set", Bridge, "up"); err != nil {
 		return fail(err)
 	}
+	// A pod reaches another pod's Service through the node: the packet
+	// comes in on the bridge, is led to the pod by kube-proxy's rules and
+	// goes out on the bridge again. Forwarding is turned on for the bridge
+	// alone (packets that come in elsewhere are not forwarded), and goes
+	// with it at stop.
+	if err := os.WriteFile("/proc/sys/net/ipv4/conf/"+Bridge+"/forwarding", []byte("1"), 0o644); err != nil {
+		return fail(fmt.Errorf("turn on forwarding on the bridge: %w", err))
+	}
 
 	kc := filepath.Join(o.WorkDir, "admin.kubeconfig")
 	cp := filepath.Join(o.WorkDir, "cp")
@@ -264,6 +308,8 @@ func Start(ctx context.Context, o Options) (*Node, error) {
 		APIServerArgs: map[string]string{
 			"authorization-mode":              "Node,RBAC",
 			"kubelet-preferred-address-types": "Hostname,InternalIP",
+			"kubelet-client-certificate":      filepath.Join(cp, "apiserver", kubeletClientCert),
+			"kubelet-client-key":              filepath.Join(cp, "apiserver", kubeletClientKey),
 			"allow-privileged":                "true",
 			"disable-admission-plugins":       "",
 		}})
@@ -510,6 +556,10 @@ func (n *Node) Stop() {
 	}
 	if n.rec != nil {
 		undo(n.rec, n.dir)
+	}
+	if n.lock != nil {
+		n.lock.Close() // releases the lock
+		n.lock = nil
 	}
 }
 

@@ -6,7 +6,6 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
-	"runtime"
 	"strings"
 	"testing"
 	"time"
@@ -17,8 +16,6 @@ import (
 	"k8s.io/apimachinery/pkg/util/wait"
 	"k8s.io/client-go/kubernetes"
 	"k8s.io/utils/ptr"
-
-	"plumbline.dev/plumbline/internal/image"
 )
 
 // testImage is the plumbline image the node's pods run.
@@ -57,7 +54,9 @@ func TestRealNode(t *testing.T) {
 	t.Cleanup(func() { _ = os.RemoveAll(dir) })
 	archive := buildImage(t, root, dir)
 
-	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Minute)
+	// Long enough to wait for another package's node (the end-to-end
+	// suite's) to stop first.
+	ctx, cancel := context.WithTimeout(context.Background(), 15*time.Minute)
 	defer cancel()
 	before := readSysctls()
 	n, err := Start(ctx, Options{AssetsDir: assets, CRDDir: filepath.Join(root, "config", "crd", "bases"), WorkDir: filepath.Join(dir, "node"), Images: []string{archive}})
@@ -101,6 +100,12 @@ func TestRealNode(t *testing.T) {
 	term := pods.Items[0].Status.ContainerStatuses[0].State.Terminated
 	if term == nil || term.ExitCode != 2 || !strings.Contains(term.Message, "--history is required") {
 		t.Errorf("the failed container's state: %+v", term)
+	}
+	// kubectl logs: the API server reaches the kubelet with its client
+	// certificate.
+	logs, err := cs.CoreV1().Pods("default").GetLogs(pods.Items[0].Name, &corev1.PodLogOptions{}).DoRaw(ctx)
+	if err != nil || !strings.Contains(string(logs), "--history is required") {
+		t.Errorf("the pod's log through the API server: %v %s", err, logs)
 	}
 
 	managerInAPod(ctx, t, n, cs, root)
@@ -243,15 +248,8 @@ func runJob(ctx context.Context, t *testing.T, cs kubernetes.Interface, name str
 // buildImage writes the plumbline image archive of the current code.
 func buildImage(t *testing.T, root, dir string) string {
 	t.Helper()
-	bin := filepath.Join(dir, "plumbline")
-	build := exec.Command("go", "build", "-ldflags", "-X main.version=node-test", "-o", bin, ".")
-	build.Dir = root
-	build.Env = append(os.Environ(), "CGO_ENABLED=0")
-	if out, err := build.CombinedOutput(); err != nil {
-		t.Fatalf("build the static binary: %v\n%s", err, out)
-	}
-	archive := filepath.Join(dir, "plumbline.tar")
-	if _, err := image.WriteFile(archive, testImage, image.Spec{Binary: bin, CACerts: "/etc/ssl/certs/ca-certificates.crt", Arch: runtime.GOARCH, Version: "node-test"}); err != nil {
+	archive, err := PlumblineImage(context.Background(), dir, testImage, "node-test")
+	if err != nil {
 		t.Fatal(err)
 	}
 	return archive

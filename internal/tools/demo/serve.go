@@ -54,6 +54,21 @@ func PrepareWorld(dir string, now time.Time) (*World, error) {
 	return w, nil
 }
 
+// writeVendorModel writes models/late-risk-vendor.json: the imported model
+// as a vendor's broken export would hand it back, every weight's sign
+// flipped, so its scores rank parcels upside down. The story imports it to
+// show the gate refusing a candidate.
+func writeVendorModel(dir string) error {
+	m, err := ReadArtifact("file://" + filepath.Join(dir, modelsDir, "late-risk-v0.json"))
+	if err != nil {
+		return err
+	}
+	for i := range m.Weights {
+		m.Weights[i] = -m.Weights[i]
+	}
+	return WriteArtifact("file://"+filepath.Join(dir, modelsDir, "late-risk-vendor.json"), m)
+}
+
 // Change starts phase p at its At. When p's feed is whole, the addresses
 // the earlier broken phases lost are restored (backfilled) in the data
 // read later.
@@ -92,12 +107,15 @@ func WorldCommand(args []string, stdout, stderr io.Writer) error {
 		if _, err := PrepareWorld(*dir, now); err != nil {
 			return err
 		}
+		if err := writeVendorModel(*dir); err != nil {
+			return err
+		}
 		// The training pods write their models here as a user of their
 		// own; like /tmp, each may replace only its own files.
 		if err := os.Chmod(filepath.Join(*dir, modelsDir), 0o777|os.ModeSticky); err != nil {
 			return fmt.Errorf("make the models directory writable for the training pods: %w", err)
 		}
-		fmt.Fprintf(stdout, "wrote a new synthetic world and the models late-risk-v0 and late-risk-rules to %s\n", *dir)
+		fmt.Fprintf(stdout, "wrote a new synthetic world and the models late-risk-v0, late-risk-rules and late-risk-vendor to %s\n", *dir)
 		return nil
 	}
 	if p.Note == "" {
