@@ -23,6 +23,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"runtime"
+	"strconv"
 	"strings"
 	"syscall"
 	"time"
@@ -551,6 +552,7 @@ func (n *Node) Stop() {
 		cancel()
 		d.Stop()
 	}
+	killPods()
 	if n.env != nil {
 		_ = n.env.Stop()
 	}
@@ -602,9 +604,41 @@ func cleanupStale(path string) {
 	}
 	r.path = path
 	_ = exec.Command("pkill", "-KILL", "-f", r.Dir).Run()
+	// The pods' processes do not name the directory, and outlive their
+	// shims: they are found by the kubelet's cgroups.
+	killPods()
 	time.Sleep(200 * time.Millisecond)
 	undo(&r, r.Dir)
 	_ = os.RemoveAll(r.Dir)
+}
+
+// podsCgroup is where the kubelet (cgroupfs driver) puts the pods'
+// processes, under each cgroup hierarchy; only the node's kubelet uses it.
+const podsCgroup = "kubepods"
+
+// killPods kills every process left in the kubelet's pod cgroups.
+func killPods() {
+	roots, _ := filepath.Glob(filepath.Join("/sys/fs/cgroup", "*", podsCgroup))
+	if _, err := os.Stat(filepath.Join("/sys/fs/cgroup", podsCgroup)); err == nil {
+		roots = append(roots, filepath.Join("/sys/fs/cgroup", podsCgroup)) // a unified hierarchy alone
+	}
+	for _, root := range roots {
+		_ = filepath.WalkDir(root, func(p string, d os.DirEntry, err error) error {
+			if err != nil || d.IsDir() || d.Name() != "cgroup.procs" {
+				return nil
+			}
+			b, err := os.ReadFile(p)
+			if err != nil {
+				return nil
+			}
+			for _, f := range strings.Fields(string(b)) {
+				if pid, err := strconv.Atoi(f); err == nil && pid > 1 {
+					_ = syscall.Kill(pid, syscall.SIGKILL)
+				}
+			}
+			return nil
+		})
+	}
 }
 
 // unmountUnder unmounts every mount below dir, deepest first.
