@@ -44,6 +44,7 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/manager"
+	"plumbline.dev/plumbline/internal/tools/demo"
 )
 
 var (
@@ -596,7 +597,7 @@ func (s *suite) printEvents() {
 	if err := s.c.List(s.ctx, &list, client.InNamespace(namespace)); err != nil {
 		return
 	}
-	sort.SliceStable(list.Items, func(i, j int) bool { return eventTime(&list.Items[i]).Before(eventTime(&list.Items[j])) })
+	sort.SliceStable(list.Items, func(i, j int) bool { return demo.EventTime(&list.Items[i]).Before(demo.EventTime(&list.Items[j])) })
 	for i := range list.Items {
 		e := &list.Items[i]
 		s.mu.Lock()
@@ -615,16 +616,6 @@ func (s *suite) printEvents() {
 			}
 		}
 	}
-}
-
-func eventTime(e *eventsv1.Event) time.Time {
-	switch {
-	case !e.EventTime.IsZero():
-		return e.EventTime.Time
-	case !e.DeprecatedLastTimestamp.IsZero():
-		return e.DeprecatedLastTimestamp.Time
-	}
-	return e.CreationTimestamp.Time
 }
 
 // diagnose prints what a failed step needs: the line's status, the pods

@@ -563,7 +563,9 @@ func shown(e *eventsv1.Event) bool {
 	return false
 }
 
-func eventTime(e *eventsv1.Event) time.Time {
+// EventTime is when an event happened, whichever of its times the
+// recorder set.
+func EventTime(e *eventsv1.Event) time.Time {
 	switch {
 	case !e.EventTime.IsZero():
 		return e.EventTime.Time
@@ -579,7 +581,7 @@ func (d *player) printEvents() error {
 	if err := d.c.List(d.ctx, &list, client.InNamespace(namespace)); err != nil {
 		return fmt.Errorf("list events: %w", err)
 	}
-	sort.SliceStable(list.Items, func(i, j int) bool { return eventTime(&list.Items[i]).Before(eventTime(&list.Items[j])) })
+	sort.SliceStable(list.Items, func(i, j int) bool { return EventTime(&list.Items[i]).Before(EventTime(&list.Items[j])) })
 	for i := range list.Items {
 		e := &list.Items[i]
 		if d.seen[e.UID] {
