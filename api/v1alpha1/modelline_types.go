@@ -177,6 +177,9 @@ type TriggerSpec struct {
 	Name string `json:"name"`
 
 	// query is a PromQL expression that yields the monitored value.
+	// It may be a template: {{.Line}}, {{.Namespace}} and {{.Version}} (the
+	// live version) are replaced before it is sent, so one shape of query
+	// serves many lines.
 	// +required
 	// +kubebuilder:validation:MinLength=1
 	// +kubebuilder:validation:MaxLength=4096
@@ -252,6 +255,9 @@ type QueryCheck struct {
 	Name string `json:"name"`
 
 	// query is a PromQL expression.
+	// It may be a template: {{.Line}}, {{.Namespace}} and {{.Version}} (the
+	// live version) are replaced before it is sent, so one shape of query
+	// serves many lines.
 	// +required
 	// +kubebuilder:validation:MinLength=1
 	// +kubebuilder:validation:MaxLength=4096
@@ -271,6 +277,9 @@ type FreshDataCheck struct {
 	// query is a PromQL expression that yields the number of new labelled rows
 	// since the last training. Without it, the rows the check Job
 	// (jobTemplate) saw are counted.
+	// It may be a template: {{.Line}}, {{.Namespace}} and {{.Version}} (the
+	// live version) are replaced before it is sent, so one shape of query
+	// serves many lines.
 	// +optional
 	// +kubebuilder:validation:MinLength=1
 	// +kubebuilder:validation:MaxLength=4096
@@ -469,7 +478,10 @@ type FallbackSpec struct {
 // +kubebuilder:validation:XValidation:rule="self.forSeconds >= self.everySeconds",message="forSeconds must be at least everySeconds: the window must hold more than one evaluation"
 // +kubebuilder:validation:XValidation:rule="self.probationSeconds >= self.forSeconds",message="probationSeconds must be at least forSeconds: a shorter probation can never see a sustained regression"
 type GuardSpec struct {
-	// query is a PromQL expression for production quality.
+	// query is a PromQL expression for production quality. It may be a
+	// template: {{.Line}}, {{.Namespace}} and {{.Version}} (the version on
+	// probation, the live one) are replaced before it is sent, so the guard
+	// can judge the series of the version it guards alone.
 	// +required
 	// +kubebuilder:validation:MinLength=1
 	// +kubebuilder:validation:MaxLength=4096

@@ -15,6 +15,7 @@ import (
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
 	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
 	"plumbline.dev/plumbline/internal/engine/text"
 	"plumbline.dev/plumbline/internal/engine/trigger"
 )
@@ -55,7 +56,11 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 			Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", live.Name, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
 		p.wakeAt(firstFull)
 	} else {
-		series, err := r.Prometheus.Range(ctx, g.Query, now.Add(-w.For), now, w.Step())
+		query, err := speccheck.RenderQuery(g.Query, speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name})
+		var series []promq.Series
+		if err == nil {
+			series, err = r.Prometheus.Range(ctx, query, now.Add(-w.For), now, w.Step())
+		}
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
 		} else {
@@ -175,7 +180,11 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 			continue
 		}
 		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
-		series, err := r.Prometheus.Range(ctx, tr.Query, now.Add(-w.For), now, w.Step())
+		query, err := speccheck.RenderQuery(tr.Query, queryData(line))
+		var series []promq.Series
+		if err == nil {
+			series, err = r.Prometheus.Range(ctx, query, now.Add(-w.For), now, w.Step())
+		}
 		var res trigger.Result
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
@@ -243,9 +252,13 @@ func triggerEventType(s v1alpha1.TriggerState) string {
 
 // runCheck asks one instant query and judges it against a threshold: any
 // series breaching breaches; no series at all cannot be judged.
-func (r *Reconciler) runCheck(ctx context.Context, kind, name, query string, th trigger.Threshold, now time.Time) check {
+func (r *Reconciler) runCheck(ctx context.Context, line *v1alpha1.ModelLine, kind, name, query string, th trigger.Threshold, now time.Time) check {
 	c := check{Kind: kind, Name: name}
-	series, err := r.Prometheus.Instant(ctx, query, now)
+	query, err := speccheck.RenderQuery(query, queryData(line))
+	var series []promq.Series
+	if err == nil {
+		series, err = r.Prometheus.Instant(ctx, query, now)
+	}
 	if err != nil {
 		c.Err = err.Error()
 		return c
@@ -272,6 +285,12 @@ func (r *Reconciler) runCheck(ctx context.Context, kind, name, query string, th 
 	return c
 }
 
+// queryData is what a line's trigger and check queries render with: the
+// line and its live version.
+func queryData(line *v1alpha1.ModelLine) speccheck.QueryData {
+	return speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: line.Status.LiveVersion}
+}
+
 // runChecks runs the checks a path needs: data quality always, drift only
 // for a trigger, fresh data always. Each is one instant query.
 func (r *Reconciler) runChecks(ctx context.Context, line *v1alpha1.ModelLine, path string, now time.Time) checkResults {
@@ -281,17 +300,17 @@ func (r *Reconciler) runChecks(ctx context.Context, line *v1alpha1.ModelLine, pa
 		return res
 	}
 	for _, q := range c.DataQuality {
-		res.DataQuality = append(res.DataQuality, r.runCheck(ctx, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
+		res.DataQuality = append(res.DataQuality, r.runCheck(ctx, line, "data-quality", q.Name, q.Query, threshold(q.Below, q.Above), now))
 	}
 	if path == pathTrigger {
 		for _, q := range c.Drift {
-			res.Drift = append(res.Drift, r.runCheck(ctx, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
+			res.Drift = append(res.Drift, r.runCheck(ctx, line, "drift", q.Name, q.Query, threshold(q.Below, q.Above), now))
 		}
 	}
 	if f := c.FreshData; f != nil && f.Query != "" {
 		// The least value across series must reach atLeast.
 		th := threshold(&f.AtLeast, nil)
-		fc := r.runCheck(ctx, "fresh-data", "freshData", f.Query, th, now)
+		fc := r.runCheck(ctx, line, "fresh-data", "freshData", f.Query, th, now)
 		res.FreshData, res.AtLeast = &fc, f.AtLeast
 	}
 	return res

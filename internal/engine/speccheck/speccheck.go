@@ -124,20 +124,63 @@ func schedule(s *v1alpha1.ScheduleSpec) []Problem {
 	return ps
 }
 
-// promQL checks that a query parses and yields an instant vector or a scalar,
-// which is what a range query over a window can evaluate.
-func promQL(field, query string) []Problem {
-	expr, err := promqlParser.ParseExpr(query)
+// QueryData is what a trigger, check or guard query may use as a
+// template: {{.Line}}, {{.Namespace}} and {{.Version}}.
+type QueryData struct {
+	// Line is the ModelLine's name.
+	Line string
+	// Namespace is the ModelLine's namespace.
+	Namespace string
+	// Version is the version judged: the live version for triggers and
+	// checks, the version on probation (the live one) for the guard; empty
+	// when nothing is live.
+	Version string
+}
+
+// queryFields says what a query template may use, for the messages.
+const queryFields = "it may use {{.Line}}, {{.Namespace}} and {{.Version}}"
+
+// RenderQuery renders a trigger, check or guard query for a line: a query
+// without "{{" is PromQL as it is; one with it is a Go template of
+// QueryData.
+func RenderQuery(query string, d QueryData) (string, error) {
+	if !strings.Contains(query, "{{") {
+		return query, nil
+	}
+	tmpl, err := template.New("query").Option("missingkey=error").Parse(query)
 	if err != nil {
-		return []Problem{{field, fmt.Sprintf("PromQL does not parse: %v", err)}}
+		return "", fmt.Errorf("the query template does not parse: %w", err)
+	}
+	var out bytes.Buffer
+	if err := tmpl.Execute(&out, d); err != nil {
+		return "", fmt.Errorf("the query template does not render (%s): %w", queryFields, err)
+	}
+	return out.String(), nil
+}
+
+// promQL checks that a query (a template rendered with example values)
+// parses and yields an instant vector or a scalar, which is what a range
+// query over a window can evaluate.
+func promQL(field, query string) []Problem {
+	rendered, err := RenderQuery(query, QueryData{Line: "late-risk", Namespace: "larkspur", Version: "late-risk-v1"})
+	if err != nil {
+		return []Problem{{field, err.Error()}}
+	}
+	what := "PromQL"
+	if rendered != query {
+		what = "the template renders to PromQL that"
+	}
+	expr, err := promqlParser.ParseExpr(rendered)
+	if err != nil {
+		return []Problem{{field, fmt.Sprintf("%s does not parse: %v", what, err)}}
 	}
 	switch expr.Type() {
 	case parser.ValueTypeVector, parser.ValueTypeScalar:
 		return nil
 	case parser.ValueTypeMatrix:
-		return []Problem{{field, "PromQL yields a range vector; it must yield an instant vector or a scalar (wrap the range selector in a function such as avg_over_time)"}}
+		return []Problem{{field, what + " yields a range vector; it must yield an instant vector or a scalar (wrap the range selector in a function such as avg_over_time)"}}
 	default:
-		return []Problem{{field, fmt.Sprintf("PromQL yields a %s; it must yield an instant vector or a scalar", expr.Type())}}
+		return []Problem{{field, fmt.Sprintf("%s yields a %s; it must yield an instant vector or a scalar", what, expr.Type())}}
 	}
 }
 

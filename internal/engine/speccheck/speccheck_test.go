@@ -81,6 +81,10 @@ func TestLineProblems(t *testing.T) {
 		{"drift PromQL", func(s *v1alpha1.ModelLineSpec) { s.Checks.Drift[0].Query = "max(" }, "spec.checks.drift[0].query", "PromQL does not parse"},
 		{"fresh data PromQL", func(s *v1alpha1.ModelLineSpec) { s.Checks.FreshData.Query = "rows{" }, "spec.checks.freshData.query", "PromQL does not parse"},
 		{"guard PromQL", func(s *v1alpha1.ModelLineSpec) { s.Guard.Query = "1 +" }, "spec.guard.query", "PromQL does not parse"},
+		{"trigger template syntax", func(s *v1alpha1.ModelLineSpec) { s.Triggers[0].Query = `auc{line="{{.Line}"}` }, "spec.triggers[0].query", "the query template does not parse"},
+		{"trigger template field", func(s *v1alpha1.ModelLineSpec) { s.Triggers[0].Query = `auc{model="{{.Model}}"}` }, "spec.triggers[0].query", "does not render (it may use {{.Line}}, {{.Namespace}} and {{.Version}})"},
+		{"check template to bad PromQL", func(s *v1alpha1.ModelLineSpec) { s.Checks.Drift[0].Query = `psi{line={{.Line}}}` }, "spec.checks.drift[0].query", "the template renders to PromQL that does not parse"},
+		{"guard template to a range vector", func(s *v1alpha1.ModelLineSpec) { s.Guard.Query = `auc{version="{{.Version}}"}[5m]` }, "spec.guard.query", "the template renders to PromQL that yields a range vector"},
 		{"artifact template syntax", func(s *v1alpha1.ModelLineSpec) { s.Training.ArtifactURI = "s3://m/{{.Line}/x" }, "spec.training.artifactURI", "does not parse"},
 		{"artifact template unknown field", func(s *v1alpha1.ModelLineSpec) { s.Training.ArtifactURI = "s3://m/{{.Model}}/{{.Number}}" }, "spec.training.artifactURI", "template fails"},
 		{"artifact template constant", func(s *v1alpha1.ModelLineSpec) { s.Training.ArtifactURI = "s3://m/{{.Line}}/latest" }, "spec.training.artifactURI", "same URI"},
@@ -156,5 +160,30 @@ func TestLocation(t *testing.T) {
 	loc, err = Location("Asia/Kolkata")
 	if err != nil || loc.String() != "Asia/Kolkata" {
 		t.Errorf("Asia/Kolkata: got %v, %v", loc, err)
+	}
+}
+
+// A query template renders with the line's name, namespace and version;
+// a query without one is left as it is, braces of PromQL included.
+func TestRenderQuery(t *testing.T) {
+	d := QueryData{Line: "late-risk", Namespace: "larkspur", Version: "late-risk-v3"}
+	for query, want := range map[string]string{
+		`avg(auc{namespace="{{.Namespace}}", line="{{.Line}}", version="{{.Version}}"})`: `avg(auc{namespace="larkspur", line="late-risk", version="late-risk-v3"})`,
+		`avg(auc{job="scorer"})`: `avg(auc{job="scorer"})`,
+	} {
+		got, err := RenderQuery(query, d)
+		if err != nil || got != want {
+			t.Errorf("RenderQuery(%q) = %q, %v; want %q", query, got, err, want)
+		}
+	}
+	if _, err := RenderQuery(`auc{x="{{.Nope}}"}`, d); err == nil || !strings.Contains(err.Error(), "{{.Version}}") {
+		t.Errorf("an unknown field: %v", err)
+	}
+	// A well-formed template passes the spec check.
+	spec := validSpec()
+	spec.Triggers[0].Query = `avg(auc{line="{{.Line}}", version="{{.Version}}"})`
+	spec.Guard.Query = `avg(auc{namespace="{{.Namespace}}", version="{{.Version}}"})`
+	if ps := Line(&spec); len(ps) != 0 {
+		t.Errorf("templated queries: %v", ps)
 	}
 }
