@@ -199,7 +199,10 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 		recordTrigger(line, tr.Name, res)
 		st := nextTriggerStatus(prev, tr.Name, res, p.now)
 		statuses = append(statuses, st)
-		if prev == nil || prev.State != st.State {
+		// A change of state is news; a first judgement is only when it
+		// finds something (a fleet's fresh start would otherwise say
+		// "Inactive" once per trigger).
+		if (prev == nil && st.State != v1alpha1.TriggerInactive) || (prev != nil && prev.State != st.State) {
 			p.eventFor("Trigger/"+tr.Name, line, nil, triggerEventType(st.State), "Trigger"+string(st.State), "trigger %s is %s: %s", tr.Name, st.State, st.Message)
 		}
 		if res.State == v1alpha1.TriggerFiring {

@@ -598,3 +598,31 @@ func TestScheduleBlockedByDataQuality(t *testing.T) {
 		t.Errorf("%d versions", n)
 	}
 }
+
+func init() {
+	scenarios["first-inactive"] = scenario{auc: dropAt(hm(3, 0), 0.72), missing: constant(0.01), psi: step(hm(3, 0), 0.05, 0.4), labelled: constant(50000)}
+}
+
+// A line created when its trigger can already judge a whole window finds
+// it Inactive at its first judgement: that is not news, and no event says
+// it (a fleet's fresh start would otherwise write one per trigger). A
+// change of state is: Pending when the drop starts.
+func TestTriggerFirstInactiveIsQuiet(t *testing.T) {
+	key := watchedLine(t, "first-inactive", func(*unstructured.Unstructured) {
+		clk.SetTime(hm(2, 0)) // a whole window of history before the line
+	})
+	st := evaluateAt(t, key, hm(2, 1))
+	if st.State != v1alpha1.TriggerInactive {
+		t.Fatalf("first judgement %+v, want Inactive", st)
+	}
+	stateAt(t, key, hm(3, 10), v1alpha1.TriggerPending)
+	// Events go out in order: once the Pending one is there, an Inactive
+	// one of the first judgement would be too.
+	waitEvent(t, key.Namespace, lineName, "TriggerPending")
+	if evs := eventsFor(t, key.Namespace, lineName, "TriggerInactive"); len(evs) != 0 {
+		t.Errorf("the first judgement, Inactive, was an event: %s", evs[0].Note)
+	}
+	if evs := eventsFor(t, key.Namespace, lineName, "TriggerUnknown"); len(evs) != 0 {
+		t.Errorf("the trigger was Unknown first: %s", evs[0].Note)
+	}
+}
