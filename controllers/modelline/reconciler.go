@@ -61,6 +61,7 @@ type Reconciler struct {
 	Coverage float64
 
 	evals evaluations
+	specs specChecks
 	// written is the resourceVersion of the newest copy of each line the
 	// controller knows: its own last status write, or a copy read past the
 	// cache since.
@@ -92,6 +93,7 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		if apierrors.IsNotFound(err) {
 			forgetLineMetrics(req.Namespace, req.Name)
 			r.evals.forget(req.NamespacedName)
+			r.specs.forget(req.NamespacedName)
 			r.written.Delete(req.NamespacedName)
 			return ctrl.Result{}, nil
 		}
@@ -321,7 +323,7 @@ func (r *Reconciler) writeVersions(ctx context.Context, vw *view, before map[str
 // observe reads the serving Deployment, the line's versions and Jobs, and
 // the rule-based fallback.
 func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lineObservation, *view, error) {
-	obs := lineObservation{problems: speccheck.Line(&line.Spec)}
+	obs := lineObservation{problems: r.specs.problems(line)}
 	vw := &view{jobs: map[string]*batchv1.Job{}}
 
 	var dep appsv1.Deployment
