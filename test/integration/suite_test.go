@@ -23,6 +23,7 @@ import (
 	"k8s.io/client-go/rest"
 	clocktesting "k8s.io/utils/clock/testing"
 	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/cache"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
@@ -154,6 +155,8 @@ var managerConfig *rest.Config
 var running struct {
 	cancel context.CancelFunc
 	done   chan error
+	// cache is the running manager's cache, for tests of what it holds.
+	cache cache.Cache
 }
 
 // managerWrap, when set, wraps the client of every manager started: the
@@ -169,7 +172,7 @@ func startManager() error {
 		cancel()
 		return err
 	}
-	running.cancel, running.done = cancel, make(chan error, 1)
+	running.cancel, running.done, running.cache = cancel, make(chan error, 1), mgr.GetCache()
 	go func() { running.done <- mgr.Start(ctx) }()
 	return nil
 }
