@@ -52,7 +52,7 @@ func TestRealNode(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { _ = os.RemoveAll(dir) })
-	archive := buildImage(t, root, dir)
+	archive := buildImage(t, dir)
 
 	// Long enough to wait for another package's node (the end-to-end
 	// suite's) to stop first.
@@ -246,7 +246,7 @@ func runJob(ctx context.Context, t *testing.T, cs kubernetes.Interface, name str
 }
 
 // buildImage writes the plumbline image archive of the current code.
-func buildImage(t *testing.T, root, dir string) string {
+func buildImage(t *testing.T, dir string) string {
 	t.Helper()
 	archive, err := PlumblineImage(context.Background(), dir, testImage, "node-test")
 	if err != nil {
