@@ -466,7 +466,10 @@ func runRollback(ctx context.Context, e *env, pos []string) error {
 	switch {
 	case v.Spec.Line != l.Name:
 		return fmt.Errorf("%s belongs to line %q, not %s", v.Name, v.Spec.Line, l.Name)
-	case v.Name == l.Status.LiveVersion:
+	case v.Status.Phase == v1alpha1.PhaseLive:
+		// The version's own phase, not the line's liveVersion: the line's
+		// status is written after its versions' in a pass, so for a moment
+		// it can still name the version a rollback has just replaced.
 		return fmt.Errorf("%s is already live on %s", v.Name, l.Name)
 	case v.Status.Phase != v1alpha1.PhaseArchived && v.Spec.Source != v1alpha1.SourceRuleBased:
 		return fmt.Errorf("%s is %s: a rollback serves an archived version or the rule-based one", v.Name, dash(string(v.Status.Phase)))
