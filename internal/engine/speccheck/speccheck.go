@@ -8,6 +8,7 @@ import (
 	"bytes"
 	"fmt"
 	"strings"
+	"sync"
 	"text/template"
 	"time"
 
@@ -140,14 +141,48 @@ type QueryData struct {
 // queryFields says what a query template may use, for the messages.
 const queryFields = "it may use {{.Line}}, {{.Namespace}} and {{.Version}}"
 
+// IsTemplate reports whether a query is a template (holds "{{").
+func IsTemplate(query string) bool { return strings.Contains(query, "{{") }
+
+// parsedTemplates keeps parsed query templates by their text: a fleet
+// renders a few templates for every line at every evaluation. It is
+// emptied when it reaches maxParsedTemplates (texts edited away leave it
+// only then).
+var parsedTemplates struct {
+	sync.Mutex
+	m map[string]*template.Template
+}
+
+const maxParsedTemplates = 4096
+
+func parseTemplate(query string) (*template.Template, error) {
+	parsedTemplates.Lock()
+	t := parsedTemplates.m[query]
+	parsedTemplates.Unlock()
+	if t != nil {
+		return t, nil
+	}
+	t, err := template.New("query").Option("missingkey=error").Parse(query)
+	if err != nil {
+		return nil, err
+	}
+	parsedTemplates.Lock()
+	if parsedTemplates.m == nil || len(parsedTemplates.m) >= maxParsedTemplates {
+		parsedTemplates.m = map[string]*template.Template{}
+	}
+	parsedTemplates.m[query] = t
+	parsedTemplates.Unlock()
+	return t, nil
+}
+
 // RenderQuery renders a trigger, check or guard query for a line: a query
 // without "{{" is PromQL as it is; one with it is a Go template of
 // QueryData.
 func RenderQuery(query string, d QueryData) (string, error) {
-	if !strings.Contains(query, "{{") {
+	if !IsTemplate(query) {
 		return query, nil
 	}
-	tmpl, err := template.New("query").Option("missingkey=error").Parse(query)
+	tmpl, err := parseTemplate(query)
 	if err != nil {
 		return "", fmt.Errorf("the query template does not parse: %w", err)
 	}
