@@ -145,6 +145,7 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 	fs.StringVar(&namespaces, "namespaces", "", "comma-separated namespaces to act in (default: all)")
 	fs.DurationVar(&o.PrometheusTimeout, "prometheus-timeout", 10*time.Second, "how long one Prometheus query may take")
 	fs.IntVar(&o.MaxConcurrentReconciles, "max-concurrent-reconciles", 4, "how many lines are worked on at once")
+	fs.BoolVar(&o.PerLineQueries, "per-line-queries", false, "ask every line's trigger and guard queries on their own, even those on a template lines share (default: one query per shared template)")
 	fs.Float64Var(&o.TriggerCoverage, "trigger-coverage", 0.8, "share of a trigger window's points that must be present to judge it (fewer: Unknown)")
 	zapOpts := zap.Options{}
 	zapOpts.BindFlags(fs)

@@ -59,9 +59,13 @@ type Reconciler struct {
 	// Coverage is the share of a trigger window's points that must be
 	// present for the trigger to be judged; zero means 0.8.
 	Coverage float64
+	// PerLineQueries turns sharing off: every line asks its own queries,
+	// even those on a shared template.
+	PerLineQueries bool
 
-	evals evaluations
-	specs specChecks
+	evals  evaluations
+	shared sharedQueries
+	specs  specChecks
 	// written is the resourceVersion of the newest copy of each line the
 	// controller knows: its own last status write, or a copy read past the
 	// cache since.

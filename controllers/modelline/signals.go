@@ -56,15 +56,12 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 			Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", live.Name, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
 		p.wakeAt(firstFull)
 	} else {
-		query, err := speccheck.RenderQuery(g.Query, speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name})
-		var series []promq.Series
-		if err == nil {
-			series, err = r.Prometheus.Range(ctx, query, now.Add(-w.For), now, w.Step())
-		}
+		end := w.End(now)
+		series, err := r.windowSeries(ctx, g.Query, speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name}, w, end)
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
 		} else {
-			res = trigger.Judge(series, threshold(g.Below, g.Above), w, now)
+			res = trigger.Judge(series, threshold(g.Below, g.Above), w, end)
 		}
 		if !errors.Is(err, promq.ErrNotConfigured) {
 			p.wakeAt(next)
@@ -180,16 +177,13 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 			continue
 		}
 		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
-		query, err := speccheck.RenderQuery(tr.Query, queryData(line))
-		var series []promq.Series
-		if err == nil {
-			series, err = r.Prometheus.Range(ctx, query, now.Add(-w.For), now, w.Step())
-		}
+		end := w.End(now)
+		series, err := r.windowSeries(ctx, tr.Query, queryData(line), w, end)
 		var res trigger.Result
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
 		} else {
-			res = trigger.Judge(series, threshold(tr.Below, tr.Above), w, now)
+			res = trigger.Judge(series, threshold(tr.Below, tr.Above), w, end)
 		}
 		p.evaluated = append(p.evaluated, tr.Name)
 		if !errors.Is(err, promq.ErrNotConfigured) {

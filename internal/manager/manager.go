@@ -56,6 +56,9 @@ type Options struct {
 	// TriggerCoverage is the share of a trigger window's points that must be
 	// present for it to be judged; zero means 0.8.
 	TriggerCoverage float64
+	// PerLineQueries sends every line's trigger and guard queries on their
+	// own, even those on a template many lines share.
+	PerLineQueries bool
 	// MaxConcurrentReconciles is how many lines are worked on at once; zero
 	// means 4.
 	MaxConcurrentReconciles int
@@ -172,7 +175,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, err
 	}
 	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
-		Prometheus: prom, Coverage: o.TriggerCoverage}
+		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries}
 	workers := o.MaxConcurrentReconciles
 	if workers <= 0 {
 		workers = 4

@@ -44,8 +44,14 @@ func TestTriggerQueryTemplate(t *testing.T) {
 			"query": `min(larkspur_auc_by_version{namespace="{{.Namespace}}", line="{{.Line}}", version="{{.Version}}"})`,
 		}})
 	})
+	shared := metricValue(t, "plumbline_window_answers_total", map[string]string{"source": "shared"})
 	stateAt(t, key, hm(2, 0), v1alpha1.TriggerInactive)
 	stateAt(t, key, hm(3, 30), v1alpha1.TriggerPending)
 	st := stateAt(t, key, hm(4, 0), v1alpha1.TriggerFiring)
 	mustContain(t, "message", st.Message, "below 0.78 at all 61 points over 1h0m0s")
+	// The template can be shared, so the manager judged it from the shared
+	// query (split by namespace, line and version), not the line's own.
+	if got := metricValue(t, "plumbline_window_answers_total", map[string]string{"source": "shared"}) - shared; got < 3 {
+		t.Fatalf("%v windows answered from a shared query, want at least 3", got)
+	}
 }

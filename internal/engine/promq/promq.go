@@ -35,6 +35,9 @@ type Series struct {
 	// Labels renders the series' labels, for example
 	// {depot="harbour",window="24h"}; "{}" for a series without labels.
 	Labels string
+	// Metric holds the same labels as a map (without the metric name); nil
+	// when the answer did not come from a server.
+	Metric map[string]string
 	Points []Point
 }
 
@@ -116,7 +119,7 @@ func convert(v model.Value) ([]Series, error) {
 	switch r := v.(type) {
 	case model.Matrix:
 		for _, s := range r {
-			ser := Series{Labels: labels(s.Metric)}
+			ser := Series{Labels: labels(s.Metric), Metric: labelMap(s.Metric)}
 			for _, p := range s.Values {
 				ser.Points = append(ser.Points, Point{T: p.Timestamp.Time().UTC(), V: float64(p.Value)})
 			}
@@ -124,10 +127,10 @@ func convert(v model.Value) ([]Series, error) {
 		}
 	case model.Vector:
 		for _, s := range r {
-			out = append(out, Series{Labels: labels(s.Metric), Points: []Point{{T: s.Timestamp.Time().UTC(), V: float64(s.Value)}}})
+			out = append(out, Series{Labels: labels(s.Metric), Metric: labelMap(s.Metric), Points: []Point{{T: s.Timestamp.Time().UTC(), V: float64(s.Value)}}})
 		}
 	case *model.Scalar:
-		out = append(out, Series{Labels: "{}", Points: []Point{{T: r.Timestamp.Time().UTC(), V: float64(r.Value)}}})
+		out = append(out, Series{Labels: "{}", Metric: map[string]string{}, Points: []Point{{T: r.Timestamp.Time().UTC(), V: float64(r.Value)}}})
 	default:
 		return nil, fmt.Errorf("unexpected result type %s", v.Type())
 	}
@@ -136,12 +139,22 @@ func convert(v model.Value) ([]Series, error) {
 }
 
 // labels renders a metric's labels without its name, sorted.
-func labels(m model.Metric) string {
-	var parts []string
+func labels(m model.Metric) string { return Labels(labelMap(m)) }
+
+func labelMap(m model.Metric) map[string]string {
+	out := make(map[string]string, len(m))
 	for k, v := range m {
-		if k == model.MetricNameLabel {
-			continue
+		if k != model.MetricNameLabel {
+			out[string(k)] = string(v)
 		}
+	}
+	return out
+}
+
+// Labels renders labels as Series.Labels does: sorted, the values quoted.
+func Labels(m map[string]string) string {
+	parts := make([]string, 0, len(m))
+	for k, v := range m {
 		parts = append(parts, fmt.Sprintf("%s=%q", k, v))
 	}
 	sort.Strings(parts)

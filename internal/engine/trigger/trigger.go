@@ -76,6 +76,12 @@ func (w Window) Step() time.Duration {
 	return step.Truncate(time.Second)
 }
 
+// End is where the window judged at now ends: now on the step's grid
+// (whole multiples of the step since the zero time). Every line judged within
+// one step judges the same window, which lets lines on one query template
+// share its answer; a point is at most one step old when it is judged.
+func (w Window) End(now time.Time) time.Time { return now.Truncate(w.Step()) }
+
 // Expected is the number of points in a full window.
 func (w Window) Expected() int { return int(w.For/w.Step()) + 1 }
 

@@ -1,0 +1,160 @@
+package modelline
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"sync"
+	"time"
+
+	promv1 "github.com/prometheus/client_golang/api/prometheus/v1"
+	"github.com/prometheus/client_golang/prometheus"
+	"sigs.k8s.io/controller-runtime/pkg/metrics"
+
+	"plumbline.dev/plumbline/internal/engine/promq"
+	"plumbline.dev/plumbline/internal/engine/sharedquery"
+	"plumbline.dev/plumbline/internal/engine/speccheck"
+	"plumbline.dev/plumbline/internal/engine/trigger"
+)
+
+var windowAnswers = prometheus.NewCounterVec(prometheus.CounterOpts{
+	Name: "plumbline_window_answers_total",
+	Help: "Trigger and guard windows judged, by where their points came from: shared (one query for every line on the same template) or own (the line's own query).",
+}, []string{"source"})
+
+func init() { metrics.Registry.MustRegister(windowAnswers) }
+
+// sharedQueries answers the windows of lines whose queries come from one
+// template with one range query per window end (see package sharedquery
+// for which templates qualify). Windows end on their step's grid, so every
+// line judged within one step asks for the same window, and the first to
+// ask fetches it for all. Only the newest answer per shared query is kept.
+type sharedQueries struct {
+	mu      sync.Mutex
+	plans   map[string]planEntry
+	answers map[answerKey]*answer
+}
+
+type planEntry struct {
+	plan *sharedquery.Plan
+	// why the template cannot be shared; the query then goes per line.
+	why error
+}
+
+type answerKey struct {
+	query      string
+	span, step time.Duration
+}
+
+type answer struct {
+	end   time.Time
+	done  chan struct{}
+	parts map[string][]promq.Series
+	err   error
+}
+
+// plan returns the shared plan of a template, nil when it has none. Plans
+// are kept per template text: a fleet has few templates, and a line's own
+// literal query (no placeholder) is never kept.
+func (s *sharedQueries) plan(tmpl string) *sharedquery.Plan {
+	if !speccheck.IsTemplate(tmpl) {
+		return nil
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	e, ok := s.plans[tmpl]
+	if !ok {
+		p, err := sharedquery.Analyze(tmpl)
+		e = planEntry{plan: p, why: err}
+		if s.plans == nil {
+			s.plans = map[string]planEntry{}
+		}
+		s.plans[tmpl] = e
+	}
+	return e.plan
+}
+
+// windowSeries answers a window's range query for one line: from the shared
+// answer of its template when it has one, else from its own query. The
+// window ends at end (on the step's grid).
+func (r *Reconciler) windowSeries(ctx context.Context, tmpl string, d speccheck.QueryData, w trigger.Window, end time.Time) ([]promq.Series, error) {
+	start, step := end.Add(-w.For), w.Step()
+	if !r.PerLineQueries {
+		if p := r.shared.plan(tmpl); p != nil {
+			if key, ok := p.Key(d); ok {
+				parts, err := r.shared.fetch(ctx, r.Prometheus, p, w.For, step, end)
+				if err == nil {
+					windowAnswers.WithLabelValues("shared").Inc()
+					return parts[key], nil
+				}
+				if !isQueryError(err) {
+					return nil, err
+				}
+				// The shared query failed on its own terms (one line's
+				// series may break a vector match for all): each line
+				// asks its own, which fails only where it would.
+			}
+		}
+	}
+	query, err := speccheck.RenderQuery(tmpl, d)
+	if err != nil {
+		return nil, err
+	}
+	windowAnswers.WithLabelValues("own").Inc()
+	return r.Prometheus.Range(ctx, query, start, end, step)
+}
+
+// fetch returns the shared answer for a window ending at end, asking
+// Prometheus once however many lines wait for it.
+func (s *sharedQueries) fetch(ctx context.Context, q promq.Querier, p *sharedquery.Plan, span, step time.Duration, end time.Time) (map[string][]promq.Series, error) {
+	key := answerKey{query: p.Query, span: span, step: step}
+	s.mu.Lock()
+	a := s.answers[key]
+	if a == nil || !a.end.Equal(end) {
+		fresh := &answer{end: end, done: make(chan struct{})}
+		if a == nil || a.end.Before(end) {
+			// Only the newest is kept; a late line's older window is
+			// fetched for it alone.
+			if s.answers == nil {
+				s.answers = map[answerKey]*answer{}
+			}
+			s.answers[key] = fresh
+		}
+		a = fresh
+		s.mu.Unlock()
+		series, err := q.Range(ctx, p.Query, end.Add(-span), end, step)
+		if err == nil {
+			a.parts, err = p.Split(series)
+		}
+		a.err = err
+		if err != nil {
+			// A failed answer is not kept: the next line asks again.
+			s.mu.Lock()
+			if s.answers[key] == a {
+				delete(s.answers, key)
+			}
+			s.mu.Unlock()
+		}
+		close(a.done)
+		return a.parts, a.err
+	}
+	s.mu.Unlock()
+	select {
+	case <-a.done:
+		return a.parts, a.err
+	case <-ctx.Done():
+		return nil, fmt.Errorf("waiting for a shared query: %w", ctx.Err())
+	}
+}
+
+// isQueryError tells a query Prometheus refused or could not run (which a
+// line's own query might not hit) from a server that could not be reached
+// or timed out (which a line's own query would too, and ten thousand of
+// them would make worse): only the first goes per line.
+func isQueryError(err error) bool {
+	var pe *promv1.Error
+	if errors.As(err, &pe) {
+		return pe.Type == promv1.ErrExec || pe.Type == promv1.ErrBadData
+	}
+	return false
+}
