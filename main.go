@@ -31,6 +31,7 @@ import (
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
+	"plumbline.dev/plumbline/controllers/modelline"
 	"plumbline.dev/plumbline/internal/manager"
 	"plumbline.dev/plumbline/internal/tools/backtest"
 	"plumbline.dev/plumbline/internal/tools/cli"
@@ -145,6 +146,7 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 	fs.StringVar(&namespaces, "namespaces", "", "comma-separated namespaces to act in (default: all)")
 	fs.DurationVar(&o.PrometheusTimeout, "prometheus-timeout", 10*time.Second, "how long one Prometheus query may take")
 	fs.IntVar(&o.MaxConcurrentReconciles, "max-concurrent-reconciles", 4, "how many lines are worked on at once")
+	lineMetrics := fs.String("line-metrics", string(modelline.LineMetricsConditions), "series exported per line: conditions (one for Ready and one for each True condition, at most 8) or all (also each trigger's and the guard's state and value, the live version and the per-line counters)")
 	fs.BoolVar(&o.PerLineQueries, "per-line-queries", false, "ask every line's trigger and guard queries on their own, even those on a template lines share (default: one query per shared template)")
 	fs.Float64Var(&o.TriggerCoverage, "trigger-coverage", 0.8, "share of a trigger window's points that must be present to judge it (fewer: Unknown)")
 	zapOpts := zap.Options{}
@@ -157,6 +159,11 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 			o.Namespaces = append(o.Namespaces, ns)
 		}
 	}
+	lm, err := modelline.ParseLineMetrics(*lineMetrics)
+	if err != nil {
+		return cli.Usagef(fs, "%v", err)
+	}
+	o.LineMetrics = lm
 	if err := o.Validate(); err != nil {
 		return cli.Usagef(fs, "%v", err)
 	}

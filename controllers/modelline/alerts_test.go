@@ -12,6 +12,7 @@ import (
 	"github.com/prometheus/prometheus/model/labels"
 	"github.com/prometheus/prometheus/promql/parser"
 	"k8s.io/apimachinery/pkg/api/meta"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"sigs.k8s.io/controller-runtime/pkg/client/interceptor"
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 	"sigs.k8s.io/yaml"
@@ -77,8 +78,10 @@ func series(mfs map[string]*dto.MetricFamily, name string, want map[string]strin
 
 // The metrics the alerts read describe a line as its conditions do: a
 // waiting candidate shows as ActionRequired=True (AwaitingApproval) with
-// the time the wait began.
+// the time the wait began. By default the manager exports one series per
+// line for Ready and one for each True condition, and nothing else per line.
 func TestConditionMetrics(t *testing.T) {
+	forgetLineMetrics(passNS, "late-risk")
 	w := waitingWorld(t)
 	w.mustPass()
 	l := w.line()
@@ -98,21 +101,78 @@ func TestConditionMetrics(t *testing.T) {
 		}
 		return m
 	}
+	const since = "plumbline_line_condition_since_timestamp_seconds"
+	if v, ok := series(mfs, since, with("condition", "AwaitingApproval", "status", "True", "reason", reasonWaitingDecision)); !ok || v != float64(c.LastTransitionTime.Unix()) {
+		t.Errorf("since{AwaitingApproval} = %v (present %v), want %d", v, ok, c.LastTransitionTime.Unix())
+	}
+	if _, ok := series(mfs, since, with("condition", "ActionRequired", "status", "True", "reason", "AwaitingApproval")); !ok {
+		t.Error("since{ActionRequired, True, AwaitingApproval} is not exported")
+	}
+	ready := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionReady)
+	if _, ok := series(mfs, since, with("condition", "Ready", "status", "False", "reason", ready.Reason)); !ok {
+		t.Errorf("since{Ready, False, %s} is not exported: Ready is, whatever its status", ready.Reason)
+	}
+	if n := lineSeries(mfs, passNS, "late-risk"); n != 1+countTrue(l.Status.Conditions) {
+		t.Errorf("%d series for the line, want one for Ready and one for each of its %d True conditions", n, countTrue(l.Status.Conditions))
+	}
+
+	// With every per-line series: the gauges too, and the False conditions.
+	w.r.LineMetrics = LineMetricsAll
+	w.mustPass()
+	mfs = gathered(t)
 	if v, ok := series(mfs, "plumbline_line_condition", with("condition", "ActionRequired")); !ok || v != 1 {
 		t.Errorf("plumbline_line_condition{condition=ActionRequired} = %v (present %v), want 1", v, ok)
 	}
 	if v, ok := series(mfs, "plumbline_line_condition_info", with("condition", "ActionRequired", "status", "True", "reason", "AwaitingApproval")); !ok || v != 1 {
 		t.Errorf("plumbline_line_condition_info for ActionRequired = %v (present %v), want 1", v, ok)
 	}
+	fallback := meta.FindStatusCondition(l.Status.Conditions, v1alpha1.ConditionFallbackActive)
+	if fallback == nil || fallback.Status != metav1.ConditionFalse {
+		t.Fatalf("FallbackActive %+v, want False", fallback)
+	}
+	if _, ok := series(mfs, since, with("condition", "FallbackActive", "status", "False", "reason", fallback.Reason)); !ok {
+		t.Error("with all per-line series, a False condition's since is not exported")
+	}
 	if _, ok := series(mfs, "plumbline_line_condition_info", with("condition", "ActionRequired", "status", "False", "reason", v1alpha1.ReasonNothingRequired)); ok {
 		t.Error("an old status of ActionRequired is still exported")
-	}
-	if v, ok := series(mfs, "plumbline_line_condition_since_timestamp_seconds", with("condition", "AwaitingApproval")); !ok || v != float64(c.LastTransitionTime.Unix()) {
-		t.Errorf("since = %v (present %v), want %d", v, ok, c.LastTransitionTime.Unix())
 	}
 	if v, ok := series(mfs, "plumbline_line_condition", with("condition", "Ready")); !ok || v != 0 {
 		t.Errorf("Ready = %v (present %v), want 0 while a candidate waits", v, ok)
 	}
+	// And back: the per-line gauges of the other setting do not linger.
+	forgetLineMetrics(passNS, "late-risk")
+	w.r.LineMetrics = LineMetricsConditions
+	w.mustPass()
+	if n := lineSeries(gathered(t), passNS, "late-risk"); n > 8 {
+		t.Errorf("%d series for the line by default, want at most 8", n)
+	}
+}
+
+// lineSeries counts the series of all families labelled with the line.
+func lineSeries(mfs map[string]*dto.MetricFamily, ns, line string) int {
+	n := 0
+	for _, mf := range mfs {
+		for _, m := range mf.GetMetric() {
+			got := map[string]string{}
+			for _, l := range m.GetLabel() {
+				got[l.GetName()] = l.GetValue()
+			}
+			if got["namespace"] == ns && got["line"] == line {
+				n++
+			}
+		}
+	}
+	return n
+}
+
+func countTrue(conds []metav1.Condition) int {
+	n := 0
+	for _, c := range conds {
+		if c.Type != v1alpha1.ConditionReady && c.Status == metav1.ConditionTrue {
+			n++
+		}
+	}
+	return n
 }
 
 // knownLabelValues are the values an alert may match a line condition's
@@ -125,6 +185,8 @@ func knownLabelValues() map[string][]string {
 		// Degraded's
 		reasonGuardHealthy, reasonGuardWatching, reasonGuardUnknown, reasonRegressed, reasonRegressedLate,
 		reasonRollbackLimit, reasonNoFallback, reasonRollbackWaits, reasonSwitchingFallback,
+		// AwaitingApproval's
+		reasonWaitingDecision, "NothingWaiting",
 		// FallbackActive's
 		"ServingCandidate", v1alpha1.ReasonNothingLive, v1alpha1.ReasonRolledBack, "RuleBasedFallback", "Alternative", "RequestedRollback",
 	}

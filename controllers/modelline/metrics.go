@@ -1,6 +1,8 @@
 package modelline
 
 import (
+	"fmt"
+
 	"github.com/prometheus/client_golang/prometheus"
 	"k8s.io/apimachinery/pkg/api/meta"
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
@@ -33,13 +35,15 @@ var (
 		Help: "1 for the status and reason each of a ModelLine's conditions has now.",
 	}, []string{"namespace", "line", "condition", "status", "reason"})
 
-	// lineConditionSince is when each condition last changed status, so an
-	// alert can ask how long a candidate has waited, across restarts of the
-	// manager and of Prometheus.
+	// lineConditionSince is each condition's status and reason with the
+	// time it took that status, so an alert can ask how long a line has
+	// needed a person or a candidate has waited, across restarts of the
+	// manager and of Prometheus. It is the one series per condition the
+	// manager always exports (for Ready and the conditions that are True).
 	lineConditionSince = prometheus.NewGaugeVec(prometheus.GaugeOpts{
 		Name: "plumbline_line_condition_since_timestamp_seconds",
-		Help: "When the ModelLine's condition last changed status (its lastTransitionTime), in Unix seconds.",
-	}, []string{"namespace", "line", "condition"})
+		Help: "When the ModelLine's condition took the status it has now (its lastTransitionTime), in Unix seconds, labelled with that status and its reason. Exported for Ready and each True condition (all conditions with --line-metrics=all).",
+	}, []string{"namespace", "line", "condition", "status", "reason"})
 
 	retrainsStarted = prometheus.NewCounterVec(prometheus.CounterOpts{
 		Name: "plumbline_retrains_started_total",
@@ -83,7 +87,7 @@ var (
 
 	triggerEvaluations = prometheus.NewCounterVec(prometheus.CounterOpts{
 		Name: "plumbline_trigger_evaluations_total",
-		Help: "Trigger evaluations (one range query each), by the state found.",
+		Help: "Trigger evaluations, by the state found.",
 	}, []string{"namespace", "line", "trigger", "state"})
 
 	retrainDecisions = prometheus.NewCounterVec(prometheus.CounterOpts{
@@ -138,22 +142,57 @@ func init() {
 		triggerEvaluations, retrainDecisions, checkRuns, scheduleMissed, lineReconciles, rollbacks, guardState, guardValue, guardEvaluations)
 }
 
+// LineMetrics is which series the manager exports for each line.
+type LineMetrics string
+
+const (
+	// LineMetricsConditions, the default, exports one series per line for
+	// Ready and one for each condition that is True:
+	// plumbline_line_condition_since_timestamp_seconds, at most eight a
+	// line, one for a line at rest. What happened (promotions, rollbacks,
+	// gate verdicts) is in the events and the statuses.
+	LineMetricsConditions LineMetrics = "conditions"
+	// LineMetricsAll adds, per line, every condition's gauges, the live
+	// version, each trigger's and the guard's state and value at every
+	// evaluation, and the per-line counters: about 20 to 60 series a line.
+	LineMetricsAll LineMetrics = "all"
+)
+
+// ParseLineMetrics reads the --line-metrics value.
+func ParseLineMetrics(s string) (LineMetrics, error) {
+	switch LineMetrics(s) {
+	case "", LineMetricsConditions:
+		return LineMetricsConditions, nil
+	case LineMetricsAll:
+		return LineMetricsAll, nil
+	}
+	return "", fmt.Errorf("--line-metrics %q: want %q (one series per line for Ready and each True condition) or %q (every per-line series)", s, LineMetricsConditions, LineMetricsAll)
+}
+
 // recordLineMetrics exports the gauges that describe a line as it is.
-func recordLineMetrics(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion) {
+func recordLineMetrics(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion, level LineMetrics) {
+	all := level == LineMetricsAll
 	lineConditionInfo.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
+	lineConditionSince.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
 	for _, t := range lineConditionTypes {
-		v := 0.0
 		c := meta.FindStatusCondition(line.Status.Conditions, t)
+		if c != nil && (all || t == v1alpha1.ConditionReady || isTrue(c)) {
+			lineConditionSince.WithLabelValues(line.Namespace, line.Name, t, string(c.Status), c.Reason).Set(float64(c.LastTransitionTime.Unix()))
+		}
+		if !all {
+			continue
+		}
+		v := 0.0
 		if isTrue(c) {
 			v = 1
 		}
 		lineCondition.WithLabelValues(line.Namespace, line.Name, t).Set(v)
-		if c == nil {
-			lineConditionSince.DeleteLabelValues(line.Namespace, line.Name, t)
-			continue
+		if c != nil {
+			lineConditionInfo.WithLabelValues(line.Namespace, line.Name, t, string(c.Status), c.Reason).Set(1)
 		}
-		lineConditionInfo.WithLabelValues(line.Namespace, line.Name, t, string(c.Status), c.Reason).Set(1)
-		lineConditionSince.WithLabelValues(line.Namespace, line.Name, t).Set(float64(c.LastTransitionTime.Unix()))
+	}
+	if !all {
+		return
 	}
 	liveVersion.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
 	if live != nil {

@@ -62,6 +62,9 @@ type Reconciler struct {
 	// PerLineQueries turns sharing off: every line asks its own queries,
 	// even those on a shared template.
 	PerLineQueries bool
+	// LineMetrics is which series are exported per line; empty means
+	// LineMetricsConditions.
+	LineMetrics LineMetrics
 
 	evals  evaluations
 	shared sharedQueries
@@ -107,7 +110,9 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		return ctrl.Result{}, err
 	}
 	orig := line.DeepCopy()
-	lineReconciles.WithLabelValues(line.Namespace, line.Name).Inc()
+	if r.LineMetrics == LineMetricsAll {
+		lineReconciles.WithLabelValues(line.Namespace, line.Name).Inc()
+	}
 
 	obs, vw, err := r.observe(ctx, &line)
 	if apierrors.IsForbidden(err) {
@@ -134,7 +139,7 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 			written[name] = true
 		}
 		r.emit(p, written)
-		for _, m := range p.metrics {
+		for _, m := range r.counts(p) {
 			if m.version != "" && written[m.version] {
 				m.inc()
 			}
@@ -150,10 +155,10 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		r.eventForReady(orig, &line)
 	}
 	r.emit(p, nil)
-	for _, m := range p.metrics {
+	for _, m := range r.counts(p) {
 		m.inc()
 	}
-	recordLineMetrics(&line, vw.live())
+	recordLineMetrics(&line, vw.live(), r.LineMetrics)
 	if apierrors.IsForbidden(phaseErr) {
 		// Not a transient error: a person must grant the permission. The
 		// line says so and tries again calmly, without a growing backoff,
@@ -275,6 +280,15 @@ func (r *Reconciler) fresh(ctx context.Context, line *v1alpha1.ModelLine) error 
 	}
 	r.written.Store(key, line.ResourceVersion)
 	return nil
+}
+
+// counts are the pass's per-line counts to add: none unless every per-line
+// series is exported (--line-metrics=all).
+func (r *Reconciler) counts(p *pass) []count {
+	if r.LineMetrics != LineMetricsAll {
+		return nil
+	}
+	return p.metrics
 }
 
 // emit sends the pass's events. With only set, only the events about those

@@ -68,7 +68,9 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 		}
 	}
 	p.evaluated = append(p.evaluated, name)
-	recordGuard(line, res)
+	if r.LineMetrics == LineMetricsAll {
+		recordGuard(line, res)
+	}
 	prev := line.Status.Guard
 	if prev != nil && prev.Name != live.Name {
 		prev = nil // a new live version: a new watch
@@ -190,7 +192,9 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 			// With no Prometheus at all nothing will change with time.
 			p.wakeAt(next)
 		}
-		recordTrigger(line, tr.Name, res)
+		if r.LineMetrics == LineMetricsAll {
+			recordTrigger(line, tr.Name, res)
+		}
 		st := nextTriggerStatus(prev, tr.Name, res, p.now)
 		statuses = append(statuses, st)
 		// A change of state is news; a first judgement is only when it

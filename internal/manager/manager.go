@@ -59,6 +59,9 @@ type Options struct {
 	// PerLineQueries sends every line's trigger and guard queries on their
 	// own, even those on a template many lines share.
 	PerLineQueries bool
+	// LineMetrics is which series are exported per line; empty means
+	// modelline.LineMetricsConditions.
+	LineMetrics modelline.LineMetrics
 	// MaxConcurrentReconciles is how many lines are worked on at once; zero
 	// means 4.
 	MaxConcurrentReconciles int
@@ -175,7 +178,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, err
 	}
 	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
-		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries}
+		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries, LineMetrics: o.LineMetrics}
 	workers := o.MaxConcurrentReconciles
 	if workers <= 0 {
 		workers = 4

@@ -106,7 +106,7 @@ func TestStory(t *testing.T) {
 		}
 	}
 	if res.ManagerSeries == 0 {
-		t.Error("Prometheus scraped no plumbline_line_condition_info series from the manager's pod")
+		t.Error("Prometheus scraped no plumbline_line_condition_since_timestamp_seconds series from the manager's pod")
 	}
 	if n != nil {
 		managerRunsAsItself(ctx, t, n)

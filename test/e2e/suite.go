@@ -105,7 +105,7 @@ type Result struct {
 	Jobs map[string]JobRun
 	// ScrapedVersions are the versions Prometheus saw scorer pods serve.
 	ScrapedVersions []string
-	// ManagerSeries is how many plumbline_line_condition_info series of
+	// ManagerSeries is how many plumbline_line_condition_since_timestamp_seconds series of
 	// the line Prometheus scraped from the manager's pod.
 	ManagerSeries int
 	// Timings: the manager's pod and Prometheus available after apply,
@@ -558,12 +558,12 @@ func (s *suite) collect() error {
 	}
 	sort.Strings(s.result.ScrapedVersions)
 	s.say("Prometheus scraped scorer pods serving %s", strings.Join(s.result.ScrapedVersions, ", "))
-	res, err = s.query(`plumbline_line_condition_info{namespace="` + namespace + `",line="` + lineName + `"}`)
+	res, err = s.query(`plumbline_line_condition_since_timestamp_seconds{namespace="` + namespace + `",line="` + lineName + `"}`)
 	if err != nil {
 		return err
 	}
 	s.result.ManagerSeries = len(res)
-	s.say("Prometheus scraped %d plumbline_line_condition_info series of the line from the manager's pod", len(res))
+	s.say("Prometheus scraped %d plumbline_line_condition_since_timestamp_seconds series of the line from the manager's pod", len(res))
 	return nil
 }
 

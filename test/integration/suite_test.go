@@ -27,6 +27,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
+	"plumbline.dev/plumbline/controllers/modelline"
 	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/manager"
 	"plumbline.dev/plumbline/internal/testenv/controlplane"
@@ -167,7 +168,9 @@ var managerWrap func(client.Client) client.Client
 func startManager() error {
 	ctx, cancel := context.WithCancel(context.Background())
 	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clock.Manual{PassiveClock: clk},
-		AllowSecondManager: true, PrometheusURL: prometheusURL, PrometheusTimeout: prometheusTimeout, WrapClient: managerWrap})
+		AllowSecondManager: true, PrometheusURL: prometheusURL, PrometheusTimeout: prometheusTimeout, WrapClient: managerWrap,
+		// The tests read the per-line counters.
+		LineMetrics: modelline.LineMetricsAll})
 	if err != nil {
 		cancel()
 		return err

@@ -41,6 +41,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/controllers/modelline"
 	"plumbline.dev/plumbline/internal/manager"
 	"plumbline.dev/plumbline/internal/testenv/promserver"
 	"plumbline.dev/plumbline/internal/testenv/simcluster"
@@ -190,7 +191,9 @@ func Run(ctx context.Context, o Options, out io.Writer) (*Result, error) {
 		return nil, err
 	}
 	mgr, err := manager.New(rctx, cluster.Config, manager.Options{MetricsAddr: metricsAddr, ProbeAddr: "0",
-		PrometheusURL: prom.URL, AllowSecondManager: true})
+		PrometheusURL: prom.URL, AllowSecondManager: true,
+		// The summary shows the per-line series.
+		LineMetrics: modelline.LineMetricsAll})
 	if err != nil {
 		return nil, err
 	}
