@@ -62,6 +62,10 @@ type Reconciler struct {
 	// PerLineQueries turns sharing off: every line asks its own queries,
 	// even those on a shared template.
 	PerLineQueries bool
+	// Unspread makes every evaluation due one interval after the last,
+	// instead of on the line's own slot in the interval (tests that drive a
+	// manual clock minute by minute).
+	Unspread bool
 	// LineMetrics is which series are exported per line; empty means
 	// LineMetricsConditions.
 	LineMetrics LineMetrics

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"hash/fnv"
 	"math"
 	"sync"
 	"time"
@@ -43,7 +44,7 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 		every = time.Minute
 	}
 	name := guardKey + live.Name
-	due, next := r.evals.due(key, line.Generation, name, every, now)
+	due, next := r.evals.due(key, line.Generation, name, every, now, !r.Unspread)
 	if !due {
 		p.wakeAt(next)
 		return nil
@@ -120,14 +121,47 @@ func (e *evaluations) get(key types.NamespacedName, generation int64) *lineEvals
 }
 
 // due reports whether a trigger is due at now, and when it next will be.
-func (e *evaluations) due(key types.NamespacedName, generation int64, name string, every time.Duration, now time.Time) (bool, time.Time) {
+// Spread, a line's evaluations after its first fall on its own slots
+// (slotOffset), at least half an interval apart; else every interval after
+// the last.
+func (e *evaluations) due(key types.NamespacedName, generation int64, name string, every time.Duration, now time.Time, spread bool) (bool, time.Time) {
 	e.mu.Lock()
 	defer e.mu.Unlock()
-	last, ok := e.get(key, generation).at[name]
-	if !ok || !now.Before(last.Add(every)) {
-		return true, now.Add(every)
+	after := func(t time.Time) time.Time {
+		if !spread {
+			return t.Add(every)
+		}
+		return nextSlot(t.Add(every/2), every, slotOffset(key, every))
 	}
-	return false, last.Add(every)
+	last, ok := e.get(key, generation).at[name]
+	if !ok || !now.Before(after(last)) {
+		return true, after(now)
+	}
+	return false, after(last)
+}
+
+// slotOffset is a line's stable place in every interval: a fleet's lines
+// come due spread evenly over the interval instead of together (after a
+// start, or after an outage of Prometheus), and all of one line's triggers
+// with the same interval come due together, in one pass.
+func slotOffset(key types.NamespacedName, every time.Duration) time.Duration {
+	if every <= 0 {
+		return 0
+	}
+	h := fnv.New64a()
+	h.Write([]byte(key.Namespace))
+	h.Write([]byte{0})
+	h.Write([]byte(key.Name))
+	return time.Duration(h.Sum64() % uint64(every))
+}
+
+// nextSlot is the first of the times offset + k*every at or after t.
+func nextSlot(t time.Time, every, offset time.Duration) time.Time {
+	s := t.Add(-offset).Truncate(every).Add(offset)
+	if s.Before(t) {
+		s = s.Add(every)
+	}
+	return s
 }
 
 // done records evaluations made at now. It is called once the pass that made
@@ -170,7 +204,7 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 		if every <= 0 {
 			every = time.Minute
 		}
-		due, next := r.evals.due(key, line.Generation, tr.Name, every, now)
+		due, next := r.evals.due(key, line.Generation, tr.Name, every, now, !r.Unspread)
 		if !due {
 			p.wakeAt(next)
 			if prev != nil {

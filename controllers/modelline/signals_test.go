@@ -1,6 +1,7 @@
 package modelline
 
 import (
+	"fmt"
 	"math"
 	"strings"
 	"testing"
@@ -47,22 +48,68 @@ func TestEvaluationsCadence(t *testing.T) {
 	var e evaluations
 	key := types.NamespacedName{Namespace: "larkspur", Name: "late-risk"}
 	t0 := time.Date(2026, 11, 2, 4, 0, 0, 0, time.UTC)
-	if due, next := e.due(key, 1, "auc-drop", time.Minute, t0); !due || !next.Equal(t0.Add(time.Minute)) {
+	if due, next := e.due(key, 1, "auc-drop", time.Minute, t0, false); !due || !next.Equal(t0.Add(time.Minute)) {
 		t.Errorf("never evaluated: due %v next %s", due, next)
 	}
 	e.done(key, 1, []string{"auc-drop"}, t0)
-	if due, next := e.due(key, 1, "auc-drop", time.Minute, t0.Add(30*time.Second)); due || !next.Equal(t0.Add(time.Minute)) {
+	if due, next := e.due(key, 1, "auc-drop", time.Minute, t0.Add(30*time.Second), false); due || !next.Equal(t0.Add(time.Minute)) {
 		t.Errorf("30s later: due %v next %s", due, next)
 	}
-	if due, _ := e.due(key, 1, "auc-drop", time.Minute, t0.Add(time.Minute)); !due {
+	if due, _ := e.due(key, 1, "auc-drop", time.Minute, t0.Add(time.Minute), false); !due {
 		t.Error("a period later: not due")
 	}
-	if due, _ := e.due(key, 2, "auc-drop", time.Minute, t0.Add(time.Second)); !due {
+	if due, _ := e.due(key, 2, "auc-drop", time.Minute, t0.Add(time.Second), false); !due {
 		t.Error("a new generation is evaluated at once")
 	}
 	e.forget(key)
-	if due, _ := e.due(key, 2, "auc-drop", time.Minute, t0.Add(time.Second)); !due {
+	if due, _ := e.due(key, 2, "auc-drop", time.Minute, t0.Add(time.Second), false); !due {
 		t.Error("forgotten line not due")
+	}
+}
+
+// Spread, each line has its own slot in the interval: a fleet evaluated
+// together once (a start) comes due spread over the next interval, each
+// line a whole interval apart after that, and all triggers of a line on
+// one slot.
+func TestEvaluationsSpread(t *testing.T) {
+	var e evaluations
+	t0 := time.Date(2026, 11, 2, 4, 0, 0, 0, time.UTC)
+	every := time.Minute
+	perSecond := map[int]int{}
+	for i := range 600 {
+		key := types.NamespacedName{Namespace: "larkspur", Name: fmt.Sprintf("line-%d", i)}
+		due, next := e.due(key, 1, "auc-drop", every, t0, true)
+		if !due {
+			t.Fatal("a line never evaluated is due at once")
+		}
+		e.done(key, 1, []string{"auc-drop", "late-share"}, t0)
+		if next.Before(t0.Add(every/2)) || !next.Before(t0.Add(every*3/2)) {
+			t.Fatalf("%s: next %s, want within [30s, 90s) of the first", key.Name, next.Sub(t0))
+		}
+		if next.Sub(t0.Add(slotOffset(key, every)))%every != 0 {
+			t.Fatalf("%s: next %s is not on its slot %s", key.Name, next.Sub(t0), slotOffset(key, every))
+		}
+		if due, _ := e.due(key, 1, "auc-drop", every, next.Add(-time.Second), true); due {
+			t.Fatalf("%s: due a second before its slot", key.Name)
+		}
+		due, after := e.due(key, 1, "late-share", every, next, true)
+		if !due {
+			t.Fatalf("%s: the line's other trigger is not due on the same slot", key.Name)
+		}
+		if after.Sub(next) != every {
+			t.Fatalf("%s: then due %s later, want a whole interval", key.Name, after.Sub(next))
+		}
+		perSecond[int(next.Sub(t0)/time.Second)]++
+	}
+	// 600 lines over 60 one-second buckets: about ten each; none holds a
+	// crowd (a fixed hash: this is a property of the spread, not a flake).
+	for s, n := range perSecond {
+		if n > 30 {
+			t.Errorf("%d lines come due in second %d", n, s)
+		}
+	}
+	if len(perSecond) < 50 {
+		t.Errorf("600 lines come due in only %d distinct seconds of 60", len(perSecond))
 	}
 }
 

@@ -59,6 +59,10 @@ type Options struct {
 	// PerLineQueries sends every line's trigger and guard queries on their
 	// own, even those on a template many lines share.
 	PerLineQueries bool
+	// UnspreadEvaluations makes each line's evaluations due one interval
+	// after its last, rather than on its own slot in the interval; for tests
+	// that step a manual clock by whole intervals.
+	UnspreadEvaluations bool
 	// LineMetrics is which series are exported per line; empty means
 	// modelline.LineMetricsConditions.
 	LineMetrics modelline.LineMetrics
@@ -178,7 +182,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, err
 	}
 	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
-		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries, LineMetrics: o.LineMetrics}
+		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries, LineMetrics: o.LineMetrics, Unspread: o.UnspreadEvaluations}
 	workers := o.MaxConcurrentReconciles
 	if workers <= 0 {
 		workers = 4

@@ -170,7 +170,9 @@ func startManager() error {
 	mgr, err := manager.New(ctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clock.Manual{PassiveClock: clk},
 		AllowSecondManager: true, PrometheusURL: prometheusURL, PrometheusTimeout: prometheusTimeout, WrapClient: managerWrap,
 		// The tests read the per-line counters.
-		LineMetrics: modelline.LineMetricsAll})
+		LineMetrics: modelline.LineMetricsAll,
+		// The tests step a manual clock by whole intervals.
+		UnspreadEvaluations: true})
 	if err != nil {
 		cancel()
 		return err
