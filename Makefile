@@ -85,7 +85,11 @@ test-unit: ## Run the pure-function tests only (no API server).
 bench: controlplane prometheus ## Print the benchmarks' figures: evaluate on a million rows, DeLong, CSV, datacheck on 1M x 50, the trigger fleet.
 	go test ./internal/tools/evaluate ./internal/tools/stats -run '^$$' -bench . -benchtime 1x
 	go test ./internal/tools/datacheck -run '^$$' -bench . -benchtime 1x
-	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench . -benchtime 5x
+	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench TriggerFleet -benchtime 5x
+
+.PHONY: bench-fleet
+bench-fleet: controlplane prometheus ## A fleet on one manager: PLUMBLINE_FLEET_LINES lines (10,000), 3 triggers and 10 versions each; prints start-up, rest and 10x-clock figures (20-30 min at 10,000).
+	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench '^BenchmarkFleetScale$$' -benchtime 1x -timeout 90m
 
 .PHONY: false-alarms
 false-alarms: ## Print the trigger false-alarm and detection-delay table of docs/retraining.md (about 2 minutes).

@@ -12,6 +12,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/controllers/modelline"
 	"plumbline.dev/plumbline/internal/engine/clock"
 	"plumbline.dev/plumbline/internal/manager"
 )
@@ -61,7 +62,9 @@ func BenchmarkTriggerFleet(b *testing.B) {
 	mctx, cancel := context.WithCancel(ctx)
 	clk := clock.NewScaled(hm(2, 0), fleetSpeed)
 	mgr, err := manager.New(mctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", Clock: clk,
-		AllowSecondManager: true, PrometheusURL: prometheusURL, MaxConcurrentReconciles: 4})
+		AllowSecondManager: true, PrometheusURL: prometheusURL, MaxConcurrentReconciles: 4,
+		// It counts with the per-line counters.
+		LineMetrics: modelline.LineMetricsAll})
 	if err != nil {
 		cancel()
 		b.Fatal(err)

@@ -201,6 +201,14 @@ func (s *Server) start() error {
 	}
 }
 
+// PID is the server process's id, 0 when it is not running.
+func (s *Server) PID() int {
+	if s.cmd == nil || s.cmd.Process == nil {
+		return 0
+	}
+	return s.cmd.Process.Pid
+}
+
 // Pause freezes the server (SIGSTOP): it still accepts connections, as a
 // hung server does, but answers nothing until Resume.
 func (s *Server) Pause() error {
