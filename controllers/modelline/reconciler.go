@@ -62,6 +62,8 @@ type Reconciler struct {
 	// PerLineQueries turns sharing off: every line asks its own queries,
 	// even those on a shared template.
 	PerLineQueries bool
+	// ServingSelector is the manager's --serving-selector, for messages.
+	ServingSelector string
 	// Unspread makes every evaluation due one interval after the last,
 	// instead of on the line's own slot in the interval (tests that drive a
 	// manual clock minute by minute).
@@ -353,6 +355,9 @@ func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lin
 	switch err := r.Get(ctx, key, &dep); {
 	case apierrors.IsNotFound(err):
 		obs.servingMissing = fmt.Sprintf("Deployment %q (spec.serving.deploymentName) does not exist in namespace %q; the line waits for it", key.Name, key.Namespace)
+		if r.ServingSelector != "" {
+			obs.servingMissing += fmt.Sprintf(" (the manager sees only Deployments matching --serving-selector %s: label it so, if it exists)", r.ServingSelector)
+		}
 	case err != nil:
 		return obs, nil, fmt.Errorf("get serving Deployment %s: %w", key, err)
 	default:

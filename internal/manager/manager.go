@@ -10,7 +10,9 @@ import (
 	"net/url"
 	"time"
 
+	appsv1 "k8s.io/api/apps/v1"
 	batchv1 "k8s.io/api/batch/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/labels"
 	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/selection"
@@ -63,6 +65,11 @@ type Options struct {
 	// after its last, rather than on its own slot in the interval; for tests
 	// that step a manual clock by whole intervals.
 	UnspreadEvaluations bool
+	// ServingSelector, when set, is the label selector of the Deployments
+	// lines serve on: the manager caches only those, not every Deployment
+	// in the cluster. A line whose Deployment it does not select says
+	// ServingNotFound.
+	ServingSelector string
 	// LineMetrics is which series are exported per line; empty means
 	// modelline.LineMetricsConditions.
 	LineMetrics modelline.LineMetrics
@@ -134,18 +141,9 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		}
 		prom = c
 	}
-	// The manager caches only the Jobs it made (they carry the line label),
-	// not every Job in the cluster.
-	ours, err := labels.NewRequirement(v1alpha1.LineLabel, selection.Exists, nil)
+	cacheOpts, err := cacheOptions(o)
 	if err != nil {
-		return nil, fmt.Errorf("job selector: %w", err)
-	}
-	cacheOpts := cache.Options{ByObject: map[client.Object]cache.ByObject{
-		&batchv1.Job{}: {Label: labels.NewSelector().Add(*ours)},
-	},
-		// The manager never reads managedFields, about half of each
-		// object's bytes: the cache keeps objects without them.
-		DefaultTransform: cache.TransformStripManagedFields(),
+		return nil, err
 	}
 	if len(o.Namespaces) > 0 {
 		cacheOpts.DefaultNamespaces = map[string]cache.Config{}
@@ -182,7 +180,7 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, err
 	}
 	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
-		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries, LineMetrics: o.LineMetrics, Unspread: o.UnspreadEvaluations}
+		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries, LineMetrics: o.LineMetrics, Unspread: o.UnspreadEvaluations, ServingSelector: o.ServingSelector}
 	workers := o.MaxConcurrentReconciles
 	if workers <= 0 {
 		workers = 4
@@ -195,6 +193,46 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, fmt.Errorf("set up ModelVersion controller: %w", err)
 	}
 	return mgr, nil
+}
+
+// lastApplied is the annotation kubectl apply keeps a whole copy of the
+// object in; the manager never reads it.
+const lastApplied = "kubectl.kubernetes.io/last-applied-configuration"
+
+// cacheOptions limits the manager's cache to what it reads: the Jobs it
+// made (they carry the line label), the Deployments the serving selector
+// picks (all when it is empty), and no object's managedFields or
+// last-applied copy. The manager writes Deployments by patches of the
+// fields it changes, so what the cache leaves out is never written back.
+func cacheOptions(o Options) (cache.Options, error) {
+	ours, err := labels.NewRequirement(v1alpha1.LineLabel, selection.Exists, nil)
+	if err != nil {
+		return cache.Options{}, fmt.Errorf("job selector: %w", err)
+	}
+	byObject := map[client.Object]cache.ByObject{
+		&batchv1.Job{}: {Label: labels.NewSelector().Add(*ours)},
+	}
+	if o.ServingSelector != "" {
+		sel, err := labels.Parse(o.ServingSelector)
+		if err != nil {
+			return cache.Options{}, fmt.Errorf("--serving-selector %q: %w (want a label selector such as plumbline.dev/serving=true)", o.ServingSelector, err)
+		}
+		byObject[&appsv1.Deployment{}] = cache.ByObject{Label: sel}
+	}
+	strip := cache.TransformStripManagedFields()
+	return cache.Options{ByObject: byObject, DefaultTransform: func(in any) (any, error) {
+		out, err := strip(in)
+		if err != nil {
+			return out, err
+		}
+		if obj, ok := out.(metav1.Object); ok {
+			if a := obj.GetAnnotations(); a[lastApplied] != "" {
+				delete(a, lastApplied)
+				obj.SetAnnotations(a)
+			}
+		}
+		return out, nil
+	}}, nil
 }
 
 // newClient is controller-runtime's client, wrapped when wrap is set.
