@@ -35,6 +35,9 @@ type sharedQueries struct {
 	answers map[answerKey]*answer
 }
 
+// maxPlans bounds the plans kept; a fleet has a few templates.
+const maxPlans = 4096
+
 type planEntry struct {
 	plan *sharedquery.Plan
 	// why the template cannot be shared; the query then goes per line.
@@ -66,7 +69,8 @@ func (s *sharedQueries) plan(tmpl string) *sharedquery.Plan {
 	if !ok {
 		p, err := sharedquery.Analyze(tmpl)
 		e = planEntry{plan: p, why: err}
-		if s.plans == nil {
+		if s.plans == nil || len(s.plans) >= maxPlans {
+			// Texts edited away leave only here.
 			s.plans = map[string]planEntry{}
 		}
 		s.plans[tmpl] = e
