@@ -9,6 +9,7 @@ import (
 
 	promv1 "github.com/prometheus/client_golang/api/prometheus/v1"
 	"github.com/prometheus/client_golang/prometheus"
+	"sigs.k8s.io/controller-runtime/pkg/log"
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 
 	"plumbline.dev/plumbline/internal/engine/promq"
@@ -59,7 +60,7 @@ type answer struct {
 // plan returns the shared plan of a template, nil when it has none. Plans
 // are kept per template text: a fleet has few templates, and a line's own
 // literal query (no placeholder) is never kept.
-func (s *sharedQueries) plan(tmpl string) *sharedquery.Plan {
+func (s *sharedQueries) plan(ctx context.Context, tmpl string) *sharedquery.Plan {
 	if !speccheck.IsTemplate(tmpl) {
 		return nil
 	}
@@ -69,6 +70,11 @@ func (s *sharedQueries) plan(tmpl string) *sharedquery.Plan {
 	if !ok {
 		p, err := sharedquery.Analyze(tmpl)
 		e = planEntry{plan: p, why: err}
+		if err != nil {
+			// Said once per template: it works, at the cost of a query
+			// per line.
+			log.FromContext(ctx).Info("query template is asked per line, not shared", "template", tmpl, "why", err.Error())
+		}
 		if s.plans == nil || len(s.plans) >= maxPlans {
 			// Texts edited away leave only here.
 			s.plans = map[string]planEntry{}
@@ -84,7 +90,7 @@ func (s *sharedQueries) plan(tmpl string) *sharedquery.Plan {
 func (r *Reconciler) windowSeries(ctx context.Context, tmpl string, d speccheck.QueryData, w trigger.Window, end time.Time) ([]promq.Series, error) {
 	start, step := end.Add(-w.For), w.Step()
 	if !r.PerLineQueries {
-		if p := r.shared.plan(tmpl); p != nil {
+		if p := r.shared.plan(ctx, tmpl); p != nil {
 			if key, ok := p.Key(d); ok {
 				parts, err := r.shared.fetch(ctx, r.Prometheus, p, w.For, step, end)
 				if err == nil {
