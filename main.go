@@ -147,6 +147,9 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 	fs.DurationVar(&o.PrometheusTimeout, "prometheus-timeout", 10*time.Second, "how long one Prometheus query may take")
 	fs.IntVar(&o.MaxConcurrentReconciles, "max-concurrent-reconciles", 4, "how many lines are worked on at once")
 	lineMetrics := fs.String("line-metrics", string(modelline.LineMetricsConditions), "series exported per line: conditions (one for Ready and one for each True condition, at most 8) or all (also each trigger's and the guard's state and value, the live version and the per-line counters)")
+	var qps float64
+	fs.Float64Var(&qps, "kube-api-qps", 50, "requests per second the manager may send the API server")
+	fs.IntVar(&o.APIBurst, "kube-api-burst", 100, "requests the manager may send the API server in a burst above --kube-api-qps")
 	fs.StringVar(&o.ServingSelector, "serving-selector", "", "label selector of the Deployments lines serve on, for example plumbline.dev/serving=true: only those are cached (default: every Deployment in the watched namespaces)")
 	fs.BoolVar(&o.PerLineQueries, "per-line-queries", false, "ask every line's trigger and guard queries on their own, even those on a template lines share (default: one query per shared template)")
 	fs.Float64Var(&o.TriggerCoverage, "trigger-coverage", 0.8, "share of a trigger window's points that must be present to judge it (fewer: Unknown)")
@@ -165,6 +168,7 @@ func runManager(ctx context.Context, args []string, _, stderr io.Writer) error {
 		return cli.Usagef(fs, "%v", err)
 	}
 	o.LineMetrics = lm
+	o.APIQPS = float32(qps)
 	if err := o.Validate(); err != nil {
 		return cli.Usagef(fs, "%v", err)
 	}

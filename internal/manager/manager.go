@@ -65,6 +65,11 @@ type Options struct {
 	// after its last, rather than on its own slot in the interval; for tests
 	// that step a manual clock by whole intervals.
 	UnspreadEvaluations bool
+	// APIQPS and APIBurst bound the manager's requests to the API server
+	// (a line's first judgement writes its status; a fleet's fresh start
+	// writes one per line). Zero means 50 and 100.
+	APIQPS   float32
+	APIBurst int
 	// ServingSelector, when set, is the label selector of the Deployments
 	// lines serve on: the manager caches only those, not every Deployment
 	// in the cluster. A line whose Deployment it does not select says
@@ -125,6 +130,8 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	if err != nil {
 		return nil, err
 	}
+	cfg = rest.CopyConfig(cfg)
+	cfg.QPS, cfg.Burst = o.apiRate()
 	clk := o.Clock
 	if clk == nil {
 		clk = clock.Real{}
@@ -193,6 +200,20 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 		return nil, fmt.Errorf("set up ModelVersion controller: %w", err)
 	}
 	return mgr, nil
+}
+
+// apiRate is the client's rate limit: the options', or 50 requests a
+// second with bursts of 100 (controller-runtime's own default, 20 and 30,
+// took over a minute to write a thousand lines' first statuses).
+func (o Options) apiRate() (float32, int) {
+	qps, burst := o.APIQPS, o.APIBurst
+	if qps <= 0 {
+		qps = 50
+	}
+	if burst <= 0 {
+		burst = 2 * int(qps)
+	}
+	return qps, burst
 }
 
 // lastApplied is the annotation kubectl apply keeps a whole copy of the
