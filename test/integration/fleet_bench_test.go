@@ -34,7 +34,8 @@ import (
 // default 10,000), each with three triggers judged every minute, its own
 // serving Deployment and a history of ten archived versions, on one manager
 // with the real API server and a real Prometheus holding four hours of the
-// fleet's series. A share of the lines (PLUMBLINE_FLEET_SHARED, default
+// fleet's series (PLUMBLINE_FLEET_QPS sets the manager's --kube-api-qps).
+// A share of the lines (PLUMBLINE_FLEET_SHARED, default
 // 0.5) use three shared query templates, the others literal queries of
 // their own. It runs the manager on the real clock (a fresh
 // start, a stretch at rest, a restart) and then on a clock ten times faster
@@ -71,6 +72,14 @@ func BenchmarkFleetScale(b *testing.B) {
 		sharedShare = v
 	}
 	shared := int(math.Round(sharedShare * float64(n)))
+	var qps float32 // the manager's default
+	if s := os.Getenv("PLUMBLINE_FLEET_QPS"); s != "" {
+		v, err := strconv.ParseFloat(s, 32)
+		if err != nil || v <= 0 {
+			b.Fatalf("PLUMBLINE_FLEET_QPS=%q: want the manager's requests per second", s)
+		}
+		qps = float32(v)
+	}
 	if b.N > 1 {
 		b.Skip("one iteration is the whole run")
 	}
@@ -117,7 +126,7 @@ func BenchmarkFleetScale(b *testing.B) {
 	var writes atomic.Int64
 	run := func(speed float64) (stop func()) {
 		mctx, cancel := context.WithCancel(ctx)
-		mgr, err := manager.New(mctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0",
+		mgr, err := manager.New(mctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", APIQPS: qps,
 			Clock: clock.NewScaled(origin, speed), AllowSecondManager: true, PrometheusURL: prom.URL,
 			WrapClient: func(c client.Client) client.Client { return &writeCounter{Client: c, n: &writes} }})
 		if err != nil {
@@ -143,21 +152,48 @@ func BenchmarkFleetScale(b *testing.B) {
 		return time.Since(start)
 	}
 
-	// A fresh start: no line has been judged.
-	a0 := answers()
+	quiet := func() {
+		// Until the manager has written nothing for ten seconds.
+		last, since := writes.Load(), time.Now()
+		for time.Since(since) < 10*time.Second {
+			time.Sleep(time.Second)
+			if w := writes.Load(); w != last {
+				last, since = w, time.Now()
+			}
+		}
+	}
+
+	// The first start on the fleet: the manager also completes the
+	// synthetic versions' statuses, once.
+	a0, w0 := answers(), writes.Load()
 	stop := run(1)
+	first := untilJudged(a0, 30*time.Minute)
+	out("first start on the fleet (the versions' statuses completed too): every line judged after %s, %d API writes so far",
+		first.Round(100*time.Millisecond), writes.Load()-w0)
+	quiet()
+	out("  settled after %d API writes", writes.Load()-w0)
+	stop()
+
+	// A fresh start: every line's triggers are new (never judged).
+	if err := forgetTriggers(ctx, ns); err != nil {
+		b.Fatal(err)
+	}
+	a0, w0 = answers(), writes.Load()
+	stop = run(1)
 	fresh := untilJudged(a0, 15*time.Minute)
-	out("fresh start: every line judged after %s", fresh.Round(100*time.Millisecond))
-	time.Sleep(90 * time.Second) // the fresh start's writes and the spread settle
+	out("fresh start (no trigger judged yet, versions settled): every line judged after %s, %d API writes",
+		fresh.Round(100*time.Millisecond), writes.Load()-w0)
+	quiet()
+	time.Sleep(60 * time.Second) // the spread settles
 	at := measureRest(b, n, rest, 1, &writes, apiPID, etcdPID, prom.PID(), ns)
 	at.print(out, "real clock, at rest")
 	stop()
 
 	// A restart: every line was judged before.
-	a0 = answers()
+	a0, w0 = answers(), writes.Load()
 	stop = run(1)
 	restart := untilJudged(a0, 10*time.Minute)
-	out("restart: every line judged again after %s", restart.Round(100*time.Millisecond))
+	out("restart: every line judged again after %s, %d API writes", restart.Round(100*time.Millisecond), writes.Load()-w0)
 	stop()
 
 	// Ten times the clock: the query load of ten times the lines.
@@ -170,6 +206,23 @@ func BenchmarkFleetScale(b *testing.B) {
 	stop()
 }
 
+// forgetTriggers clears every line's trigger statuses, as for lines never
+// judged.
+func forgetTriggers(ctx context.Context, ns string) error {
+	var lines v1alpha1.ModelLineList
+	if err := k8s.List(ctx, &lines, client.InNamespace(ns)); err != nil {
+		return err
+	}
+	for i := range lines.Items {
+		l := &lines.Items[i]
+		l.Status.Triggers = nil
+		if err := k8s.Status().Update(ctx, l); err != nil {
+			return fmt.Errorf("clear triggers of %s: %w", l.Name, err)
+		}
+	}
+	return nil
+}
+
 // restFigures are what a stretch at rest measured.
 type restFigures struct {
 	lines                                       int
@@ -179,6 +232,7 @@ type restFigures struct {
 	rangeQueriesPerMin, passesPerMin, writesMin float64
 	reconcileP50, reconcileP99, queueP99        time.Duration
 	cpuPerPass                                  time.Duration
+	allocPerPass                                uint64
 	managerCPU, apiCPU, etcdCPU, promCPU        float64
 	peakRSS, liveHeap                           uint64
 	series                                      int
@@ -189,6 +243,7 @@ func (f restFigures) print(out func(string, ...any), title string) {
 	out("  windows judged per minute (real time): %.0f of %.0f wanted", f.judgedPerMin, f.wantedPerMin)
 	out("  Prometheus range queries per minute: %.1f (for the shared templates: %.1f per interval); passes per minute: %.0f; API writes per minute: %.1f", f.rangeQueriesPerMin, f.sharedQueriesPerInterval, f.passesPerMin, f.writesMin)
 	out("  reconcile p50 / p99: %s / %s; queue wait p99: %s", f.reconcileP50, f.reconcileP99, f.queueP99)
+	out("  allocated per pass (the whole process over the stretch, divided): %d KiB", f.allocPerPass>>10)
 	out("  manager CPU per pass: %s; CPU (share of one core): manager %.0f%%, kube-apiserver %.0f%%, etcd %.0f%%, Prometheus %.0f%%", f.cpuPerPass, 100*f.managerCPU, 100*f.apiCPU, 100*f.etcdCPU, 100*f.promCPU)
 	out("  manager process peak RSS %d MiB (the benchmark's client and caches included); live heap %d MiB", f.peakRSS>>20, f.liveHeap>>20)
 	out("  series the manager exports for the fleet's lines: %d (%.2f a line)", f.series, float64(f.series)/float64(f.lines))
@@ -203,6 +258,8 @@ func measureRest(b *testing.B, n int, d time.Duration, speed float64, writes *at
 	p0 := metricSumB(b, "controller_runtime_reconcile_total", map[string]string{"controller": "modelline"})
 	w0 := writes.Load()
 	c0, api0, etcd0, prom0 := cpuTime(), procCPU(apiPID), procCPU(etcdPID), procCPU(promPID)
+	var ms0 runtime.MemStats
+	runtime.ReadMemStats(&ms0)
 	start := time.Now()
 	time.Sleep(d)
 	el := time.Since(start)
@@ -232,8 +289,12 @@ func measureRest(b *testing.B, n int, d time.Duration, speed float64, writes *at
 	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err == nil {
 		f.peakRSS = uint64(ru.Maxrss) << 10
 	}
-	runtime.GC()
 	var ms runtime.MemStats
+	runtime.ReadMemStats(&ms)
+	if passes > 0 {
+		f.allocPerPass = (ms.TotalAlloc - ms0.TotalAlloc) / uint64(passes)
+	}
+	runtime.GC()
 	runtime.ReadMemStats(&ms)
 	f.liveHeap = ms.HeapAlloc
 	f.series = seriesOfNamespace(b, ns)
@@ -495,8 +556,15 @@ func createFleetLine(ctx context.Context, ns string, i int, shared bool) error {
 	if err := k8s.Create(ctx, line); err != nil && !apierrors.IsAlreadyExists(err) {
 		return fmt.Errorf("create line %s: %w", name, err)
 	}
+	var created v1alpha1.ModelLine
+	if err := k8s.Get(ctx, client.ObjectKey{Namespace: ns, Name: name}, &created); err != nil {
+		return fmt.Errorf("read line %s: %w", name, err)
+	}
 	for k := range 10 {
-		v := &v1alpha1.ModelVersion{ObjectMeta: metav1.ObjectMeta{Namespace: ns, Name: fmt.Sprintf("%s-v%d", name, k)},
+		// Adopted already, as the versions of a line that has run for a
+		// while are: a fresh start of the manager does not adopt them again.
+		v := &v1alpha1.ModelVersion{ObjectMeta: metav1.ObjectMeta{Namespace: ns, Name: fmt.Sprintf("%s-v%d", name, k),
+			OwnerReferences: []metav1.OwnerReference{*metav1.NewControllerRef(&created, v1alpha1.GroupVersion.WithKind("ModelLine"))}},
 			Spec: v1alpha1.ModelVersionSpec{Line: name, ArtifactURI: fmt.Sprintf("s3://larkspur-models/%s/v%d", name, k), Source: v1alpha1.SourceImported}}
 		if err := k8s.Create(ctx, v); err != nil {
 			if apierrors.IsAlreadyExists(err) {
