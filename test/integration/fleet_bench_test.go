@@ -101,14 +101,7 @@ func BenchmarkFleetScale(b *testing.B) {
 	defer prom.Stop()
 	out("fleet: %d lines x 3 triggers, %d on shared templates; Prometheus backfilled in %s", n, shared, time.Since(t0).Round(time.Second))
 
-	if err := stopManager(); err != nil {
-		b.Fatal(err)
-	}
-	defer func() {
-		if err := startManager(); err != nil {
-			b.Fatal(err)
-		}
-	}()
+	withoutSuiteManager(b)
 	createNamespaceB(b, ns)
 	t0 = time.Now()
 	if err := createFleet(ctx, ns, n, shared); err != nil {
