@@ -33,7 +33,13 @@ func init() { metrics.Registry.MustRegister(windowAnswers) }
 type sharedQueries struct {
 	mu      sync.Mutex
 	plans   map[string]planEntry
-	answers map[answerKey]*answer
+	answers map[answerKey]*answerState
+}
+
+// answerState is a shared query's newest answer (maybe still being
+// fetched) and its newest complete one.
+type answerState struct {
+	cur, prev *answer
 }
 
 // maxPlans bounds the plans kept; a fleet has a few templates.
@@ -86,19 +92,20 @@ func (s *sharedQueries) plan(ctx context.Context, tmpl string) *sharedquery.Plan
 
 // windowSeries answers a window's range query for one line: from the shared
 // answer of its template when it has one, else from its own query. The
-// window ends at end (on the step's grid).
-func (r *Reconciler) windowSeries(ctx context.Context, tmpl string, d speccheck.QueryData, w trigger.Window, end time.Time) ([]promq.Series, error) {
+// window ends at end (on the step's grid), or one step earlier when a
+// shared answer for end is still on its way; it returns the end answered.
+func (r *Reconciler) windowSeries(ctx context.Context, tmpl string, d speccheck.QueryData, w trigger.Window, end time.Time) ([]promq.Series, time.Time, error) {
 	start, step := end.Add(-w.For), w.Step()
 	if !r.PerLineQueries {
 		if p := r.shared.plan(ctx, tmpl); p != nil {
 			if key, ok := p.Key(d); ok {
-				parts, err := r.shared.fetch(ctx, r.Prometheus, p, w.For, step, end)
+				parts, answered, err := r.shared.fetch(ctx, r.Prometheus, p, w.For, step, end)
 				if err == nil {
 					windowAnswers.WithLabelValues("shared").Inc()
-					return parts[key], nil
+					return parts[key], answered, nil
 				}
 				if !isQueryError(err) {
-					return nil, err
+					return nil, end, err
 				}
 				// The shared query failed on its own terms (one line's
 				// series may break a vector match for all): each line
@@ -108,53 +115,71 @@ func (r *Reconciler) windowSeries(ctx context.Context, tmpl string, d speccheck.
 	}
 	query, err := speccheck.RenderQuery(tmpl, d)
 	if err != nil {
-		return nil, err
+		return nil, end, err
 	}
 	windowAnswers.WithLabelValues("own").Inc()
-	return r.Prometheus.Range(ctx, query, start, end, step)
+	series, err := r.Prometheus.Range(ctx, query, start, end, step)
+	return series, end, err
 }
 
-// fetch returns the shared answer for a window ending at end, asking
-// Prometheus once however many lines wait for it.
-func (s *sharedQueries) fetch(ctx context.Context, q promq.Querier, p *sharedquery.Plan, span, step time.Duration, end time.Time) (map[string][]promq.Series, error) {
+// fetch returns the shared answer for a window ending at end, and the end
+// it answers for, asking Prometheus once however many lines want it. While
+// the answer for a new end is being fetched (seconds, for ten thousand
+// lines' series), lines that want it are answered from the previous end,
+// one step older, rather than holding every worker until it comes: the
+// fetch would otherwise stall the whole queue once a step.
+func (s *sharedQueries) fetch(ctx context.Context, q promq.Querier, p *sharedquery.Plan, span, step time.Duration, end time.Time) (map[string][]promq.Series, time.Time, error) {
 	key := answerKey{query: p.Query, span: span, step: step}
 	s.mu.Lock()
-	a := s.answers[key]
-	if a == nil || !a.end.Equal(end) {
-		fresh := &answer{end: end, done: make(chan struct{})}
-		if a == nil || a.end.Before(end) {
-			// Only the newest is kept; a late line's older window is
-			// fetched for it alone.
-			if s.answers == nil {
-				s.answers = map[answerKey]*answer{}
-			}
-			s.answers[key] = fresh
+	st := s.answers[key]
+	if st == nil {
+		st = &answerState{}
+		if s.answers == nil {
+			s.answers = map[answerKey]*answerState{}
 		}
-		a = fresh
+		s.answers[key] = st
+	}
+	a := st.cur
+	if a != nil && a.end.Equal(end) {
+		select {
+		case <-a.done:
+		default:
+			if prev := st.prev; prev != nil && prev.end.Equal(end.Add(-step)) {
+				s.mu.Unlock()
+				return prev.parts, prev.end, nil
+			}
+		}
 		s.mu.Unlock()
-		series, err := q.Range(ctx, p.Query, end.Add(-span), end, step)
-		if err == nil {
-			a.parts, err = p.Split(series)
+		select {
+		case <-a.done:
+			return a.parts, a.end, a.err
+		case <-ctx.Done():
+			return nil, end, fmt.Errorf("waiting for a shared query: %w", ctx.Err())
 		}
-		a.err = err
-		if err != nil {
-			// A failed answer is not kept: the next line asks again.
-			s.mu.Lock()
-			if s.answers[key] == a {
-				delete(s.answers, key)
-			}
-			s.mu.Unlock()
-		}
-		close(a.done)
-		return a.parts, a.err
+	}
+	fresh := &answer{end: end, done: make(chan struct{})}
+	if a == nil || a.end.Before(end) {
+		// Only the newest is kept, and the last complete one; a late
+		// line's older window is fetched for it alone.
+		st.cur = fresh
 	}
 	s.mu.Unlock()
-	select {
-	case <-a.done:
-		return a.parts, a.err
-	case <-ctx.Done():
-		return nil, fmt.Errorf("waiting for a shared query: %w", ctx.Err())
+	series, err := q.Range(ctx, p.Query, end.Add(-span), end, step)
+	if err == nil {
+		fresh.parts, err = p.Split(series)
 	}
+	fresh.err = err
+	s.mu.Lock()
+	if st.cur == fresh {
+		if err != nil {
+			st.cur = nil // the next line asks again
+		} else {
+			st.prev = fresh
+		}
+	}
+	s.mu.Unlock()
+	close(fresh.done)
+	return fresh.parts, end, err
 }
 
 // isQueryError tells a query Prometheus refused or could not run (which a

@@ -57,8 +57,7 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 			Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", live.Name, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
 		p.wakeAt(firstFull)
 	} else {
-		end := w.End(now)
-		series, err := r.windowSeries(ctx, g.Query, speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name}, w, end)
+		series, end, err := r.windowSeries(ctx, g.Query, speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name}, w, w.End(now))
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
 		} else {
@@ -213,8 +212,7 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 			continue
 		}
 		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
-		end := w.End(now)
-		series, err := r.windowSeries(ctx, tr.Query, queryData(line), w, end)
+		series, end, err := r.windowSeries(ctx, tr.Query, queryData(line), w, w.End(now))
 		var res trigger.Result
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
