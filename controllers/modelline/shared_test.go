@@ -23,7 +23,9 @@ func (g *gatedProm) Range(_ context.Context, _ string, _, end time.Time, _ time.
 	return []promq.Series{{Labels: `{line="a"}`, Metric: map[string]string{"line": "a"}, Points: []promq.Point{{T: end, V: 1}}}}, nil
 }
 
-func (g *gatedProm) Instant(context.Context, string, time.Time) ([]promq.Series, error) { return nil, nil }
+func (g *gatedProm) Instant(context.Context, string, time.Time) ([]promq.Series, error) {
+	return nil, nil
+}
 
 // One query answers every line for a window end; while the next end's
 // answer is on its way, lines are answered from the previous end instead
