@@ -31,8 +31,9 @@ func init() { metrics.Registry.MustRegister(windowAnswers) }
 // line judged within one step asks for the same window, and the first to
 // ask fetches it for all. Only the newest answer per shared query is kept.
 type sharedQueries struct {
-	mu      sync.Mutex
-	plans   map[string]planEntry
+	mu sync.Mutex
+	// plans are the templates seen, with their plan (nil: asked per line).
+	plans   map[string]*sharedquery.Plan
 	answers map[answerKey]*answerState
 }
 
@@ -44,12 +45,6 @@ type answerState struct {
 
 // maxPlans bounds the plans kept; a fleet has a few templates.
 const maxPlans = 4096
-
-type planEntry struct {
-	plan *sharedquery.Plan
-	// why the template cannot be shared; the query then goes per line.
-	why error
-}
 
 type answerKey struct {
 	query      string
@@ -72,10 +67,10 @@ func (s *sharedQueries) plan(ctx context.Context, tmpl string) *sharedquery.Plan
 	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	e, ok := s.plans[tmpl]
+	p, ok := s.plans[tmpl]
 	if !ok {
-		p, err := sharedquery.Analyze(tmpl)
-		e = planEntry{plan: p, why: err}
+		var err error
+		p, err = sharedquery.Analyze(tmpl)
 		if err != nil {
 			// Said once per template: it works, at the cost of a query
 			// per line.
@@ -83,11 +78,11 @@ func (s *sharedQueries) plan(ctx context.Context, tmpl string) *sharedquery.Plan
 		}
 		if s.plans == nil || len(s.plans) >= maxPlans {
 			// Texts edited away leave only here.
-			s.plans = map[string]planEntry{}
+			s.plans = map[string]*sharedquery.Plan{}
 		}
-		s.plans[tmpl] = e
+		s.plans[tmpl] = p
 	}
-	return e.plan
+	return p
 }
 
 // windowSeries answers a window's range query for one line: from the shared
