@@ -2,6 +2,8 @@ package modelline
 
 import (
 	"fmt"
+	"slices"
+	"sync"
 
 	"github.com/prometheus/client_golang/prometheus"
 	"k8s.io/apimachinery/pkg/api/meta"
@@ -172,12 +174,13 @@ func ParseLineMetrics(s string) (LineMetrics, error) {
 // recordLineMetrics exports the gauges that describe a line as it is.
 func recordLineMetrics(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion, level LineMetrics) {
 	all := level == LineMetricsAll
-	lineConditionInfo.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
-	lineConditionSince.DeletePartialMatch(prometheus.Labels{"namespace": line.Namespace, "line": line.Name})
+	var now exportedConditions
 	for _, t := range lineConditionTypes {
 		c := meta.FindStatusCondition(line.Status.Conditions, t)
 		if c != nil && (all || t == v1alpha1.ConditionReady || isTrue(c)) {
-			lineConditionSince.WithLabelValues(line.Namespace, line.Name, t, string(c.Status), c.Reason).Set(float64(c.LastTransitionTime.Unix()))
+			lv := []string{line.Namespace, line.Name, t, string(c.Status), c.Reason}
+			lineConditionSince.WithLabelValues(lv...).Set(float64(c.LastTransitionTime.Unix()))
+			now.since = append(now.since, lv)
 		}
 		if !all {
 			continue
@@ -188,9 +191,12 @@ func recordLineMetrics(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion, le
 		}
 		lineCondition.WithLabelValues(line.Namespace, line.Name, t).Set(v)
 		if c != nil {
-			lineConditionInfo.WithLabelValues(line.Namespace, line.Name, t, string(c.Status), c.Reason).Set(1)
+			lv := []string{line.Namespace, line.Name, t, string(c.Status), c.Reason}
+			lineConditionInfo.WithLabelValues(lv...).Set(1)
+			now.info = append(now.info, lv)
 		}
 	}
+	dropGoneConditions(line, now)
 	if !all {
 		return
 	}
@@ -203,8 +209,36 @@ func recordLineMetrics(line *v1alpha1.ModelLine, live *v1alpha1.ModelVersion, le
 	}
 }
 
+// exportedConditions are the label values of a line's condition series
+// last exported. A pass deletes only those that are gone, instead of every
+// series of the line by a partial match, which walks the series of every
+// line in the fleet.
+type exportedConditions struct{ since, info [][]string }
+
+// conditionSeries holds each line's exportedConditions, by namespace/name.
+var conditionSeries sync.Map
+
+// dropGoneConditions deletes the condition series a line exported before
+// and no longer does, and remembers what it exports now.
+func dropGoneConditions(line *v1alpha1.ModelLine, now exportedConditions) {
+	key := line.Namespace + "/" + line.Name
+	if old, ok := conditionSeries.Load(key); ok {
+		gone := func(vec *prometheus.GaugeVec, before, after [][]string) {
+			for _, lv := range before {
+				if !slices.ContainsFunc(after, func(x []string) bool { return slices.Equal(x, lv) }) {
+					vec.DeleteLabelValues(lv...)
+				}
+			}
+		}
+		gone(lineConditionSince, old.(exportedConditions).since, now.since)
+		gone(lineConditionInfo, old.(exportedConditions).info, now.info)
+	}
+	conditionSeries.Store(key, now)
+}
+
 // forgetLineMetrics drops a deleted line's series.
 func forgetLineMetrics(namespace, name string) {
+	conditionSeries.Delete(namespace + "/" + name)
 	labels := prometheus.Labels{"namespace": namespace, "line": name}
 	for _, v := range []interface {
 		DeletePartialMatch(prometheus.Labels) int
