@@ -88,8 +88,10 @@ bench: controlplane prometheus ## Print the benchmarks' figures: evaluate on a m
 	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench TriggerFleet -benchtime 5x
 
 .PHONY: bench-fleet
-bench-fleet: controlplane prometheus ## A fleet on one manager: PLUMBLINE_FLEET_LINES lines (10,000), 3 triggers and 10 versions each; prints start-up, rest and 10x-clock figures (20-30 min at 10,000).
-	KUBEBUILDER_ASSETS=$(K8S_BIN) go test ./test/integration -run '^$$' -bench '^BenchmarkFleetScale$$' -benchtime 1x -timeout 90m
+FLEET_PROFILES ?= $(CURDIR)/bin/fleet-profiles
+bench-fleet: controlplane prometheus ## A fleet on one manager: PLUMBLINE_FLEET_LINES lines (10,000), 3 triggers and 10 versions each; prints start-up, rest, detection-delay and 10x-clock figures and the tops of its CPU and heap profiles (30-40 min at 10,000).
+	KUBEBUILDER_ASSETS=$(K8S_BIN) PLUMBLINE_FLEET_PROFILES=$(FLEET_PROFILES) go test ./test/integration -run '^$$' -bench '^BenchmarkFleetScale$$' -benchtime 1x -timeout 90m
+	hack/fleet-profiles.sh $(FLEET_PROFILES)
 
 .PHONY: false-alarms
 false-alarms: ## Print the trigger false-alarm and detection-delay table of docs/retraining.md (about 2 minutes).

@@ -94,7 +94,9 @@ func BenchmarkFleetScale(b *testing.B) {
 		b.Fatal(err)
 	}
 	defer os.RemoveAll(dir)
-	prom, err := promserver.Start(filepath.Join(dir, "prometheus"), fleetHistory(ns, n))
+	origin := day0.Add(3 * time.Hour)
+	history := append(fleetHistory(ns, n), probeHistory(probeNS, origin)...)
+	prom, err := promserver.Start(filepath.Join(dir, "prometheus"), history)
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -115,13 +117,20 @@ func BenchmarkFleetScale(b *testing.B) {
 	out("created %d lines, %d Deployments and %d versions (status written) in %s", n, n, 10*n, time.Since(t0).Round(time.Second))
 
 	apiPID, etcdPID := childPID("kube-apiserver"), childPID("etcd")
-	origin := day0.Add(3 * time.Hour)
+	profiles := os.Getenv("PLUMBLINE_FLEET_PROFILES")
+	if profiles != "" {
+		if err := os.MkdirAll(profiles, 0o755); err != nil {
+			b.Fatal(err)
+		}
+	}
 	var writes atomic.Int64
+	var clk *clock.Scaled
 	run := func(speed float64) (stop func()) {
 		mctx, cancel := context.WithCancel(ctx)
+		clk = clock.NewScaled(origin, speed)
 		mgr, err := manager.New(mctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", APIQPS: qps,
-			Clock: clock.NewScaled(origin, speed), AllowSecondManager: true, PrometheusURL: prom.URL,
-			WrapClient: func(c client.Client) client.Client { return &writeCounter{Client: c, n: &writes} }})
+			Clock: clk, AllowSecondManager: true, PrometheusURL: prom.URL,
+			WrapClient: func(c client.Client) client.Client { return &writeCounter{Client: c, n: &writes, skip: probeNS} }})
 		if err != nil {
 			cancel()
 			b.Fatal(err)
@@ -134,11 +143,11 @@ func BenchmarkFleetScale(b *testing.B) {
 		}
 	}
 	answers := func() float64 { return metricSumB(b, "plumbline_window_answers_total", nil) }
-	untilJudged := func(from float64, limit time.Duration) time.Duration {
+	untilJudged := func(from float64, lines int, limit time.Duration) time.Duration {
 		start := time.Now()
-		for answers()-from < float64(3*n) {
+		for answers()-from < float64(3*lines) {
 			if time.Since(start) > limit {
-				b.Fatalf("only %v of %d windows judged after %s", answers()-from, 3*n, limit)
+				b.Fatalf("only %v of %d windows judged after %s", answers()-from, 3*lines, limit)
 			}
 			time.Sleep(200 * time.Millisecond)
 		}
@@ -160,43 +169,66 @@ func BenchmarkFleetScale(b *testing.B) {
 	// synthetic versions' statuses, once.
 	a0, w0 := answers(), writes.Load()
 	stop := run(1)
-	first := untilJudged(a0, 30*time.Minute)
+	first := untilJudged(a0, n, 30*time.Minute)
 	out("first start on the fleet (the versions' statuses completed too): every line judged after %s, %d API writes so far",
 		first.Round(100*time.Millisecond), writes.Load()-w0)
 	quiet()
 	out("  settled after %d API writes", writes.Load()-w0)
 	stop()
 
-	// A fresh start: every line's triggers are new (never judged).
+	// A fresh start: every line's triggers are new (never judged). The
+	// probe lines join the fleet for this stretch: their quality drops at
+	// known times, which measures the detection delay.
 	if err := forgetTriggers(ctx, ns); err != nil {
 		b.Fatal(err)
 	}
+	createNamespaceB(b, probeNS)
+	if err := createProbes(ctx, probeNS); err != nil {
+		b.Fatal(err)
+	}
 	a0, w0 = answers(), writes.Load()
+	stopProfile := profileCPU(b, profiles, "manager-fresh-start")
+	apiProfile := profileAPIServer(b, profiles, "kube-apiserver-fresh-start", 30*time.Second)
 	stop = run(1)
-	fresh := untilJudged(a0, 15*time.Minute)
+	probes := watchProbes(ctx, probeNS, func() time.Time { return clk.Now() })
+	fresh := untilJudged(a0, n+len(probeDrops), 15*time.Minute)
+	stopProfile()
+	<-apiProfile
+	judgedAt := clk.Now()
 	out("fresh start (no trigger judged yet, versions settled): every line judged after %s, %d API writes",
 		fresh.Round(100*time.Millisecond), writes.Load()-w0)
 	quiet()
 	time.Sleep(60 * time.Second) // the spread settles
+	heapProfile(b, profiles, "manager-heap-before-rest")
 	at := measureRest(b, n, rest, 1, &writes, apiPID, etcdPID, prom.PID(), ns)
+	heapProfile(b, profiles, "manager-heap-after-rest")
 	at.print(out, "real clock, at rest")
+	printDetection(out, probes(), origin, judgedAt, clk.Now(), time.Minute)
 	stop()
+	if err := deleteProbes(ctx, probeNS); err != nil {
+		b.Fatal(err)
+	}
 
 	// A restart: every line was judged before.
 	a0, w0 = answers(), writes.Load()
 	stop = run(1)
-	restart := untilJudged(a0, 10*time.Minute)
+	restart := untilJudged(a0, n, 10*time.Minute)
 	out("restart: every line judged again after %s, %d API writes", restart.Round(100*time.Millisecond), writes.Load()-w0)
 	stop()
 
 	// Ten times the clock: the query load of ten times the lines.
 	a0 = answers()
 	stop = run(10)
-	untilJudged(a0, 10*time.Minute)
+	untilJudged(a0, n, 10*time.Minute)
 	time.Sleep(30 * time.Second)
+	stopProfile = profileCPU(b, profiles, "manager-10x")
 	fast := measureRest(b, n, rest, 10, &writes, apiPID, etcdPID, prom.PID(), ns)
+	stopProfile()
 	fast.print(out, "10x clock, at rest")
 	stop()
+	if profiles != "" {
+		out("profiles in %s; read one with: go tool pprof -top <file>", profiles)
+	}
 }
 
 // forgetTriggers clears every line's trigger statuses, as for lines never
@@ -394,48 +426,56 @@ func seriesOfNamespace(b *testing.B, ns string) int {
 	return n
 }
 
-// writeCounter counts the manager's writes to the API server.
+// writeCounter counts the manager's writes to the API server, but for those
+// in the namespace skip.
 type writeCounter struct {
 	client.Client
-	n *atomic.Int64
+	n    *atomic.Int64
+	skip string
+}
+
+func (w *writeCounter) count(o client.Object) {
+	if w.skip == "" || o.GetNamespace() != w.skip {
+		w.n.Add(1)
+	}
 }
 
 func (w *writeCounter) Create(ctx context.Context, o client.Object, opts ...client.CreateOption) error {
-	w.n.Add(1)
+	w.count(o)
 	return w.Client.Create(ctx, o, opts...)
 }
 
 func (w *writeCounter) Update(ctx context.Context, o client.Object, opts ...client.UpdateOption) error {
-	w.n.Add(1)
+	w.count(o)
 	return w.Client.Update(ctx, o, opts...)
 }
 
 func (w *writeCounter) Patch(ctx context.Context, o client.Object, p client.Patch, opts ...client.PatchOption) error {
-	w.n.Add(1)
+	w.count(o)
 	return w.Client.Patch(ctx, o, p, opts...)
 }
 
 func (w *writeCounter) Delete(ctx context.Context, o client.Object, opts ...client.DeleteOption) error {
-	w.n.Add(1)
+	w.count(o)
 	return w.Client.Delete(ctx, o, opts...)
 }
 
 func (w *writeCounter) Status() client.SubResourceWriter {
-	return &statusCounter{SubResourceWriter: w.Client.Status(), n: w.n}
+	return &statusCounter{SubResourceWriter: w.Client.Status(), w: w}
 }
 
 type statusCounter struct {
 	client.SubResourceWriter
-	n *atomic.Int64
+	w *writeCounter
 }
 
 func (s *statusCounter) Update(ctx context.Context, o client.Object, opts ...client.SubResourceUpdateOption) error {
-	s.n.Add(1)
+	s.w.count(o)
 	return s.SubResourceWriter.Update(ctx, o, opts...)
 }
 
 func (s *statusCounter) Patch(ctx context.Context, o client.Object, p client.Patch, opts ...client.SubResourcePatchOption) error {
-	s.n.Add(1)
+	s.w.count(o)
 	return s.SubResourceWriter.Patch(ctx, o, p, opts...)
 }
 

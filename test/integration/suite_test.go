@@ -128,6 +128,7 @@ func runSuite(m *testing.M) int {
 		defer prom.Stop()
 	}
 
+	adminConfig = env.Config
 	managerConfig = rest.CopyConfig(env.Config)
 	managerConfig.Impersonate = rest.ImpersonationConfig{UserName: managerUser}
 
@@ -149,8 +150,9 @@ func runSuite(m *testing.M) int {
 // test of a hung Prometheus does not wait out the default 10 s.
 const prometheusTimeout = 3 * time.Second
 
-// managerConfig talks to the API server as the manager's ServiceAccount.
-var managerConfig *rest.Config
+// managerConfig talks to the API server as the manager's ServiceAccount;
+// adminConfig as the test's administrator.
+var managerConfig, adminConfig *rest.Config
 
 // running is the manager the tests run against.
 var running struct {
