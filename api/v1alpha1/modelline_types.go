@@ -71,6 +71,12 @@ type ModelLineSpec struct {
 	// +optional
 	Guard *GuardSpec `json:"guard,omitempty"`
 
+	// labels says when the truth behind the quality series (whether a
+	// parcel was in fact late) comes in: the line-wide label delay, which
+	// triggers and the guard may override, and how the series are stamped.
+	// +optional
+	Labels *LabelsSpec `json:"labels,omitempty"`
+
 	// cooldownSeconds is the least time between two trigger-started retrains.
 	// +optional
 	// +kubebuilder:default=3600
@@ -89,6 +95,59 @@ type ModelLineSpec struct {
 	// promotions, no rollbacks. Status is still reported.
 	// +optional
 	Suspend bool `json:"suspend,omitempty"`
+}
+
+// LabelsSpec says when the labels behind quality series arrive.
+type LabelsSpec struct {
+	// delaySeconds is how long after a prediction its label is in; the
+	// default for every trigger and the guard. A window judges the
+	// predictions that have their labels: it ends delaySeconds ago.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=2592000
+	DelaySeconds *int32 `json:"delaySeconds,omitempty"`
+
+	// stampedAt says what a quality point's timestamp means.
+	// Prediction (the default): when the predictions it scores were made, so
+	// a point is final delaySeconds after its time, and the range query is
+	// moved back by the delay, as PromQL offset would.
+	// Scoring: when it was scored, from the labels that had come in (a
+	// gauge an evaluator exports as labels arrive); such a point scores the
+	// predictions of delaySeconds before it, so the range query ends now and
+	// only the period judged and the waits after a promotion move.
+	// +optional
+	// +kubebuilder:default=Prediction
+	StampedAt LabelStamp `json:"stampedAt,omitempty"`
+}
+
+// LabelStamp is what a quality point's timestamp means.
+// +kubebuilder:validation:Enum=Prediction;Scoring
+type LabelStamp string
+
+const (
+	// StampedAtPrediction: a point is stamped with the time of the
+	// predictions it scores.
+	StampedAtPrediction LabelStamp = "Prediction"
+	// StampedAtScoring: a point is stamped when it was scored.
+	StampedAtScoring LabelStamp = "Scoring"
+)
+
+// LabelCount is the least number of labelled predictions a window needs.
+type LabelCount struct {
+	// query is a PromQL expression for the number of labelled predictions
+	// in the window judged, asked as an instant query at the window's end
+	// (for example sum(increase(larkspur_labelled_predictions_total{line="{{.Line}}"}[30m]))).
+	// The same placeholders as the window's own query.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=4096
+	Query string `json:"query"`
+
+	// atLeast is the least number of labelled predictions a window is judged
+	// on; with fewer the result is Unknown, never Inactive or Firing.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	AtLeast float64 `json:"atLeast"`
 }
 
 // ServingSpec names where the live model is served.
@@ -205,6 +264,17 @@ type TriggerSpec struct {
 	// +kubebuilder:validation:Minimum=10
 	// +kubebuilder:validation:Maximum=86400
 	EverySeconds int32 `json:"everySeconds,omitempty"`
+
+	// labelDelaySeconds overrides spec.labels.delaySeconds for this trigger.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=2592000
+	LabelDelaySeconds *int32 `json:"labelDelaySeconds,omitempty"`
+
+	// enoughLabels: a window with fewer labelled predictions than this asks
+	// is Unknown, so "no labels yet" is never taken for "quality is fine".
+	// +optional
+	EnoughLabels *LabelCount `json:"enoughLabels,omitempty"`
 }
 
 // ChecksSpec are the checks run before every retrain, whatever starts it,
@@ -212,6 +282,7 @@ type TriggerSpec struct {
 // fresh data.
 //
 // +kubebuilder:validation:XValidation:rule="!has(self.freshData) || has(self.freshData.query) || has(self.jobTemplate)",message="freshData.query is required unless a jobTemplate check Job counts the rows: set freshData.query, or add jobTemplate"
+// +kubebuilder:validation:XValidation:rule="!has(self.earlyWarning) || (has(self.drift) && size(self.drift) > 0)",message="earlyWarning watches the drift checks: add at least one to checks.drift, or remove earlyWarning"
 type ChecksSpec struct {
 	// dataQuality checks: any breach blocks the retrain (fix the data first).
 	// +optional
@@ -240,6 +311,23 @@ type ChecksSpec struct {
 	// and the live version's (PLUMBLINE_REFERENCE_FROM, PLUMBLINE_REFERENCE_TO).
 	// +optional
 	JobTemplate *batchv1.JobTemplateSpec `json:"jobTemplate,omitempty"`
+
+	// earlyWarning runs the drift checks on their own interval, as the
+	// early sign of a drop whose labels are not in yet: drifting inputs
+	// raise the InputsDrifted condition and an event, naming the checks that
+	// drifted. They start nothing by themselves.
+	// +optional
+	EarlyWarning *EarlyWarningSpec `json:"earlyWarning,omitempty"`
+}
+
+// EarlyWarningSpec is how often the inputs are watched.
+type EarlyWarningSpec struct {
+	// everySeconds is how often the drift checks run for the early warning.
+	// +optional
+	// +kubebuilder:default=300
+	// +kubebuilder:validation:Minimum=10
+	// +kubebuilder:validation:Maximum=86400
+	EverySeconds int32 `json:"everySeconds,omitempty"`
 }
 
 // QueryCheck is a PromQL check, breached when its value is below or above a
@@ -515,6 +603,17 @@ type GuardSpec struct {
 	// +kubebuilder:validation:Minimum=1
 	// +kubebuilder:validation:Maximum=31536000
 	ProbationSeconds int32 `json:"probationSeconds"`
+
+	// labelDelaySeconds overrides spec.labels.delaySeconds for this guard.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=2592000
+	LabelDelaySeconds *int32 `json:"labelDelaySeconds,omitempty"`
+
+	// enoughLabels: a window with fewer labelled predictions than this asks
+	// is Unknown, so "no labels yet" is never taken for "quality is fine".
+	// +optional
+	EnoughLabels *LabelCount `json:"enoughLabels,omitempty"`
 }
 
 // TriggerState is what a trigger's last evaluation found.
@@ -726,6 +825,10 @@ const (
 	ConditionBlocked = "Blocked"
 	// ConditionNeedsReview: the controller cannot decide and a person should.
 	ConditionNeedsReview = "NeedsReview"
+	// ConditionInputsDrifted: the early warning (spec.checks.earlyWarning)
+	// finds the inputs moved while the quality of the latest predictions is
+	// not known yet; it names the drift checks that breached.
+	ConditionInputsDrifted = "InputsDrifted"
 )
 
 // ModelLine condition reasons.

@@ -215,16 +215,19 @@ func bestAlternative(line *v1alpha1.ModelLine, cs []v1alpha1.AlternativeResult) 
 
 // Degraded condition reasons.
 const (
-	reasonGuardHealthy      = "Healthy"
-	reasonGuardWatching     = "Watching"
-	reasonGuardUnknown      = "GuardUnknown"
-	reasonRegressed         = "Regressed"
-	reasonRegressedLate     = "RegressedAfterProbation"
-	reasonRollbackLimit     = "RollbackLimit"
-	reasonNoFallback        = "NoFallback"
-	reasonRollbackWaits     = "RollbackWaits"
-	reasonSwitchingFallback = "SwitchingToFallback"
-	reasonSwitchNeedsPerson = "SwitchNeedsPerson"
+	reasonGuardHealthy  = "Healthy"
+	reasonGuardWatching = "Watching"
+	// reasonGuardAwaitingLabels: the guard waits for the predictions of the
+	// version it guards to have their labels before it judges anything.
+	reasonGuardAwaitingLabels = "AwaitingOwnLabels"
+	reasonGuardUnknown        = "GuardUnknown"
+	reasonRegressed           = "Regressed"
+	reasonRegressedLate       = "RegressedAfterProbation"
+	reasonRollbackLimit       = "RollbackLimit"
+	reasonNoFallback          = "NoFallback"
+	reasonRollbackWaits       = "RollbackWaits"
+	reasonSwitchingFallback   = "SwitchingToFallback"
+	reasonSwitchNeedsPerson   = "SwitchNeedsPerson"
 )
 
 // guardVerdict is what a guard result calls for.
@@ -304,7 +307,7 @@ func decideGuard(line *v1alpha1.ModelLine, vw *view, res trigger.Result, now tim
 		}
 		return guardVerdict{degraded: metav1.ConditionFalse, reason: reason, message: res.Message}
 	}
-	probationEnd := live.Status.PromotedTime.Add(seconds(g.ProbationSeconds))
+	probationEnd := line.Spec.ProbationEnd(live.Status.PromotedTime.Time)
 	regressed := fmt.Sprintf("%s regressed in production: %s", live.Name, res.Message)
 	if !now.Before(probationEnd) {
 		return guardVerdict{degraded: metav1.ConditionTrue, reason: reasonRegressedLate,
@@ -366,6 +369,9 @@ func (r *Reconciler) guard(_ context.Context, p *pass) error {
 		return nil // not judged in this pass: the conditions stand
 	}
 	v := decideGuard(line, vw, *res, p.now.Time)
+	if p.guardReason != "" && v.reason == reasonGuardWatching {
+		v.reason = p.guardReason
+	}
 	p.judge(guardJudgements(line, vw.live(), v)...)
 	if v.target == nil {
 		return nil

@@ -121,6 +121,9 @@ type pass struct {
 	// guarded is the guard's result on the live version, when it was
 	// judged in this pass.
 	guarded *trigger.Result
+	// guardReason, when set, is the reason of a guard that waits
+	// (reasonGuardAwaitingLabels instead of reasonGuardWatching).
+	guardReason string
 	// stepped is the version the pass took a step.
 	stepped *v1alpha1.ModelVersion
 	// judgements are what the phases found for Degraded, Blocked and

@@ -24,8 +24,8 @@ type phase struct {
 // phases is a pass over a line that is ready (its spec valid, its serving
 // Deployment there), in order:
 //
-//   - what the line's signals say: the triggers, and the guard on the live
-//     version;
+//   - what the line's signals say: the triggers, the guard on the live
+//     version, and the inputs for an early warning;
 //   - production first: the versions' phases made to agree with the one
 //     that serves, a failed rollout undone, a regression answered (the
 //     guard's switch, an evaluation of alternatives followed, a person's
@@ -39,6 +39,7 @@ type phase struct {
 var phases = []phase{
 	{"judge the triggers", reports, (*Reconciler).evaluateTriggers},
 	{"judge the guard", reports, (*Reconciler).evaluateGuard},
+	{"watch the inputs", reports, (*Reconciler).watchInputs},
 	{"settle the versions", acts, settleVersions},
 	{"undo failed rollouts", acts, (*Reconciler).revertFailedRollouts},
 	{"answer the guard", acts, (*Reconciler).guard},

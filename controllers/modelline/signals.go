@@ -39,29 +39,26 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 	}
 	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Name}
 	now := p.now.Time
-	every := seconds(g.EverySeconds)
-	if every <= 0 {
-		every = time.Minute
-	}
+	w := r.window(line, g.ForSeconds, g.EverySeconds, g.LabelDelaySeconds)
 	name := guardKey + live.Name
-	due, next := r.evals.due(key, line.Generation, name, every, now, !r.Unspread)
+	due, next := r.evals.due(key, line.Generation, name, w.Every, now, !r.Unspread)
 	if !due {
 		p.wakeAt(next)
 		return nil
 	}
-	w := trigger.Window{For: seconds(g.ForSeconds), Every: every, Coverage: r.Coverage}
 	promoted := live.Status.PromotedTime.Time
+	data := speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name}
 	var res trigger.Result
-	if firstFull := promoted.Add(w.For); now.Before(firstFull) {
-		res = trigger.Result{State: v1alpha1.TriggerInactive, Value: math.NaN(),
-			Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", live.Name, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
+	if firstFull := w.Matured(promoted); now.Before(firstFull) {
+		res, p.guardReason = guardWaits(live.Name, g.Query, w, promoted, firstFull)
 		p.wakeAt(firstFull)
 	} else {
-		series, end, err := r.windowSeries(ctx, g.Query, speccheck.QueryData{Line: line.Name, Namespace: line.Namespace, Version: live.Name}, w, w.End(now))
+		series, end, err := r.windowSeries(ctx, g.Query, data, w, w.End(now))
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
 		} else {
 			res = trigger.Judge(series, threshold(g.Below, g.Above), w, end)
+			res = r.enoughLabels(ctx, g.EnoughLabels, data, w, end, res)
 		}
 		if !errors.Is(err, promq.ErrNotConfigured) {
 			p.wakeAt(next)
@@ -84,6 +81,25 @@ func (r *Reconciler) evaluateGuard(ctx context.Context, p *pass) error {
 	line.Status.Guard = &st
 	p.guarded = &res
 	return nil
+}
+
+// guardWaits is the guard's result before its first window that judges
+// only the predictions of the version it guards, promoted at promoted:
+// Inactive, with no value, saying until when. Under a label delay a guard
+// query that does not name {{.Version}} would judge the replaced version's
+// predictions, whose labels are the ones coming in: it says so.
+func guardWaits(version, query string, w trigger.Window, promoted, firstFull time.Time) (res trigger.Result, reason string) {
+	res = trigger.Result{State: v1alpha1.TriggerInactive, Value: math.NaN(),
+		Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", version, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
+	if w.Delay > 0 {
+		scope := "its own series ({{.Version}})"
+		if !speccheck.UsesVersion(query) {
+			scope = "a query that does not name the version: until then its window holds the predictions of the version before it, whose labels are the ones coming in"
+			reason = reasonGuardAwaitingLabels
+		}
+		res.Message = fmt.Sprintf("waiting for %s's own labelled predictions (label delay %s) since its promotion at %s; the guard judges %s from %s, when a whole %s window of them has its labels", version, w.Delay, promoted.UTC().Format(time.RFC3339), scope, firstFull.UTC().Format(time.RFC3339), w.For)
+	}
+	return res, reason
 }
 
 type (
@@ -181,6 +197,57 @@ func (e *evaluations) forget(key types.NamespacedName) {
 	delete(e.lines, key)
 }
 
+// window is a trigger's or the guard's window on a line: how long, how
+// often, and when its predictions' labels are in.
+func (r *Reconciler) window(line *v1alpha1.ModelLine, forSeconds, everySeconds int32, labelDelay *int32) trigger.Window {
+	every := seconds(everySeconds)
+	if every <= 0 {
+		every = time.Minute
+	}
+	return trigger.Window{For: seconds(forSeconds), Every: every, Coverage: r.Coverage,
+		Delay: line.Spec.LabelDelay(labelDelay), Scored: line.Spec.LabelsScored()}
+}
+
+// enoughLabels makes a judgement Unknown when the window held fewer
+// labelled predictions than need asks, or their number cannot be told: a
+// window without its labels says nothing about quality, good or bad. The
+// count is need's instant query at the window's end, summed over the series
+// it returns.
+func (r *Reconciler) enoughLabels(ctx context.Context, need *v1alpha1.LabelCount, d speccheck.QueryData, w trigger.Window, end time.Time, res trigger.Result) trigger.Result {
+	if need == nil || res.State == v1alpha1.TriggerUnknown {
+		return res
+	}
+	unknown := func(format string, args ...any) trigger.Result {
+		msg := fmt.Sprintf(format, args...)
+		if w.Delay > 0 {
+			msg = w.PeriodText(end) + ": " + msg
+		}
+		return trigger.Result{State: v1alpha1.TriggerUnknown, Value: res.Value, Series: res.Series, Message: msg}
+	}
+	q, err := speccheck.RenderQuery(need.Query, d)
+	var series []promq.Series
+	if err == nil {
+		series, err = r.Prometheus.Instant(ctx, q, end)
+	}
+	if err != nil {
+		return unknown("cannot count the window's labelled predictions (enoughLabels.query): %v", err)
+	}
+	n, any := 0.0, false
+	for _, s := range series {
+		if len(s.Points) > 0 && !math.IsNaN(s.Points[0].V) {
+			n += s.Points[0].V
+			any = true
+		}
+	}
+	if !any {
+		return unknown("enoughLabels.query returned no count of labelled predictions; not judged")
+	}
+	if n < need.AtLeast {
+		return unknown("only %s labelled predictions in the window, %s needed (enoughLabels.atLeast); not judged until more labels are in", promq.Format(n), promq.Format(need.AtLeast))
+	}
+	return res
+}
+
 func threshold(below, above *float64) trigger.Threshold {
 	return trigger.Threshold{Below: below, Above: above}
 }
@@ -199,11 +266,8 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 	var statuses []v1alpha1.TriggerStatus
 	for _, tr := range line.Spec.Triggers {
 		prev := findTrigger(line.Status.Triggers, tr.Name)
-		every := seconds(tr.EverySeconds)
-		if every <= 0 {
-			every = time.Minute
-		}
-		due, next := r.evals.due(key, line.Generation, tr.Name, every, now, !r.Unspread)
+		w := r.window(line, tr.ForSeconds, tr.EverySeconds, tr.LabelDelaySeconds)
+		due, next := r.evals.due(key, line.Generation, tr.Name, w.Every, now, !r.Unspread)
 		if !due {
 			p.wakeAt(next)
 			if prev != nil {
@@ -211,13 +275,14 @@ func (r *Reconciler) evaluateTriggers(ctx context.Context, p *pass) error {
 			}
 			continue
 		}
-		w := trigger.Window{For: seconds(tr.ForSeconds), Every: every, Coverage: r.Coverage}
-		series, end, err := r.windowSeries(ctx, tr.Query, queryData(line), w, w.End(now))
+		data := queryData(line)
+		series, end, err := r.windowSeries(ctx, tr.Query, data, w, w.End(now))
 		var res trigger.Result
 		if err != nil {
 			res = trigger.Unknown(fmt.Errorf("query failed: %w", err))
 		} else {
 			res = trigger.Judge(series, threshold(tr.Below, tr.Above), w, end)
+			res = r.enoughLabels(ctx, tr.EnoughLabels, data, w, end, res)
 		}
 		p.evaluated = append(p.evaluated, tr.Name)
 		if !errors.Is(err, promq.ErrNotConfigured) {

@@ -352,7 +352,10 @@ func (r *Reconciler) handleTriggers(ctx context.Context, p *pass) error {
 	}
 	fs := make([]policy.Firing, 0, len(firing))
 	for _, tr := range firing {
-		fs = append(fs, policy.Firing{Name: tr.Name, Window: seconds(tr.ForSeconds)})
+		// The live version has served a whole window once its last
+		// predictions have their labels too.
+		w := r.window(line, tr.ForSeconds, tr.EverySeconds, tr.LabelDelaySeconds)
+		fs = append(fs, policy.Firing{Name: tr.Name, Window: w.For + w.Delay})
 	}
 	var liveSince *time.Time
 	if t := line.Status.LastPromotionTime; t != nil {

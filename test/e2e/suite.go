@@ -483,7 +483,7 @@ func (s *suite) probationEnds(version string) error {
 	if l.Spec.Guard == nil || l.Status.LastPromotionTime == nil {
 		return nil
 	}
-	end := l.Status.LastPromotionTime.Add(time.Duration(l.Spec.Guard.ProbationSeconds)*time.Second + time.Second)
+	end := l.Spec.ProbationEnd(l.Status.LastPromotionTime.Time).Add(time.Second)
 	s.say("waiting for %s's probation (%ds) to end", l.Status.LiveVersion, l.Spec.Guard.ProbationSeconds)
 	return s.poll("the probation to end", func() (bool, error) { return time.Now().After(end), nil })
 }

@@ -71,6 +71,9 @@ func Line(spec *v1alpha1.ModelLineSpec) []Problem {
 	}
 	for i, tr := range spec.Triggers {
 		ps = append(ps, promQL(fmt.Sprintf("spec.triggers[%d].query", i), tr.Query)...)
+		if e := tr.EnoughLabels; e != nil {
+			ps = append(ps, promQL(fmt.Sprintf("spec.triggers[%d].enoughLabels.query", i), e.Query)...)
+		}
 	}
 	if c := spec.Checks; c != nil {
 		for i, q := range c.DataQuality {
@@ -92,6 +95,9 @@ func Line(spec *v1alpha1.ModelLineSpec) []Problem {
 	}
 	if g := spec.Guard; g != nil {
 		ps = append(ps, promQL("spec.guard.query", g.Query)...)
+		if e := g.EnoughLabels; e != nil {
+			ps = append(ps, promQL("spec.guard.enoughLabels.query", e.Query)...)
+		}
 	}
 	return ps
 }
@@ -191,6 +197,18 @@ func RenderQuery(query string, d QueryData) (string, error) {
 		return "", fmt.Errorf("the query template does not render (%s): %w", queryFields, err)
 	}
 	return out.String(), nil
+}
+
+// UsesVersion says a query's text depends on {{.Version}}: it renders
+// differently for two versions of the same line. A query that does not
+// render says no.
+func UsesVersion(query string) bool {
+	if !IsTemplate(query) {
+		return false
+	}
+	a, errA := RenderQuery(query, QueryData{Line: "l", Namespace: "n", Version: "version-a"})
+	b, errB := RenderQuery(query, QueryData{Line: "l", Namespace: "n", Version: "version-b"})
+	return errA == nil && errB == nil && a != b
 }
 
 // promQL checks that a query (a template rendered with example values)

@@ -81,6 +81,12 @@ func TestLineProblems(t *testing.T) {
 		{"drift PromQL", func(s *v1alpha1.ModelLineSpec) { s.Checks.Drift[0].Query = "max(" }, "spec.checks.drift[0].query", "PromQL does not parse"},
 		{"fresh data PromQL", func(s *v1alpha1.ModelLineSpec) { s.Checks.FreshData.Query = "rows{" }, "spec.checks.freshData.query", "PromQL does not parse"},
 		{"guard PromQL", func(s *v1alpha1.ModelLineSpec) { s.Guard.Query = "1 +" }, "spec.guard.query", "PromQL does not parse"},
+		{"trigger label count PromQL", func(s *v1alpha1.ModelLineSpec) {
+			s.Triggers[0].EnoughLabels = &v1alpha1.LabelCount{Query: "sum(labelled{", AtLeast: 100}
+		}, "spec.triggers[0].enoughLabels.query", "PromQL does not parse"},
+		{"guard label count template", func(s *v1alpha1.ModelLineSpec) {
+			s.Guard.EnoughLabels = &v1alpha1.LabelCount{Query: `sum(labelled{version="{{.Model}}"})`, AtLeast: 100}
+		}, "spec.guard.enoughLabels.query", "does not render"},
 		{"trigger template syntax", func(s *v1alpha1.ModelLineSpec) { s.Triggers[0].Query = `auc{line="{{.Line}"}` }, "spec.triggers[0].query", "the query template does not parse"},
 		{"trigger template field", func(s *v1alpha1.ModelLineSpec) { s.Triggers[0].Query = `auc{model="{{.Model}}"}` }, "spec.triggers[0].query", "does not render (it may use {{.Line}}, {{.Namespace}} and {{.Version}})"},
 		{"check template to bad PromQL", func(s *v1alpha1.ModelLineSpec) { s.Checks.Drift[0].Query = `psi{line={{.Line}}}` }, "spec.checks.drift[0].query", "the template renders to PromQL that does not parse"},
@@ -185,5 +191,21 @@ func TestRenderQuery(t *testing.T) {
 	spec.Guard.Query = `avg(auc{namespace="{{.Namespace}}", version="{{.Version}}"})`
 	if ps := Line(&spec); len(ps) != 0 {
 		t.Errorf("templated queries: %v", ps)
+	}
+}
+
+func TestUsesVersion(t *testing.T) {
+	cases := map[string]bool{
+		`late_share{line="{{.Line}}", version="{{.Version}}"}`:     true,
+		`late_share{model_version=~"{{ .Version }}.*"}`:            true,
+		`late_share{line="{{.Line}}", namespace="{{.Namespace}}"}`: false,
+		`late_share{version="late-risk-v2"}`:                       false, // a literal: not the version on probation
+		`late_share{version="{{.Verison}}"}`:                       false, // does not render
+		`{{if false}}{{.Version}}{{end}}late_share`:                false, // never rendered
+	}
+	for q, want := range cases {
+		if got := UsesVersion(q); got != want {
+			t.Errorf("UsesVersion(%q) = %v, want %v", q, got, want)
+		}
 	}
 }

@@ -61,6 +61,14 @@ type Window struct {
 	// Coverage is the share of the window's points that must be present;
 	// zero means DefaultCoverage.
 	Coverage float64
+	// Delay is how long after a prediction its label is in: the window
+	// judges only predictions that have their labels.
+	Delay time.Duration
+	// Scored says the series' points are stamped when they were scored from
+	// the labels that had come in, so a point scores the predictions of
+	// Delay before it; otherwise a point is stamped with the time of the
+	// predictions it scores and is final Delay after it.
+	Scored bool
 }
 
 // Step is the sampling interval: the evaluation period, but at least ten
@@ -80,7 +88,43 @@ func (w Window) Step() time.Duration {
 // (whole multiples of the step since the zero time). Every line judged within
 // one step judges the same window, which lets lines on one query template
 // share its answer; a point is at most one step old when it is judged.
-func (w Window) End(now time.Time) time.Time { return now.Truncate(w.Step()) }
+//
+// With a label delay on points stamped at prediction time the window ends
+// Delay before now (as PromQL offset would): only final points count.
+func (w Window) End(now time.Time) time.Time {
+	if !w.Scored {
+		now = now.Add(-w.Delay)
+	}
+	return now.Truncate(w.Step())
+}
+
+// Period is the time of the predictions a window ending at end judges.
+func (w Window) Period(end time.Time) (from, to time.Time) {
+	if w.Scored {
+		end = end.Add(-w.Delay)
+	}
+	return end.Add(-w.For), end
+}
+
+// Matured is the first time a window can judge only predictions made at or
+// after t (a promotion, a rollback): a whole window after it, and the
+// labels of its last predictions in.
+func (w Window) Matured(t time.Time) time.Time { return t.Add(w.For + w.Delay) }
+
+// PeriodText says which predictions a window ending at end judges, for
+// messages: "predictions of 2026-12-03 03:00 to 09:00 UTC".
+func (w Window) PeriodText(end time.Time) string {
+	from, to := w.Period(end)
+	from, to = from.UTC(), to.UTC()
+	clock := "15:04"
+	if from.Second() != 0 || to.Second() != 0 {
+		clock = "15:04:05"
+	}
+	if from.Format(time.DateOnly) == to.Format(time.DateOnly) {
+		return fmt.Sprintf("predictions of %s %s to %s UTC", from.Format(time.DateOnly), from.Format(clock), to.Format(clock))
+	}
+	return fmt.Sprintf("predictions of %s to %s UTC", from.Format(time.DateOnly+" "+clock), to.Format(time.DateOnly+" "+clock))
+}
 
 // Expected is the number of points in a full window.
 func (w Window) Expected() int { return int(w.For/w.Step()) + 1 }
@@ -113,8 +157,18 @@ func Unknown(err error) Result {
 	return Result{State: v1alpha1.TriggerUnknown, Value: math.NaN(), Message: err.Error()}
 }
 
-// Judge decides a state from a range query's result at now.
+// Judge decides a state from a range query's result at now (the window's
+// end). With a label delay the message begins with the predictions the
+// window judged.
 func Judge(series []promq.Series, th Threshold, w Window, now time.Time) Result {
+	r := judge(series, th, w, now)
+	if w.Delay > 0 {
+		r.Message = w.PeriodText(now) + ": " + r.Message
+	}
+	return r
+}
+
+func judge(series []promq.Series, th Threshold, w Window, now time.Time) Result {
 	if len(series) == 0 {
 		return Result{State: v1alpha1.TriggerUnknown, Value: math.NaN(), Message: "the query returned no series"}
 	}

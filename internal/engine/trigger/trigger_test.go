@@ -126,3 +126,61 @@ func TestThreshold(t *testing.T) {
 		t.Error("infinities must breach")
 	}
 }
+
+// A label delay moves the window of points stamped at prediction time back
+// by the delay (as PromQL offset would); points stamped when scored keep
+// their window and only the predictions it judges move. Either way the
+// window after a promotion is judged once the promoted version's last
+// predictions in it have their labels.
+func TestWindowLabelDelay(t *testing.T) {
+	at := time.Date(2026, 11, 2, 9, 30, 40, 0, time.UTC)
+	promoted := time.Date(2026, 11, 2, 6, 0, 0, 0, time.UTC)
+	hour := time.Hour
+	cases := []struct {
+		name          string
+		w             Window
+		end, from, to string
+		matured, text string
+	}{
+		{"no delay", Window{For: hour, Every: time.Minute}, "09:30", "08:30", "09:30", "07:00", ""},
+		{"stamped at prediction", Window{For: hour, Every: time.Minute, Delay: 2 * hour}, "07:30", "06:30", "07:30", "09:00",
+			"predictions of 2026-11-02 06:30 to 07:30 UTC"},
+		{"stamped when scored", Window{For: hour, Every: time.Minute, Delay: 2 * hour, Scored: true}, "09:30", "06:30", "07:30", "09:00",
+			"predictions of 2026-11-02 06:30 to 07:30 UTC"},
+		{"across midnight", Window{For: 6 * hour, Every: 5 * time.Minute, Delay: 8 * hour}, "01:30", "19:30", "01:30", "20:00",
+			"predictions of 2026-11-01 19:30 to 2026-11-02 01:30 UTC"},
+		{"seconds", Window{For: 50 * time.Second, Every: 10 * time.Second, Delay: 30 * time.Second}, "09:30:10", "09:29:20", "09:30:10", "06:01:20",
+			"predictions of 2026-11-02 09:29:20 to 09:30:10 UTC"},
+	}
+	clock := func(t time.Time) string {
+		if t.Second() != 0 {
+			return t.Format("15:04:05")
+		}
+		return t.Format("15:04")
+	}
+	for _, c := range cases {
+		end := c.w.End(at)
+		from, to := c.w.Period(end)
+		if clock(end) != c.end || clock(from) != c.from || clock(to) != c.to || clock(c.w.Matured(promoted)) != c.matured {
+			t.Errorf("%s: end %s, predictions %s to %s, matured %s; want %s, %s to %s, %s", c.name,
+				clock(end), clock(from), clock(to), clock(c.w.Matured(promoted)), c.end, c.from, c.to, c.matured)
+		}
+		if c.text != "" && c.w.PeriodText(end) != c.text {
+			t.Errorf("%s: %q, want %q", c.name, c.w.PeriodText(end), c.text)
+		}
+	}
+}
+
+// With a label delay every message says which predictions were judged.
+func TestJudgeSaysThePeriod(t *testing.T) {
+	w := tenMinutes
+	w.Delay = 2 * time.Hour
+	r := Judge([]promq.Series{series("", 0.8, 0.8, 0.8, 0.8, 0.8, 0.8, 0.8, 0.8, 0.8, 0.8, 0.8)}, Threshold{Below: b(0.78)}, w, now)
+	if want := "predictions of 2026-11-02 09:20 to 09:30 UTC: latest value 0.8 is not below 0.78"; r.Message != want {
+		t.Errorf("message %q, want %q", r.Message, want)
+	}
+	r = Judge([]promq.Series{series("", 0.8, 0.8)}, Threshold{Below: b(0.78)}, tenMinutes, now)
+	if strings.Contains(r.Message, "predictions of") {
+		t.Errorf("without a delay the message names no period: %q", r.Message)
+	}
+}

@@ -125,7 +125,9 @@ func explain(w io.Writer, l *v1alpha1.ModelLine, vs []v1alpha1.ModelVersion, now
 		}
 		say("Trigger %s is %s%s (value %s): %s", spec.Name, ts.State, since, dash(ts.Value), oneLine(ts.Message))
 		if ts.State == v1alpha1.TriggerFiring {
-			firing = append(firing, policy.Firing{Name: spec.Name, Window: time.Duration(spec.ForSeconds) * time.Second})
+			// As the controller: a whole window of the live version's
+			// predictions, with their labels in.
+			firing = append(firing, policy.Firing{Name: spec.Name, Window: time.Duration(spec.ForSeconds)*time.Second + l.Spec.LabelDelay(spec.LabelDelaySeconds)})
 		}
 	}
 
@@ -148,7 +150,7 @@ func explain(w io.Writer, l *v1alpha1.ModelLine, vs []v1alpha1.ModelVersion, now
 			say("Trigger %s asks for a retrain, but the line cools down: the last retrain started at %s, and a trigger may start the next one %s later, at %s.",
 				step.Trigger, lastRetrain.UTC().Format(time.RFC3339), cooldown, when(lastRetrain.Add(cooldown)))
 		case policy.LiveTooRecent:
-			say("Trigger %s asks for a retrain, but the live version went live at %s: its window must lie wholly after that, at %s, so it judges the live version and not the one before.",
+			say("Trigger %s asks for a retrain, but the live version went live at %s: its window must lie wholly after that, with the labels of its predictions in, at %s, so it judges the live version and not the one before.",
 				step.Trigger, liveSince.UTC().Format(time.RFC3339), when(step.Wake))
 		default:
 			say("Trigger %s asks for a retrain and nothing in the sequence holds it back: the checks run next.", step.Trigger)
@@ -172,7 +174,7 @@ func explain(w io.Writer, l *v1alpha1.ModelLine, vs []v1alpha1.ModelVersion, now
 		say("%s is %s: %s", a.Name, dash(string(a.Status.Phase)), oneLine(a.Status.Message))
 	}
 	if live := version(st.LiveVersion); live != nil && l.Spec.Guard != nil && live.Status.PromotedTime != nil {
-		end := live.Status.PromotedTime.Add(time.Duration(l.Spec.Guard.ProbationSeconds) * time.Second)
+		end := l.Spec.ProbationEnd(live.Status.PromotedTime.Time)
 		if now.Before(end) {
 			waits = true
 			say("The guard may roll %s back until its probation ends at %s.", live.Name, when(end))

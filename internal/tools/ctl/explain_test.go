@@ -67,7 +67,13 @@ func TestExplain(t *testing.T) {
 		{"a live version too recent to judge", func(l *v1alpha1.ModelLine, _ *[]v1alpha1.ModelVersion) {
 			l.Spec.CooldownSeconds = ptr.To[int32](0)
 			l.Status.LastPromotionTime = &metav1.Time{Time: time.Date(2026, 11, 2, 8, 30, 0, 0, time.UTC)}
-		}, []string{"but the live version went live at 2026-11-02T08:30:00Z: its window must lie wholly after that, at 2026-11-02T09:30:00Z (in 30m)"}},
+		}, []string{"but the live version went live at 2026-11-02T08:30:00Z: its window must lie wholly after that, with the labels of its predictions in, at 2026-11-02T09:30:00Z (in 30m)"}},
+		{"a live version whose labels are not in yet", func(l *v1alpha1.ModelLine, _ *[]v1alpha1.ModelVersion) {
+			l.Spec.CooldownSeconds = ptr.To[int32](0)
+			l.Spec.Labels = &v1alpha1.LabelsSpec{DelaySeconds: ptr.To[int32](7200)}
+			l.Status.LastPromotionTime = &metav1.Time{Time: time.Date(2026, 11, 2, 7, 0, 0, 0, time.UTC)}
+		}, []string{"but the live version went live at 2026-11-02T07:00:00Z: its window must lie wholly after that, with the labels of its predictions in, at 2026-11-02T10:00:00Z (in 60m)",
+			"The guard may roll late-risk-v3 back until its probation ends at 2026-11-02T12:00:00Z (in 3h)"}}, // promoted at 08:00: two hours of labels, then two of probation
 		{"nothing fires, nothing holds", func(l *v1alpha1.ModelLine, _ *[]v1alpha1.ModelVersion) {
 			l.Status.Triggers[0].State = v1alpha1.TriggerInactive
 		}, []string{"Nothing: no trigger fires, and no check refused a start."}},

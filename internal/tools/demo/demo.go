@@ -461,7 +461,7 @@ func (d *player) probationEnds(key types.NamespacedName) error {
 	if line.Spec.Guard == nil || line.Status.LastPromotionTime == nil {
 		return nil
 	}
-	end := line.Status.LastPromotionTime.Add(time.Duration(line.Spec.Guard.ProbationSeconds) * time.Second)
+	end := line.Spec.ProbationEnd(line.Status.LastPromotionTime.Time)
 	d.say(fmt.Sprintf("waiting for %s's probation (spec.guard.probationSeconds: %ds) to end at %s",
 		line.Status.LiveVersion, line.Spec.Guard.ProbationSeconds, end.Format("15:04:05")))
 	return d.wait("the probation to end", func() (bool, error) { return time.Now().After(end.Add(time.Second)), nil })
