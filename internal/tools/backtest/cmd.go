@@ -58,7 +58,7 @@ type historyFlags struct {
 }
 
 func (f *historyFlags) register(fs *flag.FlagSet) {
-	fs.StringVar(&f.path, "history", "", "quality history: CSV with columns time (RFC 3339 or Unix seconds) and value, optionally labelled_rows (a cumulative count) and retrained (1 where a retrain took effect)")
+	fs.StringVar(&f.path, "history", "", "quality history: CSV with columns time (RFC 3339 or Unix seconds) and value, optionally labelled_rows (a cumulative count), retrained (1 where a retrain took effect) and labelled_at (when its labels came in)")
 	fs.StringVar(&f.url, "prometheus-url", "", "read the history from this Prometheus instead, with --query, --from, --to, --step")
 	fs.StringVar(&f.query, "query", "", "PromQL range query for the history (one series)")
 	fs.StringVar(&f.from, "from", "", "start of the history (RFC 3339)")
@@ -129,7 +129,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	fs.StringVar(&lineTriggers, "line-triggers", "", "the line's triggers that watch the history's metric, comma-separated (needed when it has several)")
 	fs.StringVar(&policies, "policies", "", "a YAML file of policies to compare (policies: [{name, schedule, triggers, cusum, cooldownSeconds, freshDataAtLeast}])")
 	fs.Var(&schedules, "schedule", "a cron schedule to compare, such as \"30 2 * * 1\" (repeatable)")
-	fs.Var(&triggers, "trigger", "a trigger to compare, such as below=0.80,for=6h,every=5m (repeatable)")
+	fs.Var(&triggers, "trigger", "a trigger to compare, such as below=0.80,for=6h,every=5m (optionally delay=2h, its label delay; repeatable)")
 	fs.Var(&cusums, "cusum", "a CUSUM detector to compare, such as k=0.005,h=0.05 (repeatable; target defaults to the after-retrain level)")
 	fs.Float64Var(&target, "target", 0, "the quality to keep (default: the threshold of the line's first trigger)")
 	fs.Var(&lowerIsBetter, "better", "which way is better for the metric: higher (a score; the default) or lower (an error: above target is bad)")
@@ -137,6 +137,7 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	fs.Float64Var(&afterRetrain, "after-retrain", 0, "quality a retrained model starts at (default: the level the history held after its own retrains, or in its first day)")
 	fs.Float64Var(&o.Coverage, "coverage", o.Coverage, "share of a trigger window's points that must be there (the manager's --trigger-coverage)")
 	fs.DurationVar(&o.MinEpisode, "min-episode", o.MinEpisode, "shortest stretch below target that counts as a drop to act on")
+	fs.DurationVar(&o.LabelDelay, "label-delay", 0, "how long after a point its labels come in, when the history has no labelled_at column; triggers without a delay of their own judge with it, and the report says what the delay costs")
 	fs.Float64Var(&costRetrain, "cost-retrain", 0, "cost of one retrain (with --cost-hour-below: recommend the cheapest policy)")
 	fs.Float64Var(&costHour, "cost-hour-below", 0, "cost of an hour below target")
 	fs.Float64Var(&o.MaxPerMonth, "max-per-month", o.MaxPerMonth, "most retrains a month a recommended policy may start (without costs)")
@@ -165,6 +166,8 @@ func Command(ctx context.Context, args []string, stdout, stderr io.Writer) error
 		return usage("--max-per-month %v: want more than 0", o.MaxPerMonth)
 	case o.MinEpisode < 0:
 		return usage("--min-episode %s: want 0 or more", o.MinEpisode)
+	case o.LabelDelay < 0:
+		return usage("--label-delay %s: want 0 or more (0: labels at once)", o.LabelDelay)
 	}
 	var ps []Policy
 	if line != "" {

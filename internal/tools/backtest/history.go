@@ -31,6 +31,10 @@ type History struct {
 	Labelled []float64
 	// Retrained marks the points where a retrain took effect in reality.
 	Retrained []bool
+	// LabelledAt is, when the history has it, when each point's labels were
+	// in: a point is stamped with the time of the predictions it scores and
+	// no trigger sees it before then.
+	LabelledAt []time.Time
 }
 
 // InputError is a history that cannot be used; it names the file, the line
@@ -58,8 +62,9 @@ func parseTime(s string) (time.Time, error) {
 }
 
 // LoadCSV reads a history: columns time and value, optionally
-// labelled_rows (a cumulative count) and retrained (1 where a retrain took
-// effect). Rows must come in time order.
+// labelled_rows (a cumulative count), retrained (1 where a retrain took
+// effect) and labelled_at (when the point's labels were in). Rows must come
+// in time order.
 func LoadCSV(path string) (*History, error) {
 	r, err := table.Open(path, table.CSV)
 	if err != nil {
@@ -73,10 +78,11 @@ func LoadCSV(path string) (*History, error) {
 	ti, okT := at["time"]
 	vi, okV := at["value"]
 	if !okT || !okV {
-		return nil, inputErr("--history %s: want columns time and value (and optionally labelled_rows, retrained); the columns are %s", path, strings.Join(r.Columns(), ", "))
+		return nil, inputErr("--history %s: want columns time and value (and optionally labelled_rows, retrained, labelled_at); the columns are %s", path, strings.Join(r.Columns(), ", "))
 	}
 	li, hasL := at["labelled_rows"]
 	ri, hasR := at["retrained"]
+	ai, hasA := at["labelled_at"]
 	h := &History{Source: path}
 	for {
 		cells, err := r.Next()
@@ -108,6 +114,16 @@ func LoadCSV(path string) (*History, error) {
 		if hasR {
 			s := strings.ToLower(strings.TrimSpace(cells[ri].S))
 			h.Retrained = append(h.Retrained, s == "1" || s == "true" || s == "yes")
+		}
+		if hasA {
+			la, err := parseTime(cells[ai].S)
+			if err != nil {
+				return nil, inputErr("%s: column labelled_at: %v", r.Where(), err)
+			}
+			if la.Before(t) {
+				return nil, inputErr("%s: labelled_at %s is before the point's time %s: a label cannot come in before its prediction", r.Where(), la.Format(time.RFC3339), t.Format(time.RFC3339))
+			}
+			h.LabelledAt = append(h.LabelledAt, la)
 		}
 	}
 	return h, h.check()

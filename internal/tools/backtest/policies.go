@@ -81,6 +81,13 @@ func FromLine(path string, keep []string) (Policy, error) {
 			return Policy{}, inputErr("--line-triggers: the line has no trigger %q; its triggers are %s", k, strings.Join(names, ", "))
 		}
 	}
+	// The line's label delay is each trigger's unless it has its own.
+	for i := range p.Triggers {
+		if p.Triggers[i].LabelDelaySeconds == nil && line.Spec.Labels != nil && line.Spec.Labels.DelaySeconds != nil {
+			d := *line.Spec.Labels.DelaySeconds
+			p.Triggers[i].LabelDelaySeconds = &d
+		}
+	}
 	if c := line.Spec.Checks; c != nil && c.FreshData != nil {
 		at := c.FreshData.AtLeast
 		p.FreshDataAtLeast = &at
@@ -110,6 +117,8 @@ func Validate(p Policy, at string) error {
 			return fmt.Errorf("%s.everySeconds: want a period above 0", f)
 		case t.ForSeconds < t.EverySeconds:
 			return fmt.Errorf("%s.forSeconds: %d is shorter than everySeconds %d", f, t.ForSeconds, t.EverySeconds)
+		case t.LabelDelaySeconds != nil && *t.LabelDelaySeconds < 0:
+			return fmt.Errorf("%s.labelDelaySeconds: %d; want 0 or more", f, *t.LabelDelaySeconds)
 		}
 	}
 	if c := p.CUSUM; c != nil && (c.K < 0 || c.H <= 0) {
@@ -122,7 +131,7 @@ func Validate(p Policy, at string) error {
 }
 
 // ParseTrigger reads a trigger from a flag: below=0.8,for=6h,every=5m
-// (or above=...; name=... optional).
+// (or above=...; name=... and delay=2h, its label delay, optional).
 func ParseTrigger(s string) (Policy, error) {
 	t := v1alpha1.TriggerSpec{Name: "trigger", EverySeconds: 300}
 	for _, part := range strings.Split(s, ",") {
@@ -151,10 +160,17 @@ func ParseTrigger(s string) (Policy, error) {
 			} else {
 				t.EverySeconds = int32(d.Seconds())
 			}
+		case "delay":
+			d, err := time.ParseDuration(v)
+			if err != nil || d < 0 {
+				return Policy{}, fmt.Errorf("delay=%q: want the label delay as a duration such as 2h (0 for labels at once)", v)
+			}
+			secs := int32(d.Seconds())
+			t.LabelDelaySeconds = &secs
 		case "name":
 			t.Name = v
 		default:
-			return Policy{}, fmt.Errorf("%q: unknown key %q; want below, above, for, every or name", part, k)
+			return Policy{}, fmt.Errorf("%q: unknown key %q; want below, above, for, every, delay or name", part, k)
 		}
 	}
 	p := Policy{Name: "trigger " + s, Triggers: []v1alpha1.TriggerSpec{t}}

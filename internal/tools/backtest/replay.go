@@ -61,6 +61,22 @@ type Options struct {
 	CostRetrain, CostHourBelow float64
 	// MaxPerMonth is the most retrains a month the recommendation accepts.
 	MaxPerMonth float64
+	// LabelDelay is how long after a point its labels come in, when the
+	// history does not say (labelled_at); a trigger without a label delay of
+	// its own judges with this one.
+	LabelDelay time.Duration
+}
+
+// lateLabels says whether labels come in late in this replay.
+func (o Options) lateLabels(h *History) bool { return h.LabelledAt != nil || o.LabelDelay > 0 }
+
+// labelDelay is a trigger's label delay in a replay: its own
+// labelDelaySeconds, else the replay's.
+func (o Options) labelDelay(t v1alpha1.TriggerSpec) time.Duration {
+	if t.LabelDelaySeconds != nil {
+		return time.Duration(*t.LabelDelaySeconds) * time.Second
+	}
+	return o.LabelDelay
 }
 
 // DefaultOptions are the replay's defaults.
@@ -102,6 +118,20 @@ type Result struct {
 	ComparisonOnly bool `json:"comparisonOnly,omitempty"`
 	// Simulated is the quality series under the policy.
 	Simulated []promq.Point `json:"-"`
+	// LabelDelayCost, when labels come in late, is what that costs this
+	// policy against the same replay with every label in at once.
+	LabelDelayCost *DelayCost `json:"labelDelayCost,omitempty"`
+}
+
+// DelayCost is what late labels cost a policy.
+type DelayCost struct {
+	// MedianDelaySeconds is how much later drops are acted on (the median
+	// delay's growth); nil when either replay acted on none.
+	MedianDelaySeconds *float64 `json:"medianDelaySeconds,omitempty"`
+	// BelowTargetSeconds is the added time below target.
+	BelowTargetSeconds float64 `json:"belowTargetSeconds"`
+	// Retrains is the change in the number of retrains.
+	Retrains int `json:"retrains"`
 }
 
 // HeldLevel is the level a retrained model starts at when none is given:
@@ -222,9 +252,9 @@ func (r *replayer) run() error {
 	// Prometheus's own lookback, or the history's step when longer.
 	lookback := max(trigger.Lookback, r.h.Step())
 	nextPoint := 0
-	var longest time.Duration // the longest trigger window
+	var longest time.Duration // the longest trigger window, with its label delay
 	for _, t := range r.p.Triggers {
-		longest = max(longest, time.Duration(t.ForSeconds)*time.Second)
+		longest = max(longest, time.Duration(t.ForSeconds)*time.Second+r.o.labelDelay(t))
 	}
 	// The replay's clock visits its grid (the triggers' periods) and, as
 	// the controller is woken at each, every scheduled start.
@@ -266,15 +296,19 @@ func (r *replayer) run() error {
 		// Each trigger on its period from its first full window.
 		var firing []policy.Firing
 		for _, t := range r.p.Triggers {
-			w := trigger.Window{For: time.Duration(t.ForSeconds) * time.Second, Every: time.Duration(t.EverySeconds) * time.Second, Coverage: r.o.Coverage}
+			w := trigger.Window{For: time.Duration(t.ForSeconds) * time.Second, Every: time.Duration(t.EverySeconds) * time.Second, Coverage: r.o.Coverage,
+				Delay: r.o.labelDelay(t)}
 			first := start.Add(w.For)
 			if now.Before(first) || now.Sub(first)%w.Every != 0 {
 				continue
 			}
-			pts := trigger.RangeQueryLookback(r.sim, now.Add(-w.For), now, w.Step(), lookback)
-			res := trigger.Judge([]promq.Series{{Points: pts}}, trigger.Threshold{Below: t.Below, Above: t.Above}, w, now)
+			// The window ends a label delay ago, as the controller's does;
+			// it holds the points whose labels are in by now.
+			end := now.Add(-w.Delay)
+			pts := trigger.RangeQueryLookback(r.labelledBy(now, end.Add(-w.For-lookback), end), end.Add(-w.For), end, w.Step(), lookback)
+			res := trigger.Judge([]promq.Series{{Points: pts}}, trigger.Threshold{Below: t.Below, Above: t.Above}, w, end)
 			if res.State == v1alpha1.TriggerFiring {
-				firing = append(firing, policy.Firing{Name: t.Name, Window: w.For})
+				firing = append(firing, policy.Firing{Name: t.Name, Window: w.For + w.Delay})
 			}
 		}
 		if st, ok := policy.StepTriggers(firing, r.inFlight != nil, r.last, cooldown, r.liveSince, now); ok {
@@ -316,6 +350,27 @@ func (r *replayer) run() error {
 		r.takeEffect(r.inFlight.Effect)
 	}
 	return nil
+}
+
+// labelledBy is the simulated series from from to to, without the points
+// whose labels are not in at now. With labels at once it is the series.
+func (r *replayer) labelledBy(now, from, to time.Time) []promq.Point {
+	if !r.o.lateLabels(r.h) {
+		return r.sim
+	}
+	i := sort.Search(len(r.sim), func(i int) bool { return !r.sim[i].T.Before(from) })
+	j := sort.Search(len(r.sim), func(j int) bool { return r.sim[j].T.After(to) })
+	out := make([]promq.Point, 0, j-i)
+	for k := i; k < j; k++ {
+		in := r.sim[k].T.Add(r.o.LabelDelay)
+		if r.h.LabelledAt != nil {
+			in = r.h.LabelledAt[k]
+		}
+		if !in.After(now) {
+			out = append(out, r.sim[k])
+		}
+	}
+	return out
 }
 
 // startIfMay counts a trigger step that may not start, or goes on to the

@@ -7,6 +7,8 @@ import (
 	"sort"
 	"text/tabwriter"
 	"time"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
 )
 
 // ReportSchema identifies version 1 of the backtest report.
@@ -79,6 +81,14 @@ func Backtest(h *History, policies []Policy, o Options) (*Report, error) {
 		if err != nil {
 			return nil, err
 		}
+		if late(h, p, o) {
+			h0, p0, o0 := labelsAtOnce(h, p, o)
+			base, err := Replay(h0, p0, o0, level)
+			if err != nil {
+				return nil, err
+			}
+			res.LabelDelayCost = delayCost(res, base)
+		}
 		r.Policies = append(r.Policies, p)
 		r.Results = append(r.Results, res)
 	}
@@ -86,6 +96,12 @@ func Backtest(h *History, policies []Policy, o Options) (*Report, error) {
 		fmt.Sprintf("a retrain serves %s after it starts, at %.4g (%s); after that the series moves as the history moved", o.RetrainTakes, level, why),
 		fmt.Sprintf("each trigger judges the history as if it were the trigger's query, each point held until the next (at most %s)", max(5*time.Minute, h.Step())),
 		"data-quality and drift checks are not replayed (the history holds no such data): every start is taken to pass them; the gate is taken to pass every candidate")
+	switch {
+	case h.LabelledAt != nil:
+		r.Notes = append(r.Notes, "each point is stamped with the time of the predictions it scores and seen by triggers only once its labels are in (the history's labelled_at); a trigger's window ends its label delay ago")
+	case o.LabelDelay > 0:
+		r.Notes = append(r.Notes, fmt.Sprintf("each point is stamped with the time of the predictions it scores and its labels come in %s later (--label-delay); a trigger's window ends its label delay ago", o.LabelDelay))
+	}
 	needsRows := false
 	for _, p := range policies {
 		needsRows = needsRows || p.FreshDataAtLeast != nil
@@ -104,6 +120,41 @@ func Backtest(h *History, policies []Policy, o Options) (*Report, error) {
 	}
 	r.Recommendation = recommend(r.Results, o)
 	return r, nil
+}
+
+// late says labels come in late for a policy's replay: the history's
+// label times, the replay's delay, or a trigger's own.
+func late(h *History, p Policy, o Options) bool {
+	if o.lateLabels(h) {
+		return true
+	}
+	for _, t := range p.Triggers {
+		if o.labelDelay(t) > 0 {
+			return true
+		}
+	}
+	return false
+}
+
+// labelsAtOnce is the same replay with every label in at once.
+func labelsAtOnce(h *History, p Policy, o Options) (*History, Policy, Options) {
+	h0 := *h
+	h0.LabelledAt = nil
+	o.LabelDelay = 0
+	p.Triggers = append([]v1alpha1.TriggerSpec(nil), p.Triggers...)
+	for i := range p.Triggers {
+		p.Triggers[i].LabelDelaySeconds = nil
+	}
+	return &h0, p, o
+}
+
+func delayCost(late, atOnce *Result) *DelayCost {
+	c := &DelayCost{BelowTargetSeconds: late.BelowSeconds - atOnce.BelowSeconds, Retrains: len(late.Retrains) - len(atOnce.Retrains)}
+	if late.MedianDelay != nil && atOnce.MedianDelay != nil {
+		d := *late.MedianDelay - *atOnce.MedianDelay
+		c.MedianDelaySeconds = &d
+	}
+	return c
 }
 
 // recommend picks the cheapest policy when costs are given; else the one
@@ -172,6 +223,14 @@ func recommend(results []*Result, o Options) Recommendation {
 
 func money(x float64) string { return fmt.Sprintf("%.0f", x) }
 
+// signedDur is dur with a sign: +2h, -15m, +0m.
+func signedDur(seconds float64) string {
+	if seconds < 0 {
+		return "-" + dur(-seconds)
+	}
+	return "+" + dur(seconds)
+}
+
 func hours(seconds float64) string { return dur(seconds) }
 
 // dur prints a duration briefly: 45m, 6h05m, 2d3h.
@@ -229,6 +288,22 @@ func WriteTable(w io.Writer, r *Report) error {
 		if res.ComparisonOnly {
 			fmt.Fprintln(w, "(* for comparison only: the controller has no CUSUM trigger, so it is never recommended)")
 			break
+		}
+	}
+	var costs []string
+	for _, res := range r.Results {
+		if c := res.LabelDelayCost; c != nil && res.Policy != "none" {
+			delay := "no drop acted on in one of the two replays"
+			if c.MedianDelaySeconds != nil {
+				delay = signedDur(*c.MedianDelaySeconds) + " median delay"
+			}
+			costs = append(costs, fmt.Sprintf("  %s: %s, %s %s target, %+d retrains", res.Policy, delay, signedDur(c.BelowTargetSeconds), dir, c.Retrains))
+		}
+	}
+	if len(costs) > 0 {
+		fmt.Fprintf(w, "\nwhat late labels cost (against the same replay with every label in at once):\n")
+		for _, c := range costs {
+			fmt.Fprintln(w, c)
 		}
 	}
 	fmt.Fprintf(w, "\nrecommended: %s\n  because %s\n", r.Recommendation.Policy, r.Recommendation.Why)
