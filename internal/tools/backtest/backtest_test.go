@@ -32,6 +32,16 @@ func series(d time.Duration, f func(t time.Time) float64) *History {
 	return h
 }
 
+// stepDrop is a history of span at 0.85 that drops to 0.74 at drop.
+func stepDrop(span time.Duration, drop time.Time) *History {
+	return series(span, func(t time.Time) float64 {
+		if t.Before(drop) {
+			return 0.85
+		}
+		return 0.74
+	})
+}
+
 func below(v float64) *float64 { return &v }
 
 func triggerPolicy(name string, th float64, forD, every time.Duration) Policy {
@@ -50,12 +60,7 @@ func opts(target float64) Options {
 // starts then.
 func TestStepDropDetectedOneWindowLater(t *testing.T) {
 	drop := t0.Add(2*24*time.Hour + 3*time.Hour)
-	h := series(5*24*time.Hour, func(t time.Time) float64 {
-		if t.Before(drop) {
-			return 0.85
-		}
-		return 0.74
-	})
+	h := stepDrop(5*24*time.Hour, drop)
 	for _, w := range []time.Duration{30 * time.Minute, time.Hour, 6 * time.Hour} {
 		p := triggerPolicy("trigger", 0.78, w, 5*time.Minute)
 		res, err := Replay(h, p, opts(0.78), 0.85)
@@ -80,12 +85,7 @@ func TestStepDropDetectedOneWindowLater(t *testing.T) {
 // With no policy, time below target is everything after the drop.
 func TestNoneIsTheHistory(t *testing.T) {
 	drop := t0.Add(24 * time.Hour)
-	h := series(3*24*time.Hour, func(t time.Time) float64 {
-		if t.Before(drop) {
-			return 0.85
-		}
-		return 0.74
-	})
+	h := stepDrop(3*24*time.Hour, drop)
 	res, err := Replay(h, Policy{Name: "none"}, opts(0.78), 0.85)
 	if err != nil {
 		t.Fatal(err)

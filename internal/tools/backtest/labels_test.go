@@ -16,12 +16,7 @@ import (
 // later than with labels at once, and the replay says what that cost.
 func TestLabelDelayCostsOneDelay(t *testing.T) {
 	drop := t0.Add(2*24*time.Hour + 3*time.Hour)
-	h := series(5*24*time.Hour, func(t time.Time) float64 {
-		if t.Before(drop) {
-			return 0.85
-		}
-		return 0.74
-	})
+	h := stepDrop(5*24*time.Hour, drop)
 	p := triggerPolicy("trigger", 0.78, time.Hour, 5*time.Minute)
 	o := opts(0.78)
 	o.LabelDelay = 2 * time.Hour
@@ -60,12 +55,7 @@ func TestLabelDelayCostsOneDelay(t *testing.T) {
 // points are not in yet: it can judge nothing, and the drop is missed.
 func TestTriggerBlindToTheDelay(t *testing.T) {
 	drop := t0.Add(2 * 24 * time.Hour)
-	h := series(4*24*time.Hour, func(t time.Time) float64 {
-		if t.Before(drop) {
-			return 0.85
-		}
-		return 0.74
-	})
+	h := stepDrop(4*24*time.Hour, drop)
 	for _, tm := range h.Points {
 		h.LabelledAt = append(h.LabelledAt, tm.T.Add(3*time.Hour))
 	}
