@@ -2,6 +2,7 @@ package modelline
 
 import (
 	"context"
+	"strings"
 	"time"
 
 	corev1 "k8s.io/api/core/v1"
@@ -53,6 +54,11 @@ func (r *Reconciler) watchInputs(ctx context.Context, p *pass) error {
 	case w.Drifted:
 		j.status = metav1.ConditionTrue
 		j.event = lineEvent(line, nil, "EarlyWarning", corev1.EventTypeWarning, "InputsDrifted", w.Message)
+		// The message holds while the same checks drift; another check
+		// drifting (or one settling) is news.
+		if isTrue(prev) && !strings.HasPrefix(prev.Message, w.Headline()+":") {
+			j.sticky = false
+		}
 	case w.Known:
 		j.status = metav1.ConditionFalse
 		if isTrue(prev) {

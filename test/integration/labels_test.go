@@ -12,6 +12,7 @@ import (
 	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
 
 	"plumbline.dev/plumbline/api/v1alpha1"
+	"plumbline.dev/plumbline/internal/testenv/promserver"
 )
 
 // The late-label scenarios. Larkspur learns whether a parcel was late only
@@ -44,6 +45,16 @@ func init() {
 			}
 			return 0.05
 		}}
+	// Heavier parcels too, from 03:30 to 05:00.
+	weight := promserver.Series{Name: "larkspur_feature_psi", Labels: map[string]string{"scenario": "early-warning", "feature": "weight_kg"}}
+	for t := day0; t.Before(day0.Add(12 * time.Hour)); t = t.Add(time.Minute) {
+		v := 0.05
+		if !t.Before(hm(3, 30)) && t.Before(hm(5, 0)) {
+			v = 0.35
+		}
+		weight.Samples = append(weight.Samples, promserver.Sample{T: t, V: v})
+	}
+	extraHistory = append(extraHistory, weight)
 }
 
 // A drop in quality that only has its labels two hours later is caught two
@@ -161,6 +172,10 @@ func TestEarlyWarning(t *testing.T) {
 	key := watchedLine(t, "early-warning", func(o *unstructured.Unstructured) {
 		mustSet(t, o, "spec.labels", map[string]any{"delaySeconds": int64(7200)})
 		mustSet(t, o, "spec.checks.earlyWarning", map[string]any{"everySeconds": int64(300)})
+		mustSet(t, o, "spec.checks.drift", []any{
+			map[string]any{"name": "depot-shift", "above": 0.25, "query": `max(larkspur_feature_psi{scenario="early-warning",feature="depot"})`},
+			map[string]any{"name": "weight-shift", "above": 0.25, "query": `max(larkspur_feature_psi{scenario="early-warning",feature="weight_kg"})`},
+		})
 	})
 	inputsAt := func(at time.Time, status metav1.ConditionStatus, reason string) *metav1.Condition {
 		t.Helper()
@@ -178,6 +193,24 @@ func TestEarlyWarning(t *testing.T) {
 	if ev.Type != "Warning" || !strings.Contains(ev.Note, "depot-shift") {
 		t.Errorf("InputsDrifted event %s %q", ev.Type, ev.Note)
 	}
+	// Another feature drifts: the condition says so, and so does an event.
+	eventually(t, waitFor, func() error {
+		clk.SetTime(hm(3, 40))
+		nudge(t, key, hm(3, 40))
+		c = meta.FindStatusCondition(getLine(t, key).Status.Conditions, v1alpha1.ConditionInputsDrifted)
+		if c == nil || !strings.HasPrefix(c.Message, "the inputs moved (depot-shift, weight-shift):") {
+			return fmt.Errorf("InputsDrifted %+v", c)
+		}
+		return nil
+	})
+	eventually(t, waitFor, func() error {
+		for _, e := range eventsFor(t, key.Namespace, key.Name, "InputsDrifted") {
+			if strings.Contains(e.Note, "weight-shift") {
+				return nil
+			}
+		}
+		return fmt.Errorf("no InputsDrifted event names weight-shift")
+	})
 	// Drifting inputs alone start no retrain.
 	settle()
 	if line := getLine(t, key); line.Status.ActiveVersion != "" {

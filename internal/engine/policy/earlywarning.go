@@ -51,10 +51,17 @@ func JudgeInputs(drift []Check, delay time.Duration, now time.Time) EarlyWarning
 	}
 	switch {
 	case len(moved) > 0:
-		return EarlyWarning{Drifted: true, Known: true, Reason: InputsMoved, Features: features,
-			Message: fmt.Sprintf("the inputs moved (%s): %s%s; nothing is started by this alone", strings.Join(features, ", "), strings.Join(moved, "; "), pending)}
+		w := EarlyWarning{Drifted: true, Known: true, Reason: InputsMoved, Features: features}
+		w.Message = fmt.Sprintf("%s: %s%s; nothing is started by this alone", w.Headline(), strings.Join(moved, "; "), pending)
+		return w
 	case len(unknown) > 0:
 		return EarlyWarning{Reason: DriftUnknown, Message: "the inputs cannot be judged: " + strings.Join(unknown, "; ")}
 	}
 	return EarlyWarning{Known: true, Reason: InputsSteady, Message: "the inputs are steady: " + strings.Join(steady, "; ")}
+}
+
+// Headline is how a message of drifted inputs begins: which checks drifted.
+// A message that begins otherwise told of other checks.
+func (w EarlyWarning) Headline() string {
+	return fmt.Sprintf("the inputs moved (%s)", strings.Join(w.Features, ", "))
 }
