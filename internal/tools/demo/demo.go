@@ -75,6 +75,12 @@ type Result struct {
 	// Promoted are the versions that went live after a completed rollout,
 	// in order.
 	Promoted []string
+	// WarnedEarly: the early warning named the peak's drifted input before
+	// the quality trigger fired.
+	WarnedEarly bool
+	// GuardWaited: the guard waited for the peak version's own outcomes
+	// before judging it.
+	GuardWaited bool
 	// RolledBack are the versions the guard rolled back.
 	RolledBack []string
 	// Live is the line's live version at the end.
@@ -294,7 +300,9 @@ func (d *player) story() error {
 
 	d.step(1, "Larkspur's scorer runs its old rules; the ModelLine and the versions are applied")
 	fmt.Fprintln(d.out, "   Time is compressed: trigger and guard windows are 20 seconds (hours, in the")
-	fmt.Fprintln(d.out, "   story). Quality is the ROC AUC of the served scores over the last 2,000 parcels.")
+	fmt.Fprintln(d.out, "   story). Quality is the ROC AUC of the served scores over the last 2,000 parcels")
+	fmt.Fprintln(d.out, "   whose outcome is known: a parcel is known to be late when it is delivered, 10")
+	fmt.Fprintln(d.out, "   seconds (hours) after it was scored. The inputs are known at once.")
 	for _, o := range append(byKind("Namespace"), byKind("Deployment")...) {
 		if err := d.create(o); err != nil {
 			return err
@@ -375,6 +383,9 @@ func (d *player) story() error {
 	if err := d.changeWorld(Phase{Fenwick: true, Peak: true, Note: "the pre-holiday peak starts: heavy parcels, vans fill up, town routes jam"}); err != nil {
 		return err
 	}
+	if err := d.earlyWarning(lineKey, "weight-shift"); err != nil {
+		return err
+	}
 	peakVersion, err := d.waitNewLive(lineKey, "late-risk-v1")
 	if err != nil {
 		return err
@@ -382,6 +393,21 @@ func (d *player) story() error {
 
 	d.step(6, "The peak ends the day "+peakVersion+" goes live: it regresses in production and the guard rolls it back")
 	if err := d.changeWorld(Phase{Fenwick: true, Note: "the peak ends: ordinary traffic again"}); err != nil {
+		return err
+	}
+	if err := d.wait("the guard to wait for "+peakVersion+"'s own outcomes", func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
+			return false, err
+		}
+		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionDegraded)
+		if line.Status.LiveVersion != peakVersion || c == nil || c.Reason != "AwaitingOwnLabels" {
+			return false, nil
+		}
+		d.result.GuardWaited = true
+		d.say("Degraded=False (AwaitingOwnLabels): " + c.Message)
+		return true, nil
+	}); err != nil {
 		return err
 	}
 	if err := d.wait("the guard to roll "+peakVersion+" back to late-risk-v1", func() (bool, error) {
@@ -408,6 +434,31 @@ func (d *player) story() error {
 		return err
 	}
 	return d.pause(8*time.Second, "quality is back with late-risk-v1")
+}
+
+// earlyWarning waits for the line's InputsDrifted condition to name a
+// drifted check, and tells whether the quality trigger had fired by then.
+func (d *player) earlyWarning(key types.NamespacedName, check string) error {
+	return d.wait("the early warning on "+check, func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, key, &line); err != nil {
+			return false, err
+		}
+		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionInputsDrifted)
+		if c == nil || c.Status != metav1.ConditionTrue || !strings.Contains(c.Message, check) {
+			return false, nil
+		}
+		quality := "No quality trigger fires yet: these parcels' outcomes are not in"
+		d.result.WarnedEarly = true
+		for _, t := range line.Status.Triggers {
+			if t.State == v1alpha1.TriggerFiring {
+				quality = "Trigger " + t.Name + " fires already"
+				d.result.WarnedEarly = false
+			}
+		}
+		d.say(fmt.Sprintf("InputsDrifted=True (%s): %s. %s.", c.Reason, c.Message, quality))
+		return true, nil
+	})
 }
 
 // objects renders the demo's manifests for this run's files.

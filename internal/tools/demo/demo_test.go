@@ -53,6 +53,12 @@ func TestDemoRuns(t *testing.T) {
 	if !res.Blocked {
 		t.Error("no retrain was refused on broken data")
 	}
+	if !res.WarnedEarly {
+		t.Error("the early warning did not name the peak's drifted input before the quality trigger fired")
+	}
+	if !res.GuardWaited {
+		t.Error("the guard did not wait for the peak version's own outcomes")
+	}
 	wantPromoted := []string{"late-risk-v0", "late-risk-v1", "late-risk-v2", "late-risk-v1"}
 	if !slices.Equal(res.Promoted, wantPromoted) {
 		t.Errorf("went live after completed rollouts: %v, want %v", res.Promoted, wantPromoted)
@@ -88,6 +94,8 @@ func TestDemoRuns(t *testing.T) {
 		"export KUBECONFIG=",
 		"event Normal ScalingReplicaSet Deployment/late-risk-scorer",
 		"Blocked (DataQualityIssue)",
+		"InputsDrifted=True (InputsMoved)",
+		"Degraded=False (AwaitingOwnLabels): waiting for late-risk-v2's own labelled predictions",
 		"address-missing",
 		"event Normal Completed Job/late-risk-v1-train",
 		"event Normal CheckFinished ModelLine/late-risk: check Job late-risk-check-1:",

@@ -13,22 +13,27 @@ import (
 )
 
 // monitor is Larkspur's own monitoring of its scorer, as the demo plays it:
-// it keeps the last scored parcels (in the story their labels are known at
-// once; in life they arrive days later) and exports the ROC AUC over them,
-// the address feed's missing share, the population stability index of the
-// inputs against the reference the first model was trained on, and a count
-// of labelled parcels. The serving simulator of `plumbline demo` and the
-// real scorer of `plumbline demo serve` both feed one.
+// it exports the address feed's missing share and the population stability
+// index of the inputs of the last scored parcels against the reference the
+// first model was trained on, and, once their outcomes are known (labelDelay
+// after scoring: a parcel is known to be late only when it is delivered),
+// the ROC AUC over the last labelled parcels and a count of them. The
+// quality gauge is thus stamped when it is scored and judges the
+// predictions of labelDelay before. The serving simulator of `plumbline
+// demo` and the real scorer of `plumbline demo serve` both feed one.
 type monitor struct {
-	window int // parcels in the quality window
+	window     int           // parcels in the quality and input windows
+	labelDelay time.Duration // from scoring a parcel to knowing its outcome
 
 	weightCut []float64 // reference deciles of weight
 	// The reference's histograms, which the PSI compares against.
 	refDepots, refWeights []float64
 
-	mu      sync.Mutex
-	recent  []scored
-	lastAUC float64 // of the recent parcels, at the last export
+	mu       sync.Mutex
+	recent   []scored // the last labelled parcels
+	inputs   []scored // the last scored parcels, labelled or not
+	awaiting []awaited
+	lastAUC  float64 // of the recent parcels, at the last export
 
 	auc, missing prometheus.Gauge
 	psi          *prometheus.GaugeVec
@@ -44,6 +49,12 @@ type scored struct {
 	weight  float64
 }
 
+// awaited is a scored parcel whose outcome is not known yet.
+type awaited struct {
+	known time.Time
+	s     scored
+}
+
 // referenceOf is the batch the monitoring compares the inputs against: the
 // parcels of the world's first minute, as the imported model saw them.
 func referenceOf(w *World) []Parcel {
@@ -53,8 +64,8 @@ func referenceOf(w *World) []Parcel {
 
 // newMonitor makes the monitoring of a scorer; what says who exports it,
 // for the metrics' help.
-func newMonitor(reference []Parcel, window int, what string) *monitor {
-	m := &monitor{window: window, lastAUC: math.NaN(), registry: prometheus.NewRegistry()}
+func newMonitor(reference []Parcel, window int, labelDelay time.Duration, what string) *monitor {
+	m := &monitor{window: window, labelDelay: labelDelay, lastAUC: math.NaN(), registry: prometheus.NewRegistry()}
 	w := make([]float64, len(reference))
 	for i, p := range reference {
 		w[i] = p.Weight
@@ -76,16 +87,36 @@ func newMonitor(reference []Parcel, window int, what string) *monitor {
 	return m
 }
 
-// add records a batch of scored parcels and updates the gauges.
+// add records a batch of scored parcels, takes in the outcomes that have
+// come in by now, and updates the gauges.
 func (m *monitor) add(batch []scored) {
+	m.addAt(batch, time.Now())
+}
+
+func (m *monitor) addAt(batch []scored, now time.Time) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
-	m.recent = append(m.recent, batch...)
-	m.labelled.Add(float64(len(batch)))
-	if over := len(m.recent) - m.window; over > 0 {
-		m.recent = append(m.recent[:0], m.recent[over:]...)
+	m.inputs = keepLast(append(m.inputs, batch...), m.window)
+	for _, b := range batch {
+		m.awaiting = append(m.awaiting, awaited{known: now.Add(m.labelDelay), s: b})
 	}
+	in := 0
+	for in < len(m.awaiting) && !m.awaiting[in].known.After(now) {
+		m.recent = append(m.recent, m.awaiting[in].s)
+		in++
+	}
+	m.awaiting = append(m.awaiting[:0], m.awaiting[in:]...)
+	m.labelled.Add(float64(in))
+	m.recent = keepLast(m.recent, m.window)
 	m.export()
+}
+
+// keepLast keeps the last n of s, in place.
+func keepLast(s []scored, n int) []scored {
+	if over := len(s) - n; over > 0 {
+		return append(s[:0], s[over:]...)
+	}
+	return s
 }
 
 // histograms bins parcels by depot (in allDepots' order) and by the
@@ -102,30 +133,35 @@ func (m *monitor) histograms(ps []Parcel) (depots, weights []float64) {
 	return depots, weights
 }
 
-// export sets the gauges from the recent parcels; m.mu is held.
+// export sets the gauges: quality from the labelled parcels, the inputs'
+// from the scored ones; m.mu is held.
 func (m *monitor) export() {
-	if len(m.recent) == 0 {
+	if len(m.recent) > 0 {
+		label := make([]uint8, len(m.recent))
+		score := make([]float64, len(m.recent))
+		for i, r := range m.recent {
+			score[i] = r.score
+			if r.late {
+				label[i] = 1
+			}
+		}
+		if v := stats.ROCAUC(label, score, stats.Order(score), nil); v.Defined() {
+			m.lastAUC = v.V
+			m.auc.Set(v.V)
+		}
+	}
+	if len(m.inputs) == 0 {
 		return
 	}
-	label := make([]uint8, len(m.recent))
-	score := make([]float64, len(m.recent))
-	batch := make([]Parcel, len(m.recent))
+	batch := make([]Parcel, len(m.inputs))
 	missing := 0
-	for i, r := range m.recent {
-		score[i] = r.score
-		if r.late {
-			label[i] = 1
-		}
+	for i, r := range m.inputs {
 		if r.missing {
 			missing++
 		}
 		batch[i] = Parcel{Depot: r.depot, Weight: r.weight}
 	}
-	if v := stats.ROCAUC(label, score, stats.Order(score), nil); v.Defined() {
-		m.lastAUC = v.V
-		m.auc.Set(v.V)
-	}
-	m.missing.Set(float64(missing) / float64(len(m.recent)))
+	m.missing.Set(float64(missing) / float64(len(m.inputs)))
 	depots, weights := m.histograms(batch)
 	m.psi.WithLabelValues("depot").Set(stats.PSI(m.refDepots, depots))
 	m.psi.WithLabelValues("weight_kg").Set(stats.PSI(m.refWeights, weights))

@@ -148,8 +148,13 @@ func Serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	modelEnv := fs.String("model-env", "MODEL_URI", "the environment variable that holds the artifact URI to serve")
 	rate := fs.Float64("parcels-per-second", 100, "parcels this pod scores per second")
 	window := fs.Int("window", 1000, "parcels in the quality window")
+	labelDelay := fs.Duration("label-delay", 0, "from scoring a parcel to knowing whether it was late (the quality gauge judges the parcels of this long ago)")
 	if err := parse(fs, args, stderr); err != nil {
 		return err
+	}
+	if *labelDelay < 0 {
+		fmt.Fprintf(stderr, "plumbline demo serve: --label-delay %s: want 0 or more\n", *labelDelay)
+		return ErrUsage
 	}
 	if *rate <= 0 || *window < 10 {
 		fmt.Fprintf(stderr, "plumbline demo serve: --parcels-per-second must be above 0 and --window at least 10 (got %g and %d)\n", *rate, *window)
@@ -168,7 +173,7 @@ func Serve(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	host, _ := os.Hostname()
-	s := &scorerServer{world: *world, w: w, model: model, mon: newMonitor(referenceOf(w), *window, "plumbline demo serve"),
+	s := &scorerServer{world: *world, w: w, model: model, mon: newMonitor(referenceOf(w), *window, *labelDelay, "plumbline demo serve"),
 		rng: rand.New(rand.NewPCG(w.Seed, seedOf(host))), out: stdout}
 	s.scoredTotal = prometheus.NewCounter(prometheus.CounterOpts{Name: "larkspur_scored_parcels_total",
 		Help: "Parcels this pod scored (plumbline demo serve)."})

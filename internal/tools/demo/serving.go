@@ -48,8 +48,13 @@ type servingSim struct {
 	scoredBy *prometheus.CounterVec
 }
 
+// labelDelay is how long after scoring a parcel its outcome is known in the
+// demo's story: hours, compressed like the rest (spec.labels.delaySeconds of
+// the demo's line).
+const labelDelay = 10 * time.Second
+
 func newServingSim(c client.Client, ns string, world func() Phase, reference []Parcel, seed uint64) *servingSim {
-	s := &servingSim{monitor: newMonitor(reference, 2000, "demo simulator"), c: c, ns: ns, deployment: scorer, container: "scorer",
+	s := &servingSim{monitor: newMonitor(reference, 2000, labelDelay, "demo simulator"), c: c, ns: ns, deployment: scorer, container: "scorer",
 		artifact: "MODEL_URI", world: world, rate: 300, rng: rand.New(rand.NewPCG(seed, 3)),
 		models: map[string]*Model{}, served: map[string]int{}}
 	s.scoredBy = prometheus.NewCounterVec(prometheus.CounterOpts{Name: "larkspur_scored_parcels_total",
