@@ -315,12 +315,13 @@ type ChecksSpec struct {
 	// earlyWarning runs the drift checks on their own interval, as the
 	// early sign of a drop whose labels are not in yet: drifting inputs
 	// raise the InputsDrifted condition and an event, naming the checks that
-	// drifted. They start nothing by themselves.
+	// drifted. They start nothing unless earlyWarning.retrain asks.
 	// +optional
 	EarlyWarning *EarlyWarningSpec `json:"earlyWarning,omitempty"`
 }
 
-// EarlyWarningSpec is how often the inputs are watched.
+// EarlyWarningSpec is how often the inputs are watched, and whether their
+// drift may ask for a retrain.
 type EarlyWarningSpec struct {
 	// everySeconds is how often the drift checks run for the early warning.
 	// +optional
@@ -328,6 +329,13 @@ type EarlyWarningSpec struct {
 	// +kubebuilder:validation:Minimum=10
 	// +kubebuilder:validation:Maximum=86400
 	EverySeconds int32 `json:"everySeconds,omitempty"`
+
+	// retrain asks for a retrain when the inputs drift (version reason
+	// EarlyWarning), through the usual start sequence: one version at a
+	// time, the cooldown, the data-quality and fresh-data checks and the
+	// check Job. Off by default: drifting inputs alone start nothing.
+	// +optional
+	Retrain bool `json:"retrain,omitempty"`
 }
 
 // QueryCheck is a PromQL check, breached when its value is below or above a

@@ -29,13 +29,16 @@ const (
 	DecisionRejected Decision = "Rejected"
 )
 
-// Version reasons, in spec.reason. A trigger-started version has the reason
+// Version causes, in spec.cause. A trigger-started version has the cause
 // "Trigger/<trigger name>".
 const (
 	ReasonSchedule      = "Schedule"
 	ReasonManual        = "Manual"
 	ReasonInitial       = "Initial"
 	ReasonTriggerPrefix = "Trigger/"
+	// ReasonEarlyWarning: the line's inputs drifted and its early warning
+	// asks for a retrain (spec.checks.earlyWarning.retrain).
+	ReasonEarlyWarning = "EarlyWarning"
 )
 
 // ModelVersionSpec describes one candidate or released version.
@@ -66,11 +69,12 @@ type ModelVersionSpec struct {
 	ArtifactURI string `json:"artifactURI,omitempty"`
 
 	// cause is what asked for the version: Schedule, Manual (a person's
-	// request), Initial, or Trigger/<trigger name>. (The version's status
-	// reason says where it stands.)
+	// request), Initial, Trigger/<trigger name>, or EarlyWarning (drifting
+	// inputs, where the line lets them ask). (The version's status reason
+	// says where it stands.)
 	// +optional
 	// +kubebuilder:validation:MaxLength=80
-	// +kubebuilder:validation:Pattern=`^(Schedule|Manual|Initial|Trigger/[a-z0-9]([-a-z0-9]*[a-z0-9])?)$`
+	// +kubebuilder:validation:Pattern=`^(Schedule|Manual|Initial|EarlyWarning|Trigger/[a-z0-9]([-a-z0-9]*[a-z0-9])?)$`
 	Cause string `json:"cause,omitempty"`
 
 	// decision is set by a person on a candidate that waits for approval:

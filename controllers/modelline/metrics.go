@@ -94,7 +94,7 @@ var (
 
 	retrainDecisions = prometheus.NewCounterVec(prometheus.CounterOpts{
 		Name: "plumbline_retrain_decisions_total",
-		Help: "Decisions on whether to start a retrain, by path (Manual, Schedule, Trigger) and outcome (Started, DataQualityIssue, DegradedWithoutDrift, InsufficientData, ChecksUnknown, InFlight, Cooldown, LiveTooRecent).",
+		Help: "Decisions on whether to start a retrain, by path (Manual, Schedule, Trigger, EarlyWarning) and outcome (Started, DataQualityIssue, DegradedWithoutDrift, InsufficientData, ChecksUnknown, InFlight, Cooldown, LiveTooRecent).",
 	}, []string{"namespace", "line", "path", "outcome"})
 
 	checkRuns = prometheus.NewCounterVec(prometheus.CounterOpts{

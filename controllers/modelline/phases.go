@@ -31,8 +31,8 @@ type phase struct {
 //     guard's switch, an evaluation of alternatives followed, a person's
 //     rollback), before anything new starts;
 //   - then what asks for a retrain, a person's request before the schedule
-//     before the triggers, each later one seeing a version an earlier one
-//     started as in flight;
+//     before the triggers before the early warning, each later one seeing a
+//     version an earlier one started as in flight;
 //   - then the active version taken one step (training, gate, approval,
 //     rollout), and what its outcome calls for;
 //   - last, the queue marked and history pruned.
@@ -48,6 +48,7 @@ var phases = []phase{
 	{"a person's retrain request", acts, (*Reconciler).handleRetrainRequest},
 	{"the schedule", acts, (*Reconciler).handleSchedule},
 	{"the triggers", acts, (*Reconciler).handleTriggers},
+	{"the early warning", acts, (*Reconciler).handleEarlyWarning},
 	{"step the active version", acts, (*Reconciler).stepActive},
 	{"alternatives when a retrain did not help", acts, (*Reconciler).alternativesAfterRejection},
 	{"mark the queue", acts, markQueue},

@@ -128,6 +128,7 @@ const (
 	pathManual   = policy.PathManual
 	pathSchedule = policy.PathSchedule
 	pathTrigger  = policy.PathTrigger
+	pathEarly    = policy.PathEarlyWarning
 
 	outcomeStarted       = policy.Started
 	outcomeDataQuality   = policy.DataQualityIssue
@@ -229,8 +230,9 @@ func (r *Reconciler) tryStart(ctx context.Context, line *v1alpha1.ModelLine, vw 
 		}
 	}
 	p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, path, v.Outcome).Inc() })
-	if v.Outcome == outcomeInsufficient {
+	if v.Outcome == outcomeInsufficient && path != pathEarly {
 		// Retraining cannot help; an older or rule-based version might.
+		// (Not for drifting inputs alone: no drop in quality is known.)
 		started, err := r.startAlternatives(ctx, line, vw, p, altInsufficientData)
 		if err != nil {
 			return false, nil, err
@@ -378,6 +380,30 @@ func (r *Reconciler) handleTriggers(ctx context.Context, p *pass) error {
 		return nil
 	}
 	_, _, err := r.tryStart(ctx, line, vw, p, pathTrigger, v1alpha1.ReasonTriggerPrefix+step.Trigger, nil)
+	return err
+}
+
+// handleEarlyWarning takes the early warning's step of the start sequence
+// when the line lets drifting inputs ask for a retrain
+// (spec.checks.earlyWarning.retrain): while InputsDrifted is True, and no
+// trigger asks in this pass, a retrain starts through the usual checks,
+// one version at a time and not within the cooldown.
+func (r *Reconciler) handleEarlyWarning(ctx context.Context, p *pass) error {
+	line, vw := p.line, p.vw
+	c := line.Spec.Checks
+	if c == nil || c.EarlyWarning == nil || !c.EarlyWarning.Retrain || len(p.firing) > 0 || awaitedTrigger(line) != nil {
+		return nil
+	}
+	if !isTrue(p.condition(v1alpha1.ConditionInputsDrifted)) {
+		return nil
+	}
+	step, _ := policy.StepTriggers([]policy.Firing{{Name: v1alpha1.ReasonEarlyWarning}}, vw.active() != nil, lastRetrain(line),
+		policy.CooldownOf(line.Spec.CooldownSeconds), nil, p.now.Time)
+	if !step.May() {
+		p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathEarly, step.Outcome).Inc() })
+		return nil
+	}
+	_, _, err := r.tryStart(ctx, line, vw, p, pathEarly, v1alpha1.ReasonEarlyWarning, nil)
 	return err
 }
 

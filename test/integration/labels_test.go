@@ -45,6 +45,9 @@ func init() {
 			}
 			return 0.05
 		}}
+	// The depot opens for good at 03:00; quality, as far as labels tell,
+	// holds.
+	scenarios["early-retrain"] = scenario{auc: healthy, missing: constant(0.01), labelled: constant(50000), psi: step(hm(3, 0), 0.05, 0.4)}
 	// Heavier parcels too, from 03:30 to 05:00.
 	weight := promserver.Series{Name: "larkspur_feature_psi", Labels: map[string]string{"scenario": "early-warning", "feature": "weight_kg"}}
 	for t := day0; t.Before(day0.Add(12 * time.Hour)); t = t.Add(time.Minute) {
@@ -218,4 +221,32 @@ func TestEarlyWarning(t *testing.T) {
 	}
 	inputsAt(hm(5, 10), metav1.ConditionFalse, "InputsSteady")
 	waitEvent(t, key.Namespace, key.Name, "InputsSteady")
+}
+
+// A line that lets its early warning ask for a retrain starts one when the
+// inputs drift, through the usual checks, with the cause EarlyWarning; the
+// cooldown then holds the next.
+func TestEarlyWarningMayRetrain(t *testing.T) {
+	key := watchedLine(t, "early-retrain", func(o *unstructured.Unstructured) {
+		mustSet(t, o, "spec.labels", map[string]any{"delaySeconds": int64(7200)})
+		mustSet(t, o, "spec.checks.earlyWarning", map[string]any{"everySeconds": int64(300), "retrain": true})
+	})
+	clk.SetTime(hm(2, 0))
+	nudge(t, key, hm(2, 0))
+	waitLineCondition(t, key, v1alpha1.ConditionInputsDrifted, metav1.ConditionFalse, "InputsSteady")
+	if vs := trainedVersions(t, key.Namespace); len(vs) != 0 {
+		t.Fatalf("a retrain before the inputs drifted: %s", vs[0].Name)
+	}
+	clk.SetTime(hm(3, 10))
+	nudge(t, key, hm(3, 10))
+	waitLineCondition(t, key, v1alpha1.ConditionInputsDrifted, metav1.ConditionTrue, "InputsMoved")
+	v := waitPhase(t, key.Namespace, "late-risk-v1", v1alpha1.PhaseTraining)
+	if v.Spec.Cause != v1alpha1.ReasonEarlyWarning {
+		t.Errorf("cause %q, want EarlyWarning", v.Spec.Cause)
+	}
+	line := waitLineCondition(t, key, v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed")
+	mustContain(t, "Blocked message", meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionBlocked).Message, "retrain for EarlyWarning")
+	if got := metricSum(t, "plumbline_retrain_decisions_total", map[string]string{"namespace": key.Namespace, "path": "EarlyWarning", "outcome": "Started"}); got != 1 {
+		t.Errorf("EarlyWarning starts counted %v, want 1", got)
+	}
 }

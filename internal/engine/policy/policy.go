@@ -19,6 +19,9 @@ const (
 	PathManual   = "Manual"
 	PathSchedule = "Schedule"
 	PathTrigger  = "Trigger"
+	// PathEarlyWarning: the early warning, when the line lets drifting
+	// inputs ask for a retrain.
+	PathEarlyWarning = "EarlyWarning"
 )
 
 // Outcomes of the decision whether to start a retrain.

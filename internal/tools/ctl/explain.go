@@ -130,6 +130,17 @@ func explain(w io.Writer, l *v1alpha1.ModelLine, vs []v1alpha1.ModelVersion, now
 			firing = append(firing, policy.Firing{Name: spec.Name, Window: time.Duration(spec.ForSeconds)*time.Second + l.Spec.LabelDelay(spec.LabelDelaySeconds)})
 		}
 	}
+	if ch := l.Spec.Checks; ch != nil && ch.EarlyWarning != nil {
+		acts := "it reports only"
+		if ch.EarlyWarning.Retrain {
+			acts = "while it is True a retrain may start (earlyWarning.retrain)"
+		}
+		if ic := c(v1alpha1.ConditionInputsDrifted); ic != nil {
+			say("The early warning: InputsDrifted=%s (%s), %s: %s", ic.Status, ic.Reason, acts, oneLine(ic.Message))
+		} else {
+			say("The early warning: not judged yet; %s.", acts)
+		}
+	}
 
 	fmt.Fprintln(w, "\nWhat holds a retrain back")
 	held := false

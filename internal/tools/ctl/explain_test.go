@@ -74,6 +74,11 @@ func TestExplain(t *testing.T) {
 			l.Status.LastPromotionTime = &metav1.Time{Time: time.Date(2026, 11, 2, 7, 0, 0, 0, time.UTC)}
 		}, []string{"but the live version went live at 2026-11-02T07:00:00Z: its window must lie wholly after that, with the labels of its predictions in, at 2026-11-02T10:00:00Z (in 60m)",
 			"The guard may roll late-risk-v3 back until its probation ends at 2026-11-02T12:00:00Z (in 3h)"}}, // promoted at 08:00: two hours of labels, then two of probation
+		{"inputs drifted, quality not known yet", func(l *v1alpha1.ModelLine, _ *[]v1alpha1.ModelVersion) {
+			l.Spec.Checks = &v1alpha1.ChecksSpec{EarlyWarning: &v1alpha1.EarlyWarningSpec{EverySeconds: 300}}
+			l.Status.Conditions = append(l.Status.Conditions, metav1.Condition{Type: v1alpha1.ConditionInputsDrifted, Status: metav1.ConditionTrue,
+				Reason: "InputsMoved", Message: "the inputs moved (depot-shift): drift check depot-shift is 0.4; nothing is started by this alone"})
+		}, []string{"The early warning: InputsDrifted=True (InputsMoved), it reports only: the inputs moved (depot-shift)"}},
 		{"nothing fires, nothing holds", func(l *v1alpha1.ModelLine, _ *[]v1alpha1.ModelVersion) {
 			l.Status.Triggers[0].State = v1alpha1.TriggerInactive
 		}, []string{"Nothing: no trigger fires, and no check refused a start."}},
