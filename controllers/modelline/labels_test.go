@@ -72,7 +72,7 @@ func TestGuardWaits(t *testing.T) {
 	}
 	w.Delay = 2 * time.Hour
 	res, reason = guardWaits("late-risk-v1", `larkspur_live_auc`, w, promoted, w.Matured(promoted))
-	if reason != reasonGuardAwaitingLabels || !strings.Contains(res.Message, "waiting for late-risk-v1's own labelled predictions (label delay 2h0m0s)") ||
+	if reason != reasonGuardAwaitingLabels || !strings.Contains(res.Message, "waiting for late-risk-v1's own labelled predictions (label delay 2h0m0s; promoted at 2026-11-02T06:00:00Z)") ||
 		!strings.Contains(res.Message, "from 2026-11-02T08:10:00Z") || !strings.Contains(res.Message, "does not name the version") {
 		t.Errorf("a delay, no {{.Version}}: %q %q", reason, res.Message)
 	}

@@ -92,12 +92,15 @@ func guardWaits(version, query string, w trigger.Window, promoted, firstFull tim
 	res = trigger.Result{State: v1alpha1.TriggerInactive, Value: math.NaN(),
 		Message: fmt.Sprintf("watching %s since its promotion at %s; the first full %s window ends at %s", version, promoted.UTC().Format(time.RFC3339), w.For, firstFull.UTC().Format(time.RFC3339))}
 	if w.Delay > 0 {
-		scope := "its own series ({{.Version}})"
-		if !speccheck.UsesVersion(query) {
-			scope = "a query that does not name the version: until then its window holds the predictions of the version before it, whose labels are the ones coming in"
+		at, first := promoted.UTC().Format(time.RFC3339), firstFull.UTC().Format(time.RFC3339)
+		if speccheck.UsesVersion(query) {
+			res.Message = fmt.Sprintf("waiting for %s's own labelled predictions (label delay %s; promoted at %s): the guard judges its own series ({{.Version}}) from %s, when a whole %s window of them has its labels",
+				version, w.Delay, at, first, w.For)
+		} else {
 			reason = reasonGuardAwaitingLabels
+			res.Message = fmt.Sprintf("waiting for %s's own labelled predictions (label delay %s; promoted at %s): the guard query does not name the version, and until %s its window holds predictions of the version before, whose labels are the ones coming in; it judges from %s, when a whole %s window of %s's predictions has its labels",
+				version, w.Delay, at, first, first, w.For, version)
 		}
-		res.Message = fmt.Sprintf("waiting for %s's own labelled predictions (label delay %s) since its promotion at %s; the guard judges %s from %s, when a whole %s window of them has its labels", version, w.Delay, promoted.UTC().Format(time.RFC3339), scope, firstFull.UTC().Format(time.RFC3339), w.For)
 	}
 	return res, reason
 }

@@ -137,7 +137,7 @@ func TestGuardWaitsForTheNewVersionsLabels(t *testing.T) {
 		if line.Status.Guard.State != v1alpha1.TriggerInactive {
 			t.Fatalf("at %s the guard is %s (%s): it judged", at.Format("15:04"), line.Status.Guard.State, line.Status.Guard.Message)
 		}
-		mustContain(t, "guard message", line.Status.Guard.Message, "waiting for late-risk-v1's own labelled predictions (label delay 2h0m0s)",
+		mustContain(t, "guard message", line.Status.Guard.Message, "waiting for late-risk-v1's own labelled predictions (label delay 2h0m0s; promoted at 2026-11-02T06:00:00Z)",
 			"from 2026-11-02T08:10:00Z")
 		line = waitLineCondition(t, key, v1alpha1.ConditionDegraded, metav1.ConditionFalse, "AwaitingOwnLabels")
 		mustContain(t, "Degraded message", meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionDegraded).Message, "does not name the version")
