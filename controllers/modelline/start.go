@@ -357,7 +357,7 @@ func (r *Reconciler) handleTriggers(ctx context.Context, p *pass) error {
 		// The live version has served a whole window once its last
 		// predictions have their labels too.
 		w := r.window(line, tr.ForSeconds, tr.EverySeconds, tr.LabelDelaySeconds)
-		fs = append(fs, policy.Firing{Name: tr.Name, Window: w.For + w.Delay})
+		fs = append(fs, policy.Firing{Name: tr.Name, Window: w.Reach()})
 	}
 	var liveSince *time.Time
 	if t := line.Status.LastPromotionTime; t != nil {
@@ -397,10 +397,10 @@ func (r *Reconciler) handleEarlyWarning(ctx context.Context, p *pass) error {
 	if !isTrue(p.condition(v1alpha1.ConditionInputsDrifted)) {
 		return nil
 	}
-	step, _ := policy.StepTriggers([]policy.Firing{{Name: v1alpha1.ReasonEarlyWarning}}, vw.active() != nil, lastRetrain(line),
-		policy.CooldownOf(line.Spec.CooldownSeconds), nil, p.now.Time)
-	if !step.May() {
-		p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathEarly, step.Outcome).Inc() })
+	// No live-version wait: drifting inputs say nothing of the live
+	// version's quality.
+	if outcome, may := policy.TriggerMayStart(vw.active() != nil, lastRetrain(line), policy.CooldownOf(line.Spec.CooldownSeconds), nil, 0, p.now.Time); !may {
+		p.count(func() { retrainDecisions.WithLabelValues(line.Namespace, line.Name, pathEarly, outcome).Inc() })
 		return nil
 	}
 	_, _, err := r.tryStart(ctx, line, vw, p, pathEarly, v1alpha1.ReasonEarlyWarning, nil)

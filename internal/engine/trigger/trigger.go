@@ -106,10 +106,14 @@ func (w Window) Period(end time.Time) (from, to time.Time) {
 	return end.Add(-w.For), end
 }
 
+// Reach is how far back from now the predictions a window judges go: the
+// window and the label delay.
+func (w Window) Reach() time.Duration { return w.For + w.Delay }
+
 // Matured is the first time a window can judge only predictions made at or
 // after t (a promotion, a rollback): a whole window after it, and the
 // labels of its last predictions in.
-func (w Window) Matured(t time.Time) time.Time { return t.Add(w.For + w.Delay) }
+func (w Window) Matured(t time.Time) time.Time { return t.Add(w.Reach()) }
 
 // PeriodText says which predictions a window ending at end judges, for
 // messages: "predictions of 2026-12-03 03:00 to 09:00 UTC".

@@ -254,7 +254,7 @@ func (r *replayer) run() error {
 	nextPoint := 0
 	var longest time.Duration // the longest trigger window, with its label delay
 	for _, t := range r.p.Triggers {
-		longest = max(longest, time.Duration(t.ForSeconds)*time.Second+r.o.labelDelay(t))
+		longest = max(longest, trigger.Window{For: time.Duration(t.ForSeconds) * time.Second, Delay: r.o.labelDelay(t)}.Reach())
 	}
 	// The replay's clock visits its grid (the triggers' periods) and, as
 	// the controller is woken at each, every scheduled start.
@@ -308,7 +308,7 @@ func (r *replayer) run() error {
 			pts := trigger.RangeQueryLookback(r.labelledBy(now, end.Add(-w.For-lookback), end), end.Add(-w.For), end, w.Step(), lookback)
 			res := trigger.Judge([]promq.Series{{Points: pts}}, trigger.Threshold{Below: t.Below, Above: t.Above}, w, end)
 			if res.State == v1alpha1.TriggerFiring {
-				firing = append(firing, policy.Firing{Name: t.Name, Window: w.For + w.Delay})
+				firing = append(firing, policy.Firing{Name: t.Name, Window: w.Reach()})
 			}
 		}
 		if st, ok := policy.StepTriggers(firing, r.inFlight != nil, r.last, cooldown, r.liveSince, now); ok {

@@ -13,6 +13,7 @@ import (
 
 	"plumbline.dev/plumbline/api/v1alpha1"
 	"plumbline.dev/plumbline/internal/engine/policy"
+	"plumbline.dev/plumbline/internal/engine/trigger"
 )
 
 func runExplain(ctx context.Context, e *env, pos []string) error {
@@ -127,7 +128,8 @@ func explain(w io.Writer, l *v1alpha1.ModelLine, vs []v1alpha1.ModelVersion, now
 		if ts.State == v1alpha1.TriggerFiring {
 			// As the controller: a whole window of the live version's
 			// predictions, with their labels in.
-			firing = append(firing, policy.Firing{Name: spec.Name, Window: time.Duration(spec.ForSeconds)*time.Second + l.Spec.LabelDelay(spec.LabelDelaySeconds)})
+			w := trigger.Window{For: time.Duration(spec.ForSeconds) * time.Second, Delay: l.Spec.LabelDelay(spec.LabelDelaySeconds)}
+			firing = append(firing, policy.Firing{Name: spec.Name, Window: w.Reach()})
 		}
 	}
 	if ch := l.Spec.Checks; ch != nil && ch.EarlyWarning != nil {

@@ -346,11 +346,7 @@ func (d *player) story() error {
 		Note: "the Fenwick depot opens (40% of parcels, rural routes) and the address feed loses 30% of addresses"}); err != nil {
 		return err
 	}
-	if err := d.wait("a retrain refused on broken data", func() (bool, error) {
-		var line v1alpha1.ModelLine
-		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
-			return false, err
-		}
+	if err := d.waitLine(lineKey, "a retrain refused on broken data", func(line *v1alpha1.ModelLine) (bool, error) {
 		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionBlocked)
 		if c == nil || c.Status != metav1.ConditionTrue || c.Reason != "DataQualityIssue" {
 			return false, nil
@@ -395,11 +391,7 @@ func (d *player) story() error {
 	if err := d.changeWorld(Phase{Fenwick: true, Note: "the peak ends: ordinary traffic again"}); err != nil {
 		return err
 	}
-	if err := d.wait("the guard to wait for "+peakVersion+"'s own outcomes", func() (bool, error) {
-		var line v1alpha1.ModelLine
-		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
-			return false, err
-		}
+	if err := d.waitLine(lineKey, "the guard to wait for "+peakVersion+"'s own outcomes", func(line *v1alpha1.ModelLine) (bool, error) {
 		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionDegraded)
 		if line.Status.LiveVersion != peakVersion || c == nil || c.Reason != "AwaitingOwnLabels" {
 			return false, nil
@@ -410,11 +402,7 @@ func (d *player) story() error {
 	}); err != nil {
 		return err
 	}
-	if err := d.wait("the guard to roll "+peakVersion+" back to late-risk-v1", func() (bool, error) {
-		var line v1alpha1.ModelLine
-		if err := d.c.Get(d.ctx, lineKey, &line); err != nil {
-			return false, err
-		}
+	if err := d.waitLine(lineKey, "the guard to roll "+peakVersion+" back to late-risk-v1", func(line *v1alpha1.ModelLine) (bool, error) {
 		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionFallbackActive)
 		if c == nil || c.Status != metav1.ConditionTrue || line.Status.LiveVersion != "late-risk-v1" {
 			return false, nil
@@ -439,11 +427,7 @@ func (d *player) story() error {
 // earlyWarning waits for the line's InputsDrifted condition to name a
 // drifted check, and tells whether the quality trigger had fired by then.
 func (d *player) earlyWarning(key types.NamespacedName, check string) error {
-	return d.wait("the early warning on "+check, func() (bool, error) {
-		var line v1alpha1.ModelLine
-		if err := d.c.Get(d.ctx, key, &line); err != nil {
-			return false, err
-		}
+	return d.waitLine(key, "the early warning on "+check, func(line *v1alpha1.ModelLine) (bool, error) {
 		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionInputsDrifted)
 		if c == nil || c.Status != metav1.ConditionTrue || !strings.Contains(c.Message, check) {
 			return false, nil
@@ -523,11 +507,7 @@ func (d *player) probationEnds(key types.NamespacedName) error {
 // trigger then retrains again after the cooldown.)
 func (d *player) waitNewLive(key types.NamespacedName, old string) (string, error) {
 	var live string
-	if err := d.wait("a version newer than "+old+" to go live", func() (bool, error) {
-		var line v1alpha1.ModelLine
-		if err := d.c.Get(d.ctx, key, &line); err != nil {
-			return false, err
-		}
+	if err := d.waitLine(key, "a version newer than "+old+" to go live", func(line *v1alpha1.ModelLine) (bool, error) {
 		live = line.Status.LiveVersion
 		return live != "" && live != old, nil
 	}); err != nil {
@@ -562,17 +542,24 @@ func (d *player) create(o *unstructured.Unstructured) error {
 
 // waitReady prints events until the line's Ready condition is as wanted.
 func (d *player) waitReady(key types.NamespacedName, status metav1.ConditionStatus, reason string) error {
-	return d.wait(fmt.Sprintf("line %s to be Ready=%s (%s)", key.Name, status, reason), func() (bool, error) {
-		var line v1alpha1.ModelLine
-		if err := d.c.Get(d.ctx, key, &line); err != nil {
-			return false, err
-		}
+	return d.waitLine(key, fmt.Sprintf("line %s to be Ready=%s (%s)", key.Name, status, reason), func(line *v1alpha1.ModelLine) (bool, error) {
 		c := meta.FindStatusCondition(line.Status.Conditions, v1alpha1.ConditionReady)
 		if c == nil || c.Status != status || c.Reason != reason {
 			return false, nil
 		}
 		d.say(fmt.Sprintf("ModelLine %s is Ready=%s (%s)", key.Name, c.Status, c.Reason))
 		return true, nil
+	})
+}
+
+// waitLine polls done with the line as it is now, until it says done.
+func (d *player) waitLine(key types.NamespacedName, what string, done func(*v1alpha1.ModelLine) (bool, error)) error {
+	return d.wait(what, func() (bool, error) {
+		var line v1alpha1.ModelLine
+		if err := d.c.Get(d.ctx, key, &line); err != nil {
+			return false, err
+		}
+		return done(&line)
 	})
 }
 
