@@ -222,9 +222,12 @@ const lastApplied = "kubectl.kubernetes.io/last-applied-configuration"
 
 // cacheOptions limits the manager's cache to what it reads: the Jobs it
 // made (they carry the line label), the Deployments the serving selector
-// picks (all when it is empty), and no object's managedFields or
-// last-applied copy. The manager writes Deployments by patches of the
-// fields it changes, so what the cache leaves out is never written back.
+// picks (all when it is empty), no object's managedFields or last-applied
+// copy, and no version's per-criterion gate results (status.gate.criteria,
+// up to 200 entries a version, the bulk of a gated version's status: the
+// manager writes them once, when it judges the version, and never reads
+// them back). The manager writes by patches of the fields it changes, so
+// what the cache leaves out is never written back.
 func cacheOptions(o Options) (cache.Options, error) {
 	ours, err := labels.NewRequirement(v1alpha1.LineLabel, selection.Exists, nil)
 	if err != nil {
@@ -245,6 +248,9 @@ func cacheOptions(o Options) (cache.Options, error) {
 		out, err := strip(in)
 		if err != nil {
 			return out, err
+		}
+		if v, ok := out.(*v1alpha1.ModelVersion); ok && v.Status.Gate != nil {
+			v.Status.Gate.Criteria = nil
 		}
 		if obj, ok := out.(metav1.Object); ok {
 			if a := obj.GetAnnotations(); a[lastApplied] != "" {

@@ -7,6 +7,8 @@ import (
 	appsv1 "k8s.io/api/apps/v1"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/labels"
+
+	"plumbline.dev/plumbline/api/v1alpha1"
 )
 
 // The cache keeps what the manager reads: the serving selector limits the
@@ -55,5 +57,32 @@ func TestCacheOptions(t *testing.T) {
 	}
 	if got.Annotations["larkspur.example/owner"] != "routing" {
 		t.Errorf("other annotations lost: %v", got.Annotations)
+	}
+}
+
+// A cached version keeps its gate verdict, reason and message (the
+// conditions are made of them) but not the per-criterion results.
+func TestCacheLeavesOutGateCriteria(t *testing.T) {
+	o, err := cacheOptions(Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	v := &v1alpha1.ModelVersion{ObjectMeta: metav1.ObjectMeta{Name: "late-risk-v4"},
+		Status: v1alpha1.ModelVersionStatus{Phase: v1alpha1.PhaseLive, Gate: &v1alpha1.GateResult{
+			Verdict: v1alpha1.GatePassed, Reason: "CriteriaMet", Message: "all 2 criteria met on 5000 rows", Rows: 5000,
+			Criteria: []v1alpha1.CriterionResult{{Metric: "roc_auc", Passed: true}, {Metric: "recall", Segment: "depot=north", Passed: true}}}}}
+	out, err := o.DefaultTransform(v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := out.(*v1alpha1.ModelVersion).Status.Gate
+	if g == nil || g.Criteria != nil {
+		t.Fatalf("cached gate result %+v, want it without criteria", g)
+	}
+	if g.Verdict != v1alpha1.GatePassed || g.Reason != "CriteriaMet" || g.Message == "" || g.Rows != 5000 {
+		t.Errorf("cached gate result lost more than the criteria: %+v", g)
+	}
+	if _, err := o.DefaultTransform(&v1alpha1.ModelVersion{}); err != nil {
+		t.Errorf("a version without a gate result: %v", err)
 	}
 }

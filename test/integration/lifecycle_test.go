@@ -364,6 +364,19 @@ func TestLifecycleHappyPath(t *testing.T) {
 	if v1.Status.PromotedTime == nil || v1.Status.Promotion == nil || v1.Status.Promotion.FromVersion != initial || v1.Status.Promotion.FromArtifactURI != initialURI {
 		t.Errorf("promotion record %+v at %v", v1.Status.Promotion, v1.Status.PromotedTime)
 	}
+	// The manager's cache holds the gate result without its per-criterion
+	// list, and its later status writes (Promoting, then Live) kept the
+	// list the API server has.
+	if g := v1.Status.Gate; g == nil || len(g.Criteria) != 5 || g.Verdict != v1alpha1.GatePassed {
+		t.Errorf("the live version's gate result after its promotion: %+v, want the verdict and its 5 criteria", g)
+	}
+	var cachedV1 v1alpha1.ModelVersion
+	if err := running.cache.Get(ctx, client.ObjectKeyFromObject(v1), &cachedV1); err != nil {
+		t.Fatal(err)
+	}
+	if g := cachedV1.Status.Gate; g == nil || g.Verdict != v1alpha1.GatePassed || len(g.Criteria) != 0 {
+		t.Errorf("the cached live version's gate result: %+v, want the verdict without criteria", g)
+	}
 	v0 := waitPhase(t, ns, initial, v1alpha1.PhaseArchived)
 	if v0.Status.ArchivedTime == nil || conditionIs(v0.Status.Conditions, v1alpha1.ConditionLive) {
 		t.Errorf("archived v0 status %+v", v0.Status)
