@@ -462,7 +462,7 @@ func (r *Reconciler) eventForReady(orig, line *v1alpha1.ModelLine) {
 func (r *Reconciler) SetupWithManager(mgr ctrl.Manager, workers int) error {
 	return ctrl.NewControllerManagedBy(mgr).
 		Named("modelline").
-		WithOptions(controller.Options{MaxConcurrentReconciles: workers}).
+		WithOptions(controller.Options{MaxConcurrentReconciles: workers, LogConstructor: requestLogger(mgr.GetLogger())}).
 		// Status writes do not change the generation, so they do not wake the
 		// line again; annotations carry a person's requests.
 		For(&v1alpha1.ModelLine{}, builder.WithPredicates(predicate.Or(predicate.GenerationChangedPredicate{}, predicate.AnnotationChangedPredicate{}))).
