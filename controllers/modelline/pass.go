@@ -20,9 +20,12 @@ import (
 // versions are working copies; the pass changes their status in memory and
 // writes each changed one once at the end.
 type view struct {
-	deployment *appsv1.Deployment
+	deployment *appsv1.Deployment       // the cache's own copy: read it, change a copy
 	versions   []*v1alpha1.ModelVersion // this line's, oldest first
 	jobs       map[string]*batchv1.Job  // this line's Jobs, by name
+	// before is each version's status as read, before the pass changed
+	// it: the cache's own (shared, never changed) copy.
+	before map[string]v1alpha1.ModelVersionStatus
 }
 
 func (v *view) version(name string) *v1alpha1.ModelVersion {

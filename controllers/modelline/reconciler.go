@@ -101,8 +101,10 @@ type lineObservation struct {
 // concludes each status by its one writer, writes each changed status once
 // (write), then emits the events and metrics for what changed.
 func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Result, error) {
-	var line v1alpha1.ModelLine
-	if err := r.Get(ctx, req.NamespacedName, &line); err != nil {
+	// The cache's own copy, read without copying it: it is the status the
+	// pass's write is computed against, and the pass works on one copy.
+	var shared v1alpha1.ModelLine
+	if err := r.Get(ctx, req.NamespacedName, &shared, client.UnsafeDisableDeepCopy); err != nil {
 		if apierrors.IsNotFound(err) {
 			forgetLineMetrics(req.Namespace, req.Name)
 			r.evals.forget(req.NamespacedName)
@@ -112,10 +114,11 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		}
 		return ctrl.Result{}, fmt.Errorf("get ModelLine %s: %w", req.NamespacedName, err)
 	}
-	if err := r.fresh(ctx, &line); err != nil {
+	orig, err := r.fresh(ctx, &shared)
+	if err != nil {
 		return ctrl.Result{}, err
 	}
-	orig := line.DeepCopy()
+	line := *orig.DeepCopy()
 	if r.LineMetrics == LineMetricsAll {
 		lineReconciles.WithLabelValues(line.Namespace, line.Name).Inc()
 	}
@@ -129,7 +132,7 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		// observedGeneration alone so nobody reads the pass as done.
 		return ctrl.Result{}, err
 	}
-	before := snapshot(vw.versions)
+	before := vw.before
 
 	p := &pass{now: metav1.NewTime(r.Clock.Now()), line: &line, vw: vw}
 	var phaseErr error
@@ -275,17 +278,21 @@ func (r *Reconciler) denied(ctx context.Context, orig, line *v1alpha1.ModelLine,
 // last seen, the line is read from the API server, and the copy read is
 // remembered as the newest: an edit by someone else costs one read, not one
 // per pass from then on.
-func (r *Reconciler) fresh(ctx context.Context, line *v1alpha1.ModelLine) error {
-	key := client.ObjectKeyFromObject(line)
+//
+// cached is the cache's own copy and is not changed: a newer line is read
+// into an object of its own.
+func (r *Reconciler) fresh(ctx context.Context, cached *v1alpha1.ModelLine) (*v1alpha1.ModelLine, error) {
+	key := client.ObjectKeyFromObject(cached)
 	rv, ok := r.written.Load(key)
-	if !ok || rv == line.ResourceVersion {
-		return nil
+	if !ok || rv == cached.ResourceVersion {
+		return cached, nil
 	}
-	if err := r.APIReader.Get(ctx, key, line); err != nil {
-		return fmt.Errorf("read ModelLine %s: %w", key, err)
+	var line v1alpha1.ModelLine
+	if err := r.APIReader.Get(ctx, key, &line); err != nil {
+		return nil, fmt.Errorf("read ModelLine %s: %w", key, err)
 	}
 	r.written.Store(key, line.ResourceVersion)
-	return nil
+	return &line, nil
 }
 
 // counts are the pass's per-line counts to add: none unless every per-line
@@ -313,15 +320,6 @@ func (r *Reconciler) emit(p *pass, only map[string]bool) {
 	}
 }
 
-// snapshot copies the versions' statuses before a pass changes them.
-func snapshot(vs []*v1alpha1.ModelVersion) map[string]v1alpha1.ModelVersionStatus {
-	out := make(map[string]v1alpha1.ModelVersionStatus, len(vs))
-	for _, v := range vs {
-		out[v.Name] = *v.Status.DeepCopy()
-	}
-	return out
-}
-
 // writeVersions writes the status of each version the pass changed, once.
 func (r *Reconciler) writeVersions(ctx context.Context, vw *view, before map[string]v1alpha1.ModelVersionStatus) (map[string]bool, error) {
 	written := map[string]bool{}
@@ -330,7 +328,7 @@ func (r *Reconciler) writeVersions(ctx context.Context, vw *view, before map[str
 			continue
 		}
 		old := before[v.Name] // a version created in this pass had none
-		if equality.Semantic.DeepEqual(old, v.Status) {
+		if versionStatusEqual(&old, &v.Status) {
 			continue
 		}
 		v.Status.ObservedGeneration = v.Generation
@@ -352,7 +350,7 @@ func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lin
 
 	var dep appsv1.Deployment
 	key := types.NamespacedName{Namespace: line.Namespace, Name: line.Spec.Serving.DeploymentName}
-	switch err := r.Get(ctx, key, &dep); {
+	switch err := r.Get(ctx, key, &dep, client.UnsafeDisableDeepCopy); { // read only: patchServing patches a copy
 	case apierrors.IsNotFound(err):
 		obs.servingMissing = fmt.Sprintf("Deployment %q (spec.serving.deploymentName) does not exist in namespace %q; the line waits for it", key.Name, key.Namespace)
 		if r.ServingSelector != "" {
@@ -365,12 +363,18 @@ func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lin
 		vw.deployment = &dep
 	}
 
+	// The cache's own copies, read without copying them: their statuses
+	// are the "before" the pass's writes are computed against, and the
+	// pass works on one copy of each (not two).
 	var versions v1alpha1.ModelVersionList
-	if err := r.List(ctx, &versions, client.InNamespace(line.Namespace), client.MatchingFields{index.VersionLine: line.Name}); err != nil {
+	if err := r.List(ctx, &versions, client.InNamespace(line.Namespace), client.MatchingFields{index.VersionLine: line.Name}, client.UnsafeDisableDeepCopy); err != nil {
 		return obs, nil, fmt.Errorf("list versions of %s: %w", line.Name, err)
 	}
+	vw.before = make(map[string]v1alpha1.ModelVersionStatus, len(versions.Items))
 	for i := range versions.Items {
-		vw.versions = append(vw.versions, &versions.Items[i])
+		shared := &versions.Items[i]
+		vw.before[shared.Name] = shared.Status
+		vw.versions = append(vw.versions, shared.DeepCopy())
 	}
 	byAge(vw.versions)
 
