@@ -28,6 +28,20 @@ type view struct {
 	before map[string]v1alpha1.ModelVersionStatus
 }
 
+// workingCopy is the version a pass works on, made from the cache's own
+// copy without deep-copying it. It is a copy of the object's struct, so a
+// pass may assign any field (v.Status.Phase = ..., v.Status.Gate = &res);
+// its conditions are its own, as setCondition changes them in place. Its
+// maps, other lists and pointed-to values are the cache's: replace them,
+// never change them in place, and give a client call that decodes its
+// answer into an object (Patch, Update) a deep copy (writeVersions and
+// nameArtifact do).
+func workingCopy(shared *v1alpha1.ModelVersion) *v1alpha1.ModelVersion {
+	v := *shared
+	v.Status.Conditions = slices.Clone(shared.Status.Conditions)
+	return &v
+}
+
 func (v *view) version(name string) *v1alpha1.ModelVersion {
 	for _, x := range v.versions {
 		if x.Name == name {

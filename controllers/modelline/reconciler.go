@@ -334,9 +334,13 @@ func (r *Reconciler) writeVersions(ctx context.Context, vw *view, before map[str
 		v.Status.ObservedGeneration = v.Generation
 		base := v.DeepCopy()
 		base.Status = old
-		if err := r.Status().Patch(ctx, v, client.MergeFromWithOptions(base, client.MergeFromWithOptimisticLock{})); err != nil {
+		// The answer is decoded into the object written: a copy of its own,
+		// as the working copy shares its maps and pointers with the cache.
+		patched := v.DeepCopy()
+		if err := r.Status().Patch(ctx, patched, client.MergeFromWithOptions(base, client.MergeFromWithOptimisticLock{})); err != nil {
 			return written, fmt.Errorf("write status of ModelVersion %s/%s: %w", v.Namespace, v.Name, err)
 		}
+		*v = *patched
 		written[v.Name] = true
 	}
 	return written, nil
@@ -365,7 +369,7 @@ func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lin
 
 	// The cache's own copies, read without copying them: their statuses
 	// are the "before" the pass's writes are computed against, and the
-	// pass works on one copy of each (not two).
+	// pass works on a working copy of each.
 	var versions v1alpha1.ModelVersionList
 	if err := r.List(ctx, &versions, client.InNamespace(line.Namespace), client.MatchingFields{index.VersionLine: line.Name}, client.UnsafeDisableDeepCopy); err != nil {
 		return obs, nil, fmt.Errorf("list versions of %s: %w", line.Name, err)
@@ -374,7 +378,7 @@ func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lin
 	for i := range versions.Items {
 		shared := &versions.Items[i]
 		vw.before[shared.Name] = shared.Status
-		vw.versions = append(vw.versions, shared.DeepCopy())
+		vw.versions = append(vw.versions, workingCopy(shared))
 	}
 	byAge(vw.versions)
 

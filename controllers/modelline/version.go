@@ -189,15 +189,17 @@ func (r *Reconciler) nameArtifact(ctx context.Context, line *v1alpha1.ModelLine,
 	if err != nil {
 		return err
 	}
-	orig := v.DeepCopy()
-	v.Spec.ArtifactURI = uri
-	if v.Labels == nil {
-		v.Labels = map[string]string{}
+	// An edited deep copy: v's labels are the cache's (workingCopy).
+	edited := v.DeepCopy()
+	edited.Spec.ArtifactURI = uri
+	if edited.Labels == nil {
+		edited.Labels = map[string]string{}
 	}
-	v.Labels[numberLabel] = fmt.Sprint(n)
-	if err := r.Patch(ctx, v, client.MergeFrom(orig)); err != nil {
+	edited.Labels[numberLabel] = fmt.Sprint(n)
+	if err := r.Patch(ctx, edited, client.MergeFrom(v)); err != nil {
 		return fmt.Errorf("name the artifact of version %s: %w", v.Name, err)
 	}
+	*v = *edited
 	line.Status.VersionCount = max(line.Status.VersionCount, n)
 	// The patch wakes the line again, and the next pass trains.
 	return nil

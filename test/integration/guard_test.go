@@ -138,6 +138,7 @@ func TestGuardRollsBackToPrevious(t *testing.T) {
 		t.Errorf("a second automatic switch: rules are %s", v.Status.Phase)
 	}
 	_ = line
+	cacheAgrees(t, ns)
 }
 
 // With no version before the live one, the line falls back to its

@@ -431,6 +431,7 @@ func TestLifecycleHappyPath(t *testing.T) {
 		}
 	}
 
+	cacheAgrees(t, ns)
 	kubectlGet(t, ns)
 }
 
