@@ -332,12 +332,13 @@ func (r *Reconciler) writeVersions(ctx context.Context, vw *view, before map[str
 			continue
 		}
 		v.Status.ObservedGeneration = v.Generation
-		base := v.DeepCopy()
+		// The patch's base is only marshalled: a shallow copy will do. The
+		// answer is decoded into the object written: a deep copy, as the
+		// working copy shares its maps and pointers with the cache.
+		base := *v
 		base.Status = old
-		// The answer is decoded into the object written: a copy of its own,
-		// as the working copy shares its maps and pointers with the cache.
 		patched := v.DeepCopy()
-		if err := r.Status().Patch(ctx, patched, client.MergeFromWithOptions(base, client.MergeFromWithOptimisticLock{})); err != nil {
+		if err := r.Status().Patch(ctx, patched, client.MergeFromWithOptions(&base, client.MergeFromWithOptimisticLock{})); err != nil {
 			return written, fmt.Errorf("write status of ModelVersion %s/%s: %w", v.Namespace, v.Name, err)
 		}
 		*v = *patched
