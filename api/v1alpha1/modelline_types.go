@@ -27,6 +27,16 @@ const (
 	RoleLabel = "plumbline.dev/role"
 	// NumberLabel is a started version's sequence number in its line.
 	NumberLabel = "plumbline.dev/number"
+	// HistoryLabel marks a finished version that no longer bears on its
+	// line's decisions: not live, not the one it replaced, not serving, not
+	// the rule-based one, and not the newest of anything the line reads from
+	// its versions (its last outcome, its last data window, its promotion
+	// sequence). Its value is the version's phase (Archived, Rejected or
+	// Failed). The manager keeps only the metadata of such versions in
+	// memory and reads one in full when a person asks to serve it again; the
+	// version itself is unchanged. Removing the label is harmless: the
+	// manager sets it again.
+	HistoryLabel = "plumbline.dev/history"
 )
 
 // ModelLineSpec is the desired behaviour of one model line.

@@ -391,7 +391,7 @@ func (r *Reconciler) guard(_ context.Context, p *pass) error {
 // line (even one the guard rolled back) or its rule-based version. It goes
 // through the same promotion path, with its revert on a failed rollout.
 // Each distinct value acts once.
-func (r *Reconciler) handleRollbackRequest(_ context.Context, p *pass) error {
+func (r *Reconciler) handleRollbackRequest(ctx context.Context, p *pass) error {
 	line, vw := p.line, p.vw
 	value, ok := line.Annotations[v1alpha1.RollbackRequestAnnotation]
 	if !ok || value == line.Status.LastRollbackRequest {
@@ -404,6 +404,13 @@ func (r *Reconciler) handleRollbackRequest(_ context.Context, p *pass) error {
 		return nil // waits for that rollout; the Deployment's changes wake the line
 	}
 	target := vw.version(name)
+	if target == nil {
+		// A history version is read in full only now.
+		var err error
+		if target, err = r.recall(ctx, p, name); err != nil {
+			return err
+		}
+	}
 	why := ""
 	switch {
 	case target == nil:

@@ -324,13 +324,14 @@ func TestPruneList(t *testing.T) {
 		version("v4", 4, v1alpha1.PhaseLive, v1alpha1.SourceTrained),
 		version("v6", 6, v1alpha1.PhaseTraining, v1alpha1.SourceTrained),
 	}
-	names := func(l []*v1alpha1.ModelVersion) string {
+	names := func(l []entry) string {
 		var s []string
-		for _, v := range l {
-			s = append(s, v.Name)
+		for _, e := range l {
+			s = append(s, e.meta.Name)
 		}
 		return strings.Join(s, ",")
 	}
+	vw := &view{versions: vs}
 	cases := []struct {
 		live, previous string
 		limit          int32
@@ -347,9 +348,25 @@ func TestPruneList(t *testing.T) {
 		{"v4", "rules", 0, "v1,v2,v3,v5"}, // rules is never pruned
 	}
 	for _, c := range cases {
-		if got := names(pruneList(vs, c.live, c.previous, c.limit)); got != c.want {
+		if got := names(pruneList(entries(vw), c.live, c.previous, c.limit)); got != c.want {
 			t.Errorf("live %s previous %s limit %d: pruned %q, want %q", c.live, c.previous, c.limit, got, c.want)
 		}
+	}
+
+	// History versions (metadata only, their phase in the label) count
+	// against the limit and go first when oldest; one also among the
+	// pass's versions (just labelled) counts once.
+	hist := func(name string, created int, phase v1alpha1.VersionPhase) *metav1.PartialObjectMetadata {
+		return &metav1.PartialObjectMetadata{ObjectMeta: metav1.ObjectMeta{Name: name,
+			CreationTimestamp: metav1.NewTime(time.Date(2026, 11, 1, 0, created, 0, 0, time.UTC)),
+			Labels:            map[string]string{v1alpha1.HistoryLabel: string(phase)}}}
+	}
+	vw.history = []*metav1.PartialObjectMetadata{hist("v0", 0, v1alpha1.PhaseRejected), hist("v5", 5, v1alpha1.PhaseRejected)}
+	if got, want := names(pruneList(entries(vw), "v4", "v3", 2)), "v0,v1"; got != want {
+		t.Errorf("with history: pruned %q, want %q", got, want)
+	}
+	if got, want := names(pruneList(entries(vw), "v4", "v3", 4)), ""; got != want {
+		t.Errorf("with history, limit 4 (v0, v1, v2, v5): pruned %q, want %q", got, want)
 	}
 }
 

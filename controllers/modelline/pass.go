@@ -23,6 +23,9 @@ type view struct {
 	deployment *appsv1.Deployment       // the cache's own copy: read it, change a copy
 	versions   []*v1alpha1.ModelVersion // this line's, oldest first
 	jobs       map[string]*batchv1.Job  // this line's Jobs, by name
+	// history is the metadata of the line's history versions (labelled
+	// v1alpha1.HistoryLabel), which the pass does not work on: copies.
+	history []*metav1.PartialObjectMetadata
 	// before is each version's status as read, before the pass changed
 	// it: the cache's own (shared, never changed) copy.
 	before map[string]v1alpha1.ModelVersionStatus

@@ -52,8 +52,12 @@ type Reconciler struct {
 	// APIReader reads past the cache: Pods (which are not cached) and objects
 	// just created, which the cache may not hold yet.
 	APIReader client.Reader
-	Clock     clock.Clock
-	Recorder  events.EventRecorder
+	// History reads the metadata of the history versions (labelled
+	// v1alpha1.HistoryLabel), which the main cache leaves out, indexed by
+	// index.HistoryLine. Without it no version is labelled as history.
+	History  client.Reader
+	Clock    clock.Clock
+	Recorder events.EventRecorder
 	// Prometheus answers the triggers' and checks' queries.
 	Prometheus promq.Querier
 	// Coverage is the share of a trigger window's points that must be
@@ -141,7 +145,8 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 	}
 	readyChanged := conclude(p, obs, phaseErr)
 
-	if written, err := r.write(ctx, p, orig, before); err != nil {
+	written, err := r.write(ctx, p, orig, before)
+	if err != nil {
 		// Tell what the written and the created versions went through,
 		// and count it; the rest is recomputed by the pass that follows.
 		for name := range p.created {
@@ -168,6 +173,11 @@ func (r *Reconciler) Reconcile(ctx context.Context, req ctrl.Request) (ctrl.Resu
 		m.inc()
 	}
 	recordLineMetrics(&line, vw.live(), r.LineMetrics)
+	if phaseErr == nil && !line.Spec.Suspend {
+		if err := r.shelve(ctx, p, written); err != nil {
+			return ctrl.Result{}, err
+		}
+	}
 	if apierrors.IsForbidden(phaseErr) {
 		// Not a transient error: a person must grant the permission. The
 		// line says so and tries again calmly, without a growing backoff,
@@ -382,6 +392,16 @@ func (r *Reconciler) observe(ctx context.Context, line *v1alpha1.ModelLine) (lin
 		vw.versions = append(vw.versions, workingCopy(shared))
 	}
 	byAge(vw.versions)
+	if r.History != nil {
+		hist := index.HistoryList()
+		if err := r.History.List(ctx, hist, client.InNamespace(line.Namespace), client.MatchingFields{index.HistoryLine: line.Name}, client.UnsafeDisableDeepCopy); err != nil {
+			return obs, nil, fmt.Errorf("list history versions of %s: %w", line.Name, err)
+		}
+		for i := range hist.Items {
+			h := hist.Items[i] // a copy: pruning marks it deleted
+			vw.history = append(vw.history, &h)
+		}
+	}
 
 	var jobs batchv1.JobList
 	if err := r.List(ctx, &jobs, client.InNamespace(line.Namespace), client.MatchingLabels{v1alpha1.LineLabel: labelValue(line.Name)}); err != nil {

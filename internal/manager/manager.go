@@ -186,7 +186,11 @@ func New(ctx context.Context, cfg *rest.Config, o Options) (ctrl.Manager, error)
 	if err := index.Register(ctx, mgr); err != nil {
 		return nil, err
 	}
-	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Clock: clk, Recorder: recorder,
+	history, err := historyCache(ctx, cfg, mgr, cacheOpts)
+	if err != nil {
+		return nil, err
+	}
+	lines := &modelline.Reconciler{Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), History: history, Clock: clk, Recorder: recorder,
 		Prometheus: prom, Coverage: o.TriggerCoverage, PerLineQueries: o.PerLineQueries, LineMetrics: o.LineMetrics, Unspread: o.UnspreadEvaluations, ServingSelector: o.ServingSelector}
 	workers := o.MaxConcurrentReconciles
 	if workers <= 0 {
@@ -223,7 +227,8 @@ const lastApplied = "kubectl.kubernetes.io/last-applied-configuration"
 // cacheOptions limits the manager's cache to what it reads: the Jobs it
 // made (they carry the line label), the Deployments the serving selector
 // picks (all when it is empty), no object's managedFields or last-applied
-// copy, and no version's per-criterion gate results (status.gate.criteria,
+// copy, no history version (they are in the history cache, as metadata
+// only), and no version's per-criterion gate results (status.gate.criteria,
 // up to 200 entries a version, the bulk of a gated version's status: the
 // manager writes them once, when it judges the version, and never reads
 // them back). The manager writes by patches of the fields it changes, so
@@ -233,8 +238,14 @@ func cacheOptions(o Options) (cache.Options, error) {
 	if err != nil {
 		return cache.Options{}, fmt.Errorf("job selector: %w", err)
 	}
+	current, err := historySelector(false)
+	if err != nil {
+		return cache.Options{}, err
+	}
 	byObject := map[client.Object]cache.ByObject{
 		&batchv1.Job{}: {Label: labels.NewSelector().Add(*ours)},
+		// History versions are in the history cache, as metadata only.
+		&v1alpha1.ModelVersion{}: {Label: current},
 	}
 	if o.ServingSelector != "" {
 		sel, err := labels.Parse(o.ServingSelector)
@@ -260,6 +271,49 @@ func cacheOptions(o Options) (cache.Options, error) {
 		}
 		return out, nil
 	}}, nil
+}
+
+// historyCache holds the metadata of the history versions (labelled
+// v1alpha1.HistoryLabel), which the main cache leaves out: a few hundred
+// bytes a version instead of its whole status, read to prune history and to
+// find a version a person asks to serve again. It starts and syncs with the
+// manager's own cache, before any reconciler runs.
+func historyCache(ctx context.Context, cfg *rest.Config, mgr ctrl.Manager, main cache.Options) (cache.Cache, error) {
+	sel, err := historySelector(true)
+	if err != nil {
+		return nil, err
+	}
+	c, err := cache.New(cfg, cache.Options{HTTPClient: mgr.GetHTTPClient(), Scheme: mgr.GetScheme(), Mapper: mgr.GetRESTMapper(),
+		DefaultNamespaces: main.DefaultNamespaces, DefaultLabelSelector: sel, DefaultTransform: main.DefaultTransform})
+	if err != nil {
+		return nil, fmt.Errorf("create history cache: %w", err)
+	}
+	if err := index.RegisterHistory(ctx, c); err != nil {
+		return nil, err
+	}
+	if err := mgr.Add(syncedWithManager{c}); err != nil {
+		return nil, fmt.Errorf("add history cache: %w", err)
+	}
+	return c, nil
+}
+
+// syncedWithManager makes the manager start a cache with its own and wait
+// for it to sync before it starts the reconcilers.
+type syncedWithManager struct{ cache.Cache }
+
+func (s syncedWithManager) GetCache() cache.Cache { return s.Cache }
+
+// historySelector selects the history versions, or (in false) all others.
+func historySelector(in bool) (labels.Selector, error) {
+	op := selection.DoesNotExist
+	if in {
+		op = selection.Exists
+	}
+	req, err := labels.NewRequirement(v1alpha1.HistoryLabel, op, nil)
+	if err != nil {
+		return nil, fmt.Errorf("history selector: %w", err)
+	}
+	return labels.NewSelector().Add(*req), nil
 }
 
 // newClient is controller-runtime's client, wrapped when wrap is set.

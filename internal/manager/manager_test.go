@@ -22,10 +22,19 @@ func TestCacheOptions(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	for obj := range all.ByObject {
-		if _, ok := obj.(*appsv1.Deployment); ok {
+	for obj, by := range all.ByObject {
+		switch obj.(type) {
+		case *appsv1.Deployment:
 			t.Fatal("without a serving selector every Deployment is cached, but one is set")
+		case *v1alpha1.ModelVersion:
+			// History versions are in the history cache, as metadata.
+			if by.Label == nil || by.Label.Matches(labels.Set{v1alpha1.HistoryLabel: "Archived"}) || !by.Label.Matches(labels.Set{"app": "x"}) {
+				t.Errorf("ModelVersion selector %v, want every version but the history ones", by.Label)
+			}
 		}
+	}
+	if in, err := historySelector(true); err != nil || !in.Matches(labels.Set{v1alpha1.HistoryLabel: "Rejected"}) || in.Matches(labels.Set{}) {
+		t.Errorf("history cache selector %v (%v), want the history versions only", in, err)
 	}
 	o, err := cacheOptions(Options{ServingSelector: "plumbline.dev/serving=true"})
 	if err != nil {

@@ -210,41 +210,8 @@ func TestRolloutFailsAndReverts(t *testing.T) {
 func TestHistoryPruning(t *testing.T) {
 	ns := "pruning"
 	key := liveLine(t, ns, func(o *unstructured.Unstructured) { mustSet(t, o, "spec.historyLimit", int64(1)) })
-	failing := passingReport()
-	failing.Metrics[0].Candidate = f(0.7)
-
-	reject := func(n int) {
-		name := fmt.Sprintf("late-risk-v%d", n)
-		requestRetrain(t, key, fmt.Sprintf("prune-%d", n))
-		waitPhase(t, ns, name, v1alpha1.PhaseTraining)
-		succeedJob(t, ns, name+"-train", "")
-		waitPhase(t, ns, name, v1alpha1.PhaseEvaluating)
-		succeedJob(t, ns, name+"-gate", encode(t, failing))
-		waitPhase(t, ns, name, v1alpha1.PhaseRejected)
-	}
-	names := func() map[string]v1alpha1.VersionPhase {
-		var list v1alpha1.ModelVersionList
-		if err := k8s.List(context.Background(), &list, client.InNamespace(ns)); err != nil {
-			t.Fatal(err)
-		}
-		out := map[string]v1alpha1.VersionPhase{}
-		for _, v := range list.Items {
-			if v.DeletionTimestamp == nil {
-				out[v.Name] = v.Status.Phase
-			}
-		}
-		return out
-	}
-	expect := func(want map[string]v1alpha1.VersionPhase) {
-		t.Helper()
-		eventually(t, waitFor, func() error {
-			got := names()
-			if fmt.Sprint(got) != fmt.Sprint(want) {
-				return fmt.Errorf("versions %v, want %v", got, want)
-			}
-			return nil
-		})
-	}
+	reject := func(n int) { rejectRetrain(t, key, n, fmt.Sprintf("prune-%d", n)) }
+	expect := func(want map[string]v1alpha1.VersionPhase) { t.Helper(); expectVersions(t, ns, want) }
 
 	reject(1)
 	reject(2)
@@ -260,4 +227,124 @@ func TestHistoryPruning(t *testing.T) {
 
 	reject(4)
 	expect(map[string]v1alpha1.VersionPhase{initial: "Archived", rulesName: "Standby", "late-risk-v3": "Live", "late-risk-v4": "Rejected"})
+}
+
+// rejectRetrain asks the line for a retrain (token), and lets version
+// late-risk-vN train and fail its gate.
+func rejectRetrain(t *testing.T, key client.ObjectKey, n int, token string) {
+	t.Helper()
+	failing := passingReport()
+	failing.Metrics[0].Candidate = f(0.7)
+	name := fmt.Sprintf("late-risk-v%d", n)
+	requestRetrain(t, key, token)
+	waitPhase(t, key.Namespace, name, v1alpha1.PhaseTraining)
+	succeedJob(t, key.Namespace, name+"-train", "")
+	waitPhase(t, key.Namespace, name, v1alpha1.PhaseEvaluating)
+	succeedJob(t, key.Namespace, name+"-gate", encode(t, failing))
+	waitPhase(t, key.Namespace, name, v1alpha1.PhaseRejected)
+}
+
+// expectVersions waits until the versions of namespace ns (not being
+// deleted) and their phases are want.
+func expectVersions(t *testing.T, ns string, want map[string]v1alpha1.VersionPhase) {
+	t.Helper()
+	eventually(t, waitFor, func() error {
+		var list v1alpha1.ModelVersionList
+		if err := k8s.List(context.Background(), &list, client.InNamespace(ns)); err != nil {
+			return err
+		}
+		got := map[string]v1alpha1.VersionPhase{}
+		for _, v := range list.Items {
+			if v.DeletionTimestamp == nil {
+				got[v.Name] = v.Status.Phase
+			}
+		}
+		if fmt.Sprint(got) != fmt.Sprint(want) {
+			return fmt.Errorf("versions %v, want %v", got, want)
+		}
+		return nil
+	})
+}
+
+// Finished versions that no longer bear on the line are labelled as
+// history and kept out of the manager's main cache; the line reads the
+// same; a person can still roll back to one (it is read in full and leaves
+// history); pruning counts them.
+func TestHistoryVersionsKeptAsMetadata(t *testing.T) {
+	ns := "history-kept"
+	key := liveLine(t, ns, nil)
+	ctx := context.Background()
+	history := func(name string) string {
+		t.Helper()
+		return getVersion(t, ns, name).Labels[v1alpha1.HistoryLabel]
+	}
+	waitHistory := func(name, want string) {
+		t.Helper()
+		eventually(t, waitFor, func() error {
+			if got := history(name); got != want {
+				return fmt.Errorf("%s: history label %q, want %q", name, got, want)
+			}
+			return nil
+		})
+	}
+
+	rejectRetrain(t, key, 1, "kept-1")
+	rejectRetrain(t, key, 2, "kept-2")
+	// v1 bears on nothing now (v2 is the newer outcome and data window);
+	// v2, the live v0 and the rule-based version stay in full.
+	waitHistory("late-risk-v1", string(v1alpha1.PhaseRejected))
+	settled := waitLineCondition(t, key, v1alpha1.ConditionRetraining, metav1.ConditionFalse, "GateFailed")
+	mustContain(t, "Retraining", meta.FindStatusCondition(settled.Status.Conditions, v1alpha1.ConditionRetraining).Message, "late-risk-v2")
+	if settled.Status.VersionCount != 2 {
+		t.Errorf("versionCount %d, want 2", settled.Status.VersionCount)
+	}
+	for _, name := range []string{initial, rulesName, "late-risk-v2"} {
+		if h := history(name); h != "" {
+			t.Errorf("%s labelled history %q", name, h)
+		}
+	}
+	// The version itself is whole on the API server.
+	if v1 := getVersion(t, ns, "late-risk-v1"); v1.Status.Gate == nil || v1.Status.GateJob == "" || len(v1.Status.Conditions) < 3 {
+		t.Errorf("the history version lost its status: %+v", v1.Status)
+	}
+	cacheAgrees(t, ns)
+	// Nothing more is written: the label once, the line unchanged.
+	rv := getVersion(t, ns, "late-risk-v1").ResourceVersion
+	requestRetrain(t, key, "kept-3")
+	trainAndPass(t, ns, "late-risk-v3")
+	rollOutTo(t, ns, "late-risk-v3")
+	requestRetrain(t, key, "kept-4")
+	trainAndPass(t, ns, "late-risk-v4")
+	rollOutTo(t, ns, "late-risk-v4")
+	waitPhase(t, ns, "late-risk-v4", v1alpha1.PhaseLive)
+	if got := getVersion(t, ns, "late-risk-v1").ResourceVersion; got != rv {
+		t.Errorf("history version v1 written again (resourceVersion %s -> %s)", rv, got)
+	}
+	// v0 served before v3 and is no longer the previous one; v2 and v3 are
+	// no longer the newest of anything.
+	waitHistory(initial, string(v1alpha1.PhaseArchived))
+	waitHistory("late-risk-v2", string(v1alpha1.PhaseRejected))
+	waitHistory("late-risk-v3", "")
+	cacheAgrees(t, ns)
+
+	// A person's rollback to a history version reads it in full.
+	setAnnotation(t, key, v1alpha1.RollbackRequestAnnotation, initial)
+	v0 := waitPhase(t, ns, initial, v1alpha1.PhasePromoting)
+	if _, ok := v0.Labels[v1alpha1.HistoryLabel]; ok {
+		t.Errorf("the version rolled back to is still labelled history: %v", v0.Labels)
+	}
+	rollOutTo(t, ns, initial)
+	waitPhase(t, ns, initial, v1alpha1.PhaseLive)
+	waitHistory("late-risk-v3", string(v1alpha1.PhaseArchived)) // no longer the previous one
+	waitHistory("late-risk-v4", "")                             // now it is
+
+	// Pruning counts the history versions: with room for one finished
+	// version, the oldest go (v1, v2 in history; v3 stays, v4 is previous).
+	patch := []byte(`{"spec":{"historyLimit":1}}`)
+	if err := k8s.Patch(ctx, &v1alpha1.ModelLine{ObjectMeta: metav1.ObjectMeta{Namespace: ns, Name: key.Name}}, client.RawPatch("application/merge-patch+json", patch)); err != nil {
+		t.Fatal(err)
+	}
+	expectVersions(t, ns, map[string]v1alpha1.VersionPhase{initial: "Live", rulesName: "Standby", "late-risk-v3": "Archived", "late-risk-v4": "Archived"})
+	waitEvent(t, ns, lineName, "Pruned")
+	cacheAgrees(t, ns)
 }
