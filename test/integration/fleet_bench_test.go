@@ -35,7 +35,9 @@ import (
 // default 10,000), each with three triggers judged every minute, its own
 // serving Deployment and a history of ten archived versions, on one manager
 // with the real API server and a real Prometheus holding four hours of the
-// fleet's series (PLUMBLINE_FLEET_QPS sets the manager's --kube-api-qps).
+// fleet's series (PLUMBLINE_FLEET_QPS sets the manager's --kube-api-qps,
+// PLUMBLINE_FLEET_WORKERS its --max-concurrent-reconciles; GOMEMLIMIT, read
+// by the Go runtime, applies to the whole benchmark process).
 // A share of the lines (PLUMBLINE_FLEET_SHARED, default
 // 0.5) use three shared query templates, the others literal queries of
 // their own. It runs the manager on the real clock (a fresh
@@ -81,6 +83,14 @@ func BenchmarkFleetScale(b *testing.B) {
 		}
 		qps = float32(v)
 	}
+	workers := 0 // the manager's default
+	if s := os.Getenv("PLUMBLINE_FLEET_WORKERS"); s != "" {
+		v, err := strconv.Atoi(s)
+		if err != nil || v <= 0 {
+			b.Fatalf("PLUMBLINE_FLEET_WORKERS=%q: want the manager's --max-concurrent-reconciles", s)
+		}
+		workers = v
+	}
 	if b.N > 1 {
 		b.Skip("one iteration is the whole run")
 	}
@@ -103,6 +113,8 @@ func BenchmarkFleetScale(b *testing.B) {
 	}
 	defer prom.Stop()
 	out("fleet: %d lines x 3 triggers, %d on shared templates; Prometheus backfilled in %s", n, shared, time.Since(t0).Round(time.Second))
+	out("manager: --kube-api-qps %s, --max-concurrent-reconciles %s; GOMEMLIMIT %s", orDefault(os.Getenv("PLUMBLINE_FLEET_QPS")),
+		orDefault(os.Getenv("PLUMBLINE_FLEET_WORKERS")), orDefault(os.Getenv("GOMEMLIMIT")))
 
 	withoutSuiteManager(b)
 	createNamespaceB(b, ns)
@@ -132,7 +144,7 @@ func BenchmarkFleetScale(b *testing.B) {
 	run := func(speed float64) (stop func()) {
 		mctx, cancel := context.WithCancel(ctx)
 		clk = clock.NewScaled(origin, speed)
-		mgr, err := manager.New(mctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", APIQPS: qps,
+		mgr, err := manager.New(mctx, managerConfig, manager.Options{MetricsAddr: "0", ProbeAddr: "0", APIQPS: qps, MaxConcurrentReconciles: workers,
 			Clock: clk, AllowSecondManager: true, PrometheusURL: prom.URL,
 			WrapClient: func(c client.Client) client.Client { return &writeCounter{Client: c, n: &writes, skip: probeNS} }})
 		if err != nil {
@@ -711,4 +723,11 @@ func scaleLine(ns, name string, shared bool) *unstructured.Unstructured {
 			},
 		},
 	}}
+}
+
+func orDefault(s string) string {
+	if s == "" {
+		return "default"
+	}
+	return s
 }
