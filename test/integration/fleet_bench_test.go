@@ -36,8 +36,10 @@ import (
 // serving Deployment and a history of ten archived versions, on one manager
 // with the real API server and a real Prometheus holding four hours of the
 // fleet's series (PLUMBLINE_FLEET_QPS sets the manager's --kube-api-qps,
-// PLUMBLINE_FLEET_WORKERS its --max-concurrent-reconciles; GOMEMLIMIT, read
-// by the Go runtime, applies to the whole benchmark process).
+// PLUMBLINE_FLEET_WORKERS its --max-concurrent-reconciles,
+// PLUMBLINE_FLEET_MEMLIMIT the memory limit GOMEMLIMIT would give the
+// manager's process, set for this process only: the API server, etcd and
+// Prometheus it starts would inherit GOMEMLIMIT itself).
 // A share of the lines (PLUMBLINE_FLEET_SHARED, default
 // 0.5) use three shared query templates, the others literal queries of
 // their own. It runs the manager on the real clock (a fresh
@@ -91,6 +93,16 @@ func BenchmarkFleetScale(b *testing.B) {
 		}
 		workers = v
 	}
+	if s := os.Getenv("PLUMBLINE_FLEET_MEMLIMIT"); s != "" {
+		mib, err := strconv.Atoi(strings.TrimSuffix(s, "MiB"))
+		if err != nil || mib <= 0 {
+			b.Fatalf("PLUMBLINE_FLEET_MEMLIMIT=%q: want a size in MiB, such as 800MiB", s)
+		}
+		defer debug.SetMemoryLimit(debug.SetMemoryLimit(int64(mib) << 20))
+	}
+	if os.Getenv("GOMEMLIMIT") != "" {
+		b.Fatal("GOMEMLIMIT would apply to the API server, etcd and Prometheus too: set PLUMBLINE_FLEET_MEMLIMIT instead")
+	}
 	if b.N > 1 {
 		b.Skip("one iteration is the whole run")
 	}
@@ -113,8 +125,8 @@ func BenchmarkFleetScale(b *testing.B) {
 	}
 	defer prom.Stop()
 	out("fleet: %d lines x 3 triggers, %d on shared templates; Prometheus backfilled in %s", n, shared, time.Since(t0).Round(time.Second))
-	out("manager: --kube-api-qps %s, --max-concurrent-reconciles %s; GOMEMLIMIT %s", orDefault(os.Getenv("PLUMBLINE_FLEET_QPS")),
-		orDefault(os.Getenv("PLUMBLINE_FLEET_WORKERS")), orDefault(os.Getenv("GOMEMLIMIT")))
+	out("manager: --kube-api-qps %s, --max-concurrent-reconciles %s; memory limit (as GOMEMLIMIT) %s", orDefault(os.Getenv("PLUMBLINE_FLEET_QPS")),
+		orDefault(os.Getenv("PLUMBLINE_FLEET_WORKERS")), orDefault(os.Getenv("PLUMBLINE_FLEET_MEMLIMIT")))
 
 	withoutSuiteManager(b)
 	createNamespaceB(b, ns)
