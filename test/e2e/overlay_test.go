@@ -5,9 +5,12 @@ import (
 	"os/exec"
 	"path/filepath"
 	"reflect"
+	"strconv"
 	"strings"
 	"testing"
 
+	appsv1 "k8s.io/api/apps/v1"
+	corev1 "k8s.io/api/core/v1"
 	"sigs.k8s.io/yaml"
 )
 
@@ -43,6 +46,37 @@ func TestOverlayRenders(t *testing.T) {
 	if strings.Contains(string(out), "prometheus.monitoring.svc") {
 		t.Error("the default Prometheus address is still in the rendered overlay")
 	}
+	memoryLimitFits(t, string(out))
+}
+
+// memoryLimitFits checks that the manager's GOMEMLIMIT is below its
+// container's memory limit, with room for what the Go runtime keeps outside
+// the heap (about a tenth), and not so far below that it wastes the limit.
+func memoryLimitFits(t *testing.T, rendered string) {
+	t.Helper()
+	for _, doc := range strings.Split(rendered, "\n---\n") {
+		var d appsv1.Deployment
+		if err := yaml.Unmarshal([]byte(doc), &d); err != nil || d.Kind != "Deployment" || d.Name != "plumbline-manager" {
+			continue
+		}
+		c := d.Spec.Template.Spec.Containers[0]
+		limit, ok := c.Resources.Limits[corev1.ResourceMemory]
+		var soft string
+		for _, e := range c.Env {
+			if e.Name == "GOMEMLIMIT" {
+				soft = e.Value
+			}
+		}
+		mib, err := strconv.Atoi(strings.TrimSuffix(soft, "MiB"))
+		if !ok || err != nil || !strings.HasSuffix(soft, "MiB") {
+			t.Fatalf("the manager has memory limit %v and GOMEMLIMIT %q; want both, GOMEMLIMIT in MiB", limit.String(), soft)
+		}
+		if share := float64(int64(mib)<<20) / float64(limit.Value()); share < 0.8 || share > 0.95 {
+			t.Errorf("GOMEMLIMIT %s is %.0f%% of the memory limit %s; keep it about 90%%", soft, 100*share, limit.String())
+		}
+		return
+	}
+	t.Fatal("no plumbline-manager Deployment in the rendered overlay")
 }
 
 // The README's "Install in a cluster" is what the suite does: the same
