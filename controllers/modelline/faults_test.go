@@ -3,6 +3,7 @@ package modelline
 import (
 	"context"
 	"errors"
+	"fmt"
 	"strings"
 	"testing"
 	"time"
@@ -375,4 +376,60 @@ func TestRollbackToTheSameVersionTwice(t *testing.T) {
 	if got := w.line().Status.LastRollbackRequest; got != "late-risk-v0/second-time" {
 		t.Errorf("lastRollbackRequest %q", got)
 	}
+}
+
+// A person edits the line (an annotation) while a pass starts a retrain:
+// the pass's status write meets the newer line. The version is made, and
+// a pass redone would not decide the start again, so the start's record
+// (Blocked: ChecksPassed, the request handled) is written against the line
+// as it is now, not lost.
+func TestStartIsRecordedWhenTheLineIsEditedMeanwhile(t *testing.T) {
+	line := passLine()
+	v0 := modelVersion("late-risk-v0", 0, v1alpha1.PhaseLive, v1alpha1.SourceImported)
+	edited := false
+	editDuringPass := interceptor.Funcs{Create: func(ctx context.Context, c client.WithWatch, obj client.Object, opts ...client.CreateOption) error {
+		if err := c.Create(ctx, obj, opts...); err != nil {
+			return err
+		}
+		if _, ok := obj.(*v1alpha1.ModelVersion); ok && !edited {
+			edited = true
+			var l v1alpha1.ModelLine
+			if err := c.Get(ctx, client.ObjectKey{Namespace: passNS, Name: "late-risk"}, &l); err != nil {
+				return err
+			}
+			orig := l.DeepCopy()
+			l.Annotations = map[string]string{"larkspur.example/owner": "routing-team"}
+			return c.Patch(ctx, &l, client.MergeFrom(orig))
+		}
+		return nil
+	}}
+	w := newWorld(t, editDuringPass, line, v0, scorerDeployment("late-risk-v0", v0.Spec.ArtifactURI))
+	w.mustPass()
+	w.annotate(v1alpha1.RetrainRequestAnnotation, "ops-1")
+	w.mustPass()
+	w.mustPass() // as the requeue after a conflict would
+	if !edited {
+		t.Fatal("no version was created: the edit never happened")
+	}
+	got := w.line()
+	if err := expectCondition(got.Status.Conditions, v1alpha1.ConditionBlocked, metav1.ConditionFalse, "ChecksPassed"); err != nil {
+		t.Errorf("the start's record was lost: %v", err)
+	}
+	if got.Status.LastRetrainRequest != "ops-1" {
+		t.Errorf("lastRetrainRequest %q", got.Status.LastRetrainRequest)
+	}
+	if got.Annotations["larkspur.example/owner"] != "routing-team" {
+		t.Errorf("the person's edit was lost: %v", got.Annotations)
+	}
+}
+
+func expectCondition(conds []metav1.Condition, typ string, status metav1.ConditionStatus, reason string) error {
+	c := meta.FindStatusCondition(conds, typ)
+	if c == nil {
+		return fmt.Errorf("no %s condition", typ)
+	}
+	if c.Status != status || c.Reason != reason {
+		return fmt.Errorf("%s is %s/%s (%s), want %s/%s", typ, c.Status, c.Reason, c.Message, status, reason)
+	}
+	return nil
 }

@@ -239,13 +239,34 @@ func (r *Reconciler) write(ctx context.Context, p *pass, orig *v1alpha1.ModelLin
 		return written, err
 	}
 	// The optimistic lock refuses a write computed from a stale copy; the
-	// pass is then redone on fresh data.
+	// pass is then redone on fresh data, unless only the line's metadata or
+	// spec moved (retryStatus).
 	key := client.ObjectKeyFromObject(p.line)
 	if err := r.Status().Patch(ctx, p.line, client.MergeFromWithOptions(orig, client.MergeFromWithOptimisticLock{})); err != nil {
-		return written, fmt.Errorf("write status of ModelLine %s: %w", key, err)
+		if !apierrors.IsConflict(err) || !r.retryStatus(ctx, p.line, orig) {
+			return written, fmt.Errorf("write status of ModelLine %s: %w", key, err)
+		}
 	}
 	r.written.Store(key, p.line.ResourceVersion)
 	return written, nil
+}
+
+// retryStatus writes the pass's status once more when its write met a line
+// whose status is still the one the pass started from: someone changed
+// only its metadata or spec meanwhile (an annotation, an edit). What the
+// pass did outside (a version created, a Job started) is done, and a pass
+// redone would not judge it again: its record is written now, against the
+// line as it is, and the next pass (the change wakes it) takes the change.
+// It reports whether the status was written.
+func (r *Reconciler) retryStatus(ctx context.Context, line, orig *v1alpha1.ModelLine) bool {
+	var now v1alpha1.ModelLine
+	if err := r.APIReader.Get(ctx, client.ObjectKeyFromObject(line), &now); err != nil || !equality.Semantic.DeepEqual(now.Status, orig.Status) {
+		return false
+	}
+	base := orig.DeepCopy()
+	base.ResourceVersion = now.ResourceVersion
+	line.ResourceVersion = now.ResourceVersion
+	return r.Status().Patch(ctx, line, client.MergeFromWithOptions(base, client.MergeFromWithOptimisticLock{})) == nil
 }
 
 // requeue turns the pass's wake time into the real time to wait.
